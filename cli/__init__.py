@@ -1,0 +1,1 @@
+"""The iqdemod command line (installed as the package ``iqdemod_cli``)."""

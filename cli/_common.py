@@ -1,0 +1,67 @@
+"""Pieces every command shares: the link options, output files, messages on stderr."""
+
+from __future__ import annotations
+
+import contextlib
+import functools
+import sys
+from pathlib import Path
+from typing import Any, Callable, Iterator, TextIO
+
+import click
+
+import iqdemod
+from iqdemod._io import atomic_writer
+
+EXIT_OK, EXIT_FAILED, EXIT_USAGE = 0, 1, 2
+
+_LINK_OPTIONS = [
+    click.option("--link", "link", type=click.Path(dir_okay=False, path_type=Path),
+                 help="TOML link profile; the flags below override its values."),
+    click.option("--datatype", help="SigMF datatype of a raw capture: cu8, ci8, ci16_le, ci16_be, cf32_le, cf64_le, …"),
+    click.option("--rate", type=float, help="Sample rate of a raw capture, Hz."),
+    click.option("--offset", type=float, help="Signal centre relative to the capture centre, Hz (+ = above)."),
+    click.option("--frequency", type=float, help="Absolute signal centre, Hz (needs the capture's centre frequency)."),
+    click.option("--baud", type=float, help="Symbol rate, symbols/s."),
+    click.option("--shift", type=float, help="Tone shift: upper tone minus lower tone, Hz."),
+    click.option("--invert/--no-invert", default=None, help="Bit 1 is the lower tone (default: the upper tone)."),
+    click.option("--max-freq-error", type=float, help="Largest carrier error searched for, Hz [default: shift/2]."),
+    click.option("--sync", help="Sync word in hex, e.g. 0x9B3C57E1; 'none' for raw mode (bits per burst)."),
+    click.option("--sync-bits", type=int, help="Bits of the sync word that are sent [default: 32]."),
+    click.option("--sync-tolerance", type=int, help="Bit errors accepted in the sync word [default: 3]."),
+    click.option("--length", help="Payload bytes (1–4096), or prefix8: the first byte is the length [default: 24]."),
+    click.option("--crc", help="CRC catalogue name, e.g. CRC-16/IBM-3740, or none [default: CRC-16/IBM-3740]."),
+]
+
+
+def link_options(fn: Callable) -> Callable:
+    """Add the link-description options to a command."""
+    for opt in reversed(_LINK_OPTIONS):
+        fn = opt(fn)
+    return fn
+
+
+def link_from_options(kw: dict[str, Any]) -> iqdemod.Link:
+    """Build the link from --link and the override flags; pops them from `kw`."""
+    path = kw.pop("link", None)
+    overrides = {name: kw.pop(name, None) for name in list(iqdemod.link.OVERRIDES)}
+    return iqdemod.load_link(path, **overrides)
+
+
+def say(message: str) -> None:
+    """A line for people, on stderr (stdout is for results)."""
+    click.echo(message, err=True)
+
+
+def warn(message: str) -> None:
+    click.echo(f"warning: {message}", err=True)
+
+
+@contextlib.contextmanager
+def open_output(path: Path | None, *, mode: str = "w") -> Iterator[TextIO]:
+    """stdout, or `path` written atomically (the old file stays if anything fails)."""
+    if path is None:
+        yield click.get_text_stream("stdout")
+        return
+    with atomic_writer(path, mode) as fh:
+        yield fh

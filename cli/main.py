@@ -1,0 +1,166 @@
+"""The command line: parse options, call one library function per command, write results.
+
+No signal processing lives here. Errors the library raises on purpose
+(:class:`iqdemod.IqdemodError`) become a one-line ``Error: …`` on stderr and
+exit status 1; usage errors are click's, status 2. ``--debug`` shows the
+traceback instead.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import functools
+import json
+import sys
+import warnings
+from pathlib import Path
+from typing import Any, Callable, Iterator
+
+import click
+
+import iqdemod
+from iqdemod.errors import IqdemodError
+
+from ._common import EXIT_FAILED, link_options, link_from_options, open_output, say, warn
+
+__all__ = ["main"]
+
+
+class _Group(click.Group):
+    """Turns the library's errors into one line and an exit status."""
+
+    def invoke(self, ctx: click.Context) -> Any:
+        debug = bool(ctx.params.get("debug"))
+        try:
+            with _warnings_to_stderr():
+                return super().invoke(ctx)
+        except IqdemodError as exc:
+            if debug:
+                raise
+            click.echo(f"Error: {exc}", err=True)
+            ctx.exit(EXIT_FAILED)
+        except OSError as exc:
+            if debug:
+                raise
+            where = f"{exc.filename}: " if getattr(exc, "filename", None) else ""
+            click.echo(f"Error: {where}{exc.strerror or exc}", err=True)
+            ctx.exit(EXIT_FAILED)
+        except KeyboardInterrupt:
+            if debug:
+                raise
+            click.echo("Error: interrupted", err=True)
+            ctx.exit(130)
+
+
+@contextlib.contextmanager
+def _warnings_to_stderr() -> Iterator[None]:
+    def show(message, category, filename, lineno, file=None, line=None):
+        warn(str(message))
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("always", iqdemod.capture.CaptureWarning)
+        old = warnings.showwarning
+        warnings.showwarning = show
+        try:
+            yield
+        finally:
+            warnings.showwarning = old
+
+
+@click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"], "max_content_width": 100})
+@click.version_option(iqdemod.__version__, prog_name="iqdemod")
+@click.option("--debug", is_flag=True, help="Show the full traceback when something fails.")
+def main(debug: bool) -> None:
+    """Find, demodulate and check binary-FSK telemetry bursts in IQ recordings.
+
+    No radio framework needed. Reads raw IQ (named by SigMF datatype), SigMF
+    recordings and two-channel WAV/FLAC, in bounded memory. Exit status: 0
+    success, 1 the input could not be processed, 2 a usage error.
+    """
+
+
+@main.command()
+@click.argument("captures", nargs=-1, required=True, type=click.Path(path_type=Path))
+@link_options
+@click.option("-o", "--output", type=click.Path(dir_okay=False, path_type=Path),
+              help="Write the JSON Lines here (atomically) instead of stdout.")
+@click.option("--only-good", is_flag=True, help="Write only frames whose CRC is good.")
+@click.option("--block", "block_samples", type=click.IntRange(min=1024), default=iqdemod.capture.DEFAULT_BLOCK_SAMPLES,
+              show_default=True, help="Samples read per block (results do not depend on it).")
+@click.option("-q", "--quiet", is_flag=True, help="No progress bar and no summary line.")
+def decode(captures, output, only_good, block_samples, quiet, **link_kw) -> None:
+    """Decode the frames in one or more captures and write them as JSON Lines.
+
+    One object per frame whose sync word was found, good CRC or bad: capture,
+    t_s, sample, burst, length, payload_hex, crc_ok, sync_errors,
+    freq_error_hz, ebn0_db. Without a sync word (raw mode): one object per
+    burst with bits_hex and n_bits instead.
+    """
+    link = link_from_options(link_kw)
+    with open_output(output) as out:
+        for path in captures:
+            summary = iqdemod.receiver.DecodeSummary()
+            for frame in iqdemod.decode(path, link, block_samples=block_samples, progress=not quiet,
+                                        summary=summary):
+                if only_good and not frame.crc_ok and not frame.raw:
+                    continue
+                out.write(json.dumps(frame.as_record()) + "\n")
+                out.flush()
+            if not quiet:
+                say(summary.line(Path(path).name))
+
+
+@main.command()
+@click.argument("output", type=click.Path(dir_okay=False, path_type=Path))
+@link_options
+@click.option("--ebn0", "ebn0", multiple=True, required=True, metavar="DB",
+              help="Eb/N0 of the bursts, dB; repeat or give a comma list for bursts of different strength, used in turn.")
+@click.option("--frames", "n_frames", type=click.IntRange(min=1), required=True, help="Number of frames (one burst each).")
+@click.option("--freq-error", type=float, default=0.0, show_default=True, help="Transmitter carrier error, Hz.")
+@click.option("--clock-ppm", type=float, default=0.0, show_default=True, help="Transmitter symbol-clock error, ppm.")
+@click.option("--gaussian", "gaussian_bt", type=click.FloatRange(min=0, min_open=True), default=None,
+              help="Gaussian frequency pulse with this BT (rectangular when absent).")
+@click.option("--gap", type=(click.FloatRange(min=0), click.FloatRange(min=0)), default=(0.01, 0.03), show_default=True,
+              metavar="LOW HIGH", help="Quiet time between bursts, seconds (uniform between LOW and HIGH).")
+@click.option("--noise-rms", type=click.FloatRange(min=0, min_open=True), default=0.05, show_default=True,
+              help="Total rms of the complex noise per sample, full scale = 1.")
+@click.option("--centre", "centre_hz", type=click.FloatRange(min=0, min_open=True), default=869_525_000.0,
+              show_default=True, help="Capture centre frequency written to the metadata, Hz.")
+@click.option("--seed", type=int, default=1, show_default=True, help="Random seed (the same seed gives the same file).")
+@click.option("--start-time", default=None, help="SigMF core:datetime to record (RFC 3339, UTC); default now.")
+@click.option("-q", "--quiet", is_flag=True, help="No progress bar and no summary line.")
+def synth(output, ebn0, n_frames, freq_error, clock_ppm, gaussian_bt, gap, noise_rms, centre_hz, seed, start_time,
+          quiet, **link_kw) -> None:
+    """Write a synthetic capture of FSK bursts in white noise (SigMF pair + truth JSON).
+
+    OUTPUT is a base name: OUTPUT.sigmf-meta, OUTPUT.sigmf-data and
+    OUTPUT.truth.json are written. Eb/N0 = A²·(fs/Rb)/σ², with σ² the total
+    complex noise variance per sample. Defaults: cf32_le at 1.024 MS/s.
+    """
+    from iqdemod.synth import SynthConfig, synthesize
+
+    if link_kw.get("rate") is None and not link_kw.get("link"):
+        link_kw["rate"] = 1_024_000
+    link = link_from_options(link_kw)
+    if link.capture.sample_rate is None:
+        link = link.replace(rate=1_024_000)
+    try:
+        values = tuple(float(v) for item in ebn0 for v in str(item).split(",") if v.strip())
+    except ValueError:
+        raise click.BadParameter(f"{ebn0!r}: expected numbers in dB", param_hint="--ebn0") from None
+    cfg = SynthConfig(
+        link=link, ebn0_db=values, n_frames=n_frames, freq_error_hz=freq_error, clock_ppm=clock_ppm,
+        gaussian_bt=gaussian_bt, gap_s=gap, noise_rms=noise_rms, centre_hz=centre_hz, seed=seed,
+        start_time=start_time,
+    )
+    truth = synthesize(output, cfg, progress=not quiet)
+    if not quiet:
+        meta, data, truth_path = iqdemod.synth.sigmf_paths(output)
+        say(f"wrote {meta}, {data} ({truth['n_samples'] / cfg.sample_rate_hz:.2f} s, {len(truth['frames'])} frames) "
+            f"and {truth_path}")
+
+
+from . import more_commands  # noqa: E402,F401  (registers health, curves, batch, survey)
+
+if __name__ == "__main__":  # pragma: no cover
+    main()

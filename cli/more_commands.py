@@ -1,0 +1,1 @@
+"""Commands beyond decode and synth."""

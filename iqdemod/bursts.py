@@ -1,0 +1,257 @@
+"""Finding bursts: an energy detector with a tracked noise floor and hysteresis.
+
+The decimated stream is cut into *detector frames* of ``frame_len`` samples
+(about 16 symbols). Each frame's statistic is the power in the signal's band
+(both tones plus the carrier pull-in), taken from an FFT of the frame, so that
+noise outside that band does not dilute a weak burst. The noise floor is the
+mean statistic of the quiet frames, updated once per *floor block* of
+``BLOCK_FRAMES`` frames. A burst starts when a frame exceeds ``ON_RATIO`` × the
+floor and ends after ``HANG_FRAMES`` frames in a row below ``OFF_RATIO`` × the
+floor (hysteresis, as in a classic squelch).
+
+Because frames and floor blocks sit on a fixed grid of the global sample index,
+the bursts found do not depend on how the input was cut into blocks. A burst
+is handed out whole, with ``PRE_FRAMES`` frames of margin before its start and
+the hang-over frames after it. A burst longer than ``max_frames`` is handed
+out in pieces that overlap by ``overlap_frames``, so memory stays bounded.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+__all__ = ["DetectorPlan", "DetectorState", "RawBurst", "plan_detector", "detect", "flush"]
+
+ON_RATIO = 1.6
+OFF_RATIO = 1.25
+HANG_FRAMES = 2
+PRE_FRAMES = 2
+BLOCK_FRAMES = 32
+FRAME_SYMBOLS = 16
+
+
+@dataclass(frozen=True, eq=False)
+class DetectorPlan:
+    """Fixed settings of the detector.
+
+    Attributes
+    ----------
+    frame_len : int
+        Samples per detector frame (a power of two).
+    band_bins : numpy.ndarray
+        Boolean mask of the FFT bins inside the signal's band.
+    max_frames : int
+        Longest burst piece handed out, in frames.
+    overlap_frames : int
+        Overlap between the pieces of a long burst, in frames.
+    """
+
+    frame_len: int
+    band_bins: np.ndarray
+    max_frames: int
+    overlap_frames: int
+
+    def initial_state(self) -> "DetectorState":
+        return DetectorState()
+
+
+@dataclass(frozen=True, eq=False)
+class DetectorState:
+    """What the detector carries between blocks (see :func:`detect`)."""
+
+    pending: np.ndarray = field(default_factory=lambda: np.zeros(0, np.complex64))
+    pending_start: int = 0  # global index of pending[0]
+    next_frame: int = 0
+    floor: float | None = None
+    in_burst: bool = False
+    burst_start: int = 0  # global sample index where the current piece's buffer starts
+    core_start: int = 0  # global index of the first frame above the on-threshold
+    quiet: int = 0  # frames in a row below the off-threshold
+    n_bursts: int = 0
+    piece: int = 0  # piece number within a long burst
+
+
+@dataclass(frozen=True, eq=False)
+class RawBurst:
+    """A burst's samples at the decimated rate.
+
+    Attributes
+    ----------
+    index : int
+        Burst number in the capture, from 0.
+    start : int
+        Global decimated-sample index of ``samples[0]``.
+    samples : numpy.ndarray
+        complex64 samples, margins included.
+    core : tuple of int
+        (first, end) sample positions within `samples` where the detector saw
+        the signal.
+    piece : int
+        0 for a whole burst or the first piece of a long one.
+    """
+
+    index: int
+    start: int
+    samples: np.ndarray
+    core: tuple[int, int]
+    piece: int = 0
+
+
+def plan_detector(rate_hz: float, *, baud: float, band_hz: float, max_symbols: int, overlap_symbols: int) -> DetectorPlan:
+    """Detector settings for a decimated stream at `rate_hz`.
+
+    Parameters
+    ----------
+    band_hz : float
+        Half-width of the signal band the statistic sums over.
+    max_symbols, overlap_symbols : int
+        Longest burst piece and the overlap between pieces, in symbols.
+    """
+    sps = rate_hz / baud
+    frame_len = int(2 ** round(np.log2(max(32.0, FRAME_SYMBOLS * sps))))
+    freqs = np.fft.fftfreq(frame_len, 1.0 / rate_hz)
+    band = np.abs(freqs) <= band_hz
+    if band.sum() < 2:
+        band = np.abs(freqs) <= 2 * rate_hz / frame_len
+    frame_sym = frame_len / sps
+    return DetectorPlan(
+        frame_len=frame_len,
+        band_bins=band,
+        max_frames=max(8, int(np.ceil(max_symbols / frame_sym))),
+        overlap_frames=int(np.ceil(overlap_symbols / frame_sym)) + PRE_FRAMES,
+    )
+
+
+def _frame_power(x: np.ndarray, plan: DetectorPlan) -> np.ndarray:
+    frames = x.reshape(-1, plan.frame_len)
+    spec = np.fft.fft(frames, axis=1)
+    power = spec.real**2 + spec.imag**2
+    return power[:, plan.band_bins].mean(axis=1) / plan.frame_len
+
+
+def _initial_floor(power: np.ndarray) -> float:
+    # Robust to bursts in the first block: average the frames near the low quantile.
+    low = np.quantile(power, 0.2)
+    quiet = power[power <= 1.5 * low]
+    return float(quiet.mean()) if quiet.size else float(low)
+
+
+def _run_block(power: np.ndarray, first_frame: int, st: dict, plan: DetectorPlan, out: list) -> None:
+    """Hysteresis over one floor block; appends burst tuples (see :func:`_emit`) to `out`."""
+    floor = st["floor"]
+    on, off = ON_RATIO * floor, OFF_RATIO * floor
+    fl = plan.frame_len
+    quiet_powers = []
+    for i, p in enumerate(power):
+        f = first_frame + i
+        if not st["in_burst"]:
+            if p > on:
+                st.update(in_burst=True, core_start=f * fl, quiet=0, piece=0)
+                st["burst_start"] = max(0, (f - PRE_FRAMES) * fl)
+            else:
+                quiet_powers.append(p)
+            continue
+        st["quiet"] = st["quiet"] + 1 if p < off else 0
+        if st["quiet"] >= HANG_FRAMES:
+            end = (f + 1) * fl
+            out.append((st["burst_start"], st["core_start"], end - HANG_FRAMES * fl, end, st["piece"], True))
+            st.update(in_burst=False, quiet=0)
+        elif (f + 1) * fl - st["burst_start"] >= plan.max_frames * fl:
+            end = (f + 1) * fl
+            out.append((st["burst_start"], st["core_start"], end, end, st["piece"], False))
+            restart = end - plan.overlap_frames * fl
+            st.update(burst_start=restart, core_start=restart, piece=st["piece"] + 1)
+    if len(quiet_powers) >= 4:
+        st["floor"] = 0.7 * floor + 0.3 * float(np.mean(quiet_powers))
+
+
+def _emit(found, st: dict, pending: np.ndarray, pending_start: int, bursts: list) -> None:
+    """Cut the bursts in `found` out of `pending`; tuples are (start, core0, core1, end, piece, ended)."""
+    for start, core0, core1, end, piece, ended in found:
+        a, b = start - pending_start, min(end - pending_start, len(pending))
+        bursts.append(
+            RawBurst(
+                index=st["n_bursts"],
+                start=start,
+                samples=pending[a:b].copy(),
+                core=(core0 - start, min(core1 - start, b - a)),
+                piece=piece,
+            )
+        )
+        if ended:  # a piece cut for length shares its burst's index with the next piece
+            st["n_bursts"] += 1
+
+
+def _advance(state: DetectorState, y: np.ndarray, plan: DetectorPlan, *, final: bool) -> tuple[list[RawBurst], DetectorState]:
+    pending = np.concatenate([state.pending, np.asarray(y, np.complex64)]) if len(y) else state.pending
+    st = {k: getattr(state, k) for k in ("floor", "in_burst", "burst_start", "core_start", "quiet", "n_bursts", "piece")}
+    fl = plan.frame_len
+    block = BLOCK_FRAMES * fl
+    next_frame = state.next_frame
+    bursts: list[RawBurst] = []
+    while True:
+        a = next_frame * fl - state.pending_start
+        avail = len(pending) - a
+        if avail >= block:
+            n_frames = BLOCK_FRAMES
+        elif final and avail >= fl:
+            n_frames = avail // fl
+        else:
+            break
+        power = _frame_power(pending[a : a + n_frames * fl], plan)
+        if st["floor"] is None:
+            st["floor"] = _initial_floor(power)
+        found: list = []
+        _run_block(power, next_frame, st, plan, found)
+        _emit(found, st, pending, state.pending_start, bursts)
+        next_frame += n_frames
+    if final and st["in_burst"]:
+        end = state.pending_start + len(pending)
+        _emit([(st["burst_start"], st["core_start"], end, end, st["piece"], True)], st, pending, state.pending_start, bursts)
+        st["in_burst"] = False
+    # keep what a burst may still need: its start, or the pre-margin before the next frame
+    keep = st["burst_start"] if st["in_burst"] else max(0, (next_frame - PRE_FRAMES) * fl)
+    keep = max(keep, state.pending_start)
+    pending = pending[keep - state.pending_start :].copy()
+    return bursts, DetectorState(
+        pending=pending,
+        pending_start=keep,
+        next_frame=next_frame,
+        floor=st["floor"],
+        in_burst=st["in_burst"],
+        burst_start=st["burst_start"],
+        core_start=st["core_start"],
+        quiet=st["quiet"],
+        n_bursts=st["n_bursts"],
+        piece=st["piece"],
+    )
+
+
+def detect(y: np.ndarray, plan: DetectorPlan, state: DetectorState) -> tuple[list[RawBurst], DetectorState]:
+    """Feed decimated samples; return the bursts completed so far and the new state.
+
+    Parameters
+    ----------
+    y : numpy.ndarray
+        complex64 decimated samples following those already fed.
+    plan : DetectorPlan
+    state : DetectorState
+
+    Returns
+    -------
+    bursts : list of RawBurst
+    state : DetectorState
+    """
+    return _advance(state, y, plan, final=False)
+
+
+def flush(plan: DetectorPlan, state: DetectorState) -> tuple[list[RawBurst], DetectorState]:
+    """End of stream: process the last partial block and hand out an open burst."""
+    return _advance(state, np.zeros(0, np.complex64), plan, final=True)
+
+
+def noise_floor(state: DetectorState) -> float | None:
+    """The current noise-floor statistic (mean band power per sample), or None."""
+    return state.floor

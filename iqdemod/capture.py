@@ -1,0 +1,567 @@
+"""Reading captures in bounded memory: raw IQ, SigMF recordings, two-channel WAV/FLAC.
+
+Every reader hands out the samples as a generator of complex64 blocks (I + jQ,
+scaled to ±1 full scale), in the manner of soundfile's ``blocks``: a fixed
+block length, an explicit `overlap`, a short last block. A :class:`Capture` is
+a context manager that owns the file it opened.
+
+Defects are measured on the way, never fatal when they can be tolerated:
+
+- a cut final sample (a file size that is not a whole number of samples) is
+  dropped, with a warning;
+- NaN and Inf samples (float formats) are set to zero and counted;
+- samples at full scale (either component) are counted as clipped.
+
+The SigMF layout follows the SigMF specification v1.2: ``NAME.sigmf-meta``
+(JSON with ``global``, ``captures`` and ``annotations``) beside
+``NAME.sigmf-data``.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import re
+import warnings
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Iterator
+
+import numpy as np
+
+from .errors import CaptureError
+
+__all__ = [
+    "Datatype",
+    "parse_datatype",
+    "CaptureInfo",
+    "CaptureStats",
+    "Capture",
+    "open_capture",
+    "CaptureWarning",
+    "DEFAULT_BLOCK_SAMPLES",
+]
+
+DEFAULT_BLOCK_SAMPLES = 1 << 20
+_SIGMF_META = ".sigmf-meta"
+_SIGMF_DATA = ".sigmf-data"
+_AUDIO_SUFFIXES = {".wav", ".flac", ".wave"}
+
+
+class CaptureWarning(UserWarning):
+    """A tolerated defect in a capture (cut sample, NaN/Inf, clipping)."""
+
+
+@dataclass(frozen=True)
+class Datatype:
+    """A complex SigMF datatype such as ``cu8`` or ``ci16_le``.
+
+    Attributes
+    ----------
+    name : str
+        The SigMF ``core:datatype`` string.
+    numpy : str
+        The numpy dtype of one component.
+    scale : float
+        Multiplier that brings a component to ±1 full scale.
+    offset : float
+        Subtracted before scaling (127.5 for ``u8``).
+    full_scale : tuple of float
+        The lowest and highest raw component values (clipping) or None (float).
+    """
+
+    name: str
+    numpy: str
+    scale: float
+    offset: float
+    full_scale: tuple[float, float] | None
+
+    @property
+    def sample_bytes(self) -> int:
+        return 2 * np.dtype(self.numpy).itemsize
+
+    @property
+    def is_float(self) -> bool:
+        return self.full_scale is None
+
+
+_DATATYPE = re.compile(r"^(?P<kind>[cr])(?P<fmt>[fiu])(?P<bits>8|16|32|64)(?:_(?P<end>le|be))?$")
+
+
+def parse_datatype(name: str) -> Datatype:
+    """Parse a SigMF ``core:datatype`` string for complex samples.
+
+    Raises
+    ------
+    CaptureError
+        For a malformed string, real (``r…``) samples, or an unsupported width.
+
+    Examples
+    --------
+    >>> parse_datatype("cu8").offset
+    127.5
+    >>> parse_datatype("ci16_le").numpy
+    '<i2'
+    """
+    text = str(name).strip().lower()
+    m = _DATATYPE.match(text)
+    expected = "expected a SigMF complex datatype such as cu8, ci8, ci16_le, ci16_be, cf32_le, cf64_le"
+    if not m:
+        raise CaptureError(f"datatype {name!r}: unknown ({expected})")
+    kind, fmt, bits, end = m["kind"], m["fmt"], int(m["bits"]), m["end"]
+    if kind == "r":
+        raise CaptureError(f"datatype {name!r}: real samples; iqdemod needs complex IQ ({expected})")
+    if fmt == "f" and bits not in (32, 64) or fmt != "f" and bits == 64:
+        raise CaptureError(f"datatype {name!r}: unsupported width ({expected})")
+    if bits == 8 and end is not None:
+        raise CaptureError(f"datatype {name!r}: 8-bit types take no _le/_be suffix ({expected})")
+    if bits > 8 and end is None:
+        raise CaptureError(f"datatype {name!r}: needs _le or _be ({expected})")
+    order = "|" if bits == 8 else ("<" if end == "le" else ">")
+    np_name = f"{order}{fmt}{bits // 8}"
+    if fmt == "f":
+        return Datatype(text, np_name, 1.0, 0.0, None)
+    if fmt == "i":
+        top = float(2 ** (bits - 1))
+        return Datatype(text, np_name, 1.0 / top, 0.0, (-top, top - 1))
+    half = (2.0**bits - 1) / 2
+    return Datatype(text, np_name, 1.0 / half, half, (0.0, 2.0**bits - 1))
+
+
+@dataclass(frozen=True)
+class CaptureInfo:
+    """What is known about a capture before reading its samples.
+
+    Attributes
+    ----------
+    path : str
+        The name the user gave.
+    data_path : str
+        The file that holds the samples.
+    kind : str
+        ``"raw"``, ``"sigmf"`` or ``"audio"``.
+    datatype : str
+        SigMF datatype (for audio: the soundfile subtype, e.g. ``PCM_16``).
+    sample_rate_hz : float
+    n_samples : int
+        Complex samples that will be read (a cut final sample excluded).
+    centre_hz : float or None
+        Capture centre frequency (SigMF ``core:frequency``).
+    start_time : str or None
+        SigMF ``core:datetime`` of the first capture segment.
+    meta_path : str or None
+    """
+
+    path: str
+    data_path: str
+    kind: str
+    datatype: str
+    sample_rate_hz: float
+    n_samples: int
+    centre_hz: float | None = None
+    start_time: str | None = None
+    meta_path: str | None = None
+    header_bytes: int = 0
+    cut_bytes: int = 0
+
+    @property
+    def duration_s(self) -> float:
+        return self.n_samples / self.sample_rate_hz
+
+
+@dataclass(frozen=True)
+class CaptureStats:
+    """Defects counted while reading (complete once all blocks were read)."""
+
+    samples_read: int = 0
+    nonfinite: int = 0
+    clipped: int = 0
+    cut_bytes: int = 0
+
+    @property
+    def clipped_fraction(self) -> float:
+        return self.clipped / self.samples_read if self.samples_read else 0.0
+
+    def warnings(self) -> list[str]:
+        """One plain sentence per defect."""
+        out = []
+        if self.cut_bytes:
+            out.append(f"cut final sample: {self.cut_bytes} trailing byte(s) dropped")
+        if self.nonfinite:
+            out.append(f"{self.nonfinite} NaN/Inf sample(s) set to zero")
+        if self.clipped:
+            out.append(f"{self.clipped_fraction:.2%} of samples clipped at full scale")
+        return out
+
+
+class _Converter:
+    """Raw bytes to complex64, counting clipping and non-finite values."""
+
+    def __init__(self, dt: Datatype):
+        self.dt = dt
+        self._lut = None
+        if dt.numpy in ("|u1", "|i1"):
+            raw = np.arange(256, dtype=np.uint8).view(dt.numpy)
+            self._lut = ((raw.astype(np.float32) - np.float32(dt.offset)) * np.float32(dt.scale)).astype(np.float32)
+
+    def __call__(self, buf: np.ndarray) -> tuple[np.ndarray, int, int]:
+        """Convert components `buf` (raw dtype); return (complex64, nonfinite, clipped)."""
+        dt = self.dt
+        if dt.is_float:
+            with np.errstate(over="ignore", invalid="ignore"):  # out-of-range float64 becomes inf, then 0
+                comp = buf.astype(np.float32, copy=True)
+            finite = np.isfinite(comp)
+            bad = 0
+            if not finite.all():
+                bad_pairs = ~finite.reshape(-1, 2).all(axis=1)
+                bad = int(bad_pairs.sum())
+                comp.reshape(-1, 2)[bad_pairs] = 0.0
+            clipped = int((np.abs(comp).reshape(-1, 2) >= 1.0).any(axis=1).sum())
+            return comp.view(np.complex64), bad, clipped
+        lo, hi = dt.full_scale
+        pairs = buf.reshape(-1, 2)
+        clipped = int(((pairs == lo) | (pairs == hi)).any(axis=1).sum())
+        if self._lut is not None:
+            comp = self._lut[buf.view(np.uint8)]
+        else:
+            comp = buf.astype(np.float32)
+            if dt.offset:
+                comp -= np.float32(dt.offset)
+            comp *= np.float32(dt.scale)
+        return comp.view(np.complex64), 0, clipped
+
+
+class Capture:
+    """An open capture: its :class:`CaptureInfo` and a generator of sample blocks.
+
+    Use :func:`open_capture` to make one. Closing it closes the file it opened.
+    """
+
+    def __init__(self, info: CaptureInfo, *, _datatype: Datatype | None = None):
+        self.info = info
+        self._dt = _datatype
+        self._stats = CaptureStats(cut_bytes=info.cut_bytes)
+        self._fh = None
+        self._sf = None
+        self._warned_cut = False
+
+    # -- context management ------------------------------------------------
+    def __enter__(self) -> "Capture":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+    def close(self) -> None:
+        for handle in (self._fh, self._sf):
+            if handle is not None:
+                handle.close()
+        self._fh = self._sf = None
+
+    @property
+    def stats(self) -> CaptureStats:
+        """Defects counted so far; complete after the last block."""
+        return self._stats
+
+    def blocks(self, block_samples: int = DEFAULT_BLOCK_SAMPLES, *, overlap: int = 0) -> Iterator[np.ndarray]:
+        """Read the capture from its start in blocks of complex64 samples.
+
+        Parameters
+        ----------
+        block_samples : int
+            Samples per block (the last block may be shorter).
+        overlap : int
+            Samples each block repeats from the end of the one before.
+
+        Yields
+        ------
+        numpy.ndarray
+            complex64 blocks, ±1 full scale, NaN/Inf already zeroed.
+        """
+        block_samples = int(block_samples)
+        overlap = int(overlap)
+        if block_samples < 1 or not 0 <= overlap < block_samples:
+            raise ValueError(f"block_samples {block_samples}, overlap {overlap}: need block > overlap >= 0")
+        self._stats = CaptureStats(cut_bytes=self.info.cut_bytes)
+        if self.info.cut_bytes and not self._warned_cut:
+            warnings.warn(
+                f"{self.info.path}: cut final sample, {self.info.cut_bytes} trailing byte(s) dropped",
+                CaptureWarning,
+                stacklevel=2,
+            )
+            self._warned_cut = True
+        source = self._audio_blocks if self.info.kind == "audio" else self._raw_blocks
+        step = block_samples - overlap
+        tail = np.zeros(0, np.complex64)
+        for fresh in source(step):
+            block = np.concatenate([tail, fresh]) if overlap and tail.size else fresh
+            yield block
+            if overlap:
+                tail = block[-overlap:].copy()
+        if self._stats.nonfinite:
+            warnings.warn(
+                f"{self.info.path}: {self._stats.nonfinite} NaN/Inf sample(s) set to zero",
+                CaptureWarning,
+                stacklevel=2,
+            )
+        if self._stats.clipped:
+            warnings.warn(
+                f"{self.info.path}: {self._stats.clipped_fraction:.3%} of samples clipped at full scale",
+                CaptureWarning,
+                stacklevel=2,
+            )
+
+    def _count(self, n: int, bad: int, clipped: int) -> None:
+        s = self._stats
+        self._stats = CaptureStats(s.samples_read + n, s.nonfinite + bad, s.clipped + clipped, s.cut_bytes)
+
+    def _raw_blocks(self, step: int) -> Iterator[np.ndarray]:
+        dt = self._dt
+        convert = _Converter(dt)
+        remaining = self.info.n_samples
+        if self._fh is None:
+            try:
+                self._fh = open(self.info.data_path, "rb")
+            except OSError as exc:
+                raise CaptureError(f"{self.info.data_path}: cannot open ({exc.strerror})") from None
+        self._fh.seek(self.info.header_bytes)
+        buf = bytearray(step * dt.sample_bytes)
+        while remaining > 0:
+            n = min(step, remaining)
+            view = memoryview(buf)[: n * dt.sample_bytes]
+            got = self._fh.readinto(view)
+            if got != len(view):
+                raise CaptureError(
+                    f"{self.info.data_path}: file shrank while reading (got {got} of {len(view)} bytes)"
+                )
+            raw = np.frombuffer(buf, dtype=dt.numpy, count=2 * n)
+            samples, bad, clipped = convert(raw)
+            self._count(n, bad, clipped)
+            remaining -= n
+            yield samples
+            del raw, view
+
+    def _audio_blocks(self, step: int) -> Iterator[np.ndarray]:
+        import soundfile as sf
+
+        if self._sf is None:
+            try:
+                self._sf = sf.SoundFile(self.info.data_path)
+            except Exception as exc:  # soundfile raises its own LibsndfileError / RuntimeError
+                raise CaptureError(f"{self.info.data_path}: cannot read audio ({exc})") from None
+        self._sf.seek(0)
+        bits = _audio_bits(self.info.datatype)
+        top = np.float32(1.0 - 2.0 ** -(bits - 1)) if bits else np.float32(1.0)
+        while True:
+            data = self._sf.read(step, dtype="float32", always_2d=True)
+            if data.shape[0] == 0:
+                break
+            comp = np.ascontiguousarray(data)
+            finite = np.isfinite(comp).all(axis=1)
+            bad = int((~finite).sum())
+            if bad:
+                comp[~finite] = 0.0
+            clipped = int((np.abs(comp) >= top).any(axis=1).sum())
+            self._count(comp.shape[0], bad, clipped)
+            yield comp.view(np.complex64).reshape(-1)
+
+
+def _audio_bits(subtype: str) -> int:
+    m = re.search(r"(\d+)", subtype or "")
+    return int(m.group(1)) if m and subtype.upper().startswith(("PCM", "DPCM")) else 0
+
+
+def _file_size(path: Path) -> int:
+    try:
+        return path.stat().st_size
+    except OSError as exc:
+        raise CaptureError(f"{path}: cannot read ({exc.strerror})") from None
+
+
+def _raw_info(path: Path, data_path: Path, dt: Datatype, rate: float, *, kind: str, header: int = 0, **extra) -> CaptureInfo:
+    size = _file_size(data_path) - header
+    if size < 0:
+        raise CaptureError(f"{data_path}: shorter than its header_bytes ({header})")
+    n = size // dt.sample_bytes
+    if n == 0:
+        raise CaptureError(f"{data_path}: empty capture (no complete {dt.name} sample)")
+    return CaptureInfo(
+        path=str(path),
+        data_path=str(data_path),
+        kind=kind,
+        datatype=dt.name,
+        sample_rate_hz=rate,
+        n_samples=n,
+        header_bytes=header,
+        cut_bytes=size - n * dt.sample_bytes,
+        **extra,
+    )
+
+
+def _check_rate(rate, where: str) -> float:
+    if isinstance(rate, bool) or not isinstance(rate, (int, float)) or not math.isfinite(rate):
+        raise CaptureError(f"{where}: sample rate {rate!r}: must be a number")
+    if rate <= 0:
+        raise CaptureError(f"{where}: sample rate {rate:g} Hz: must be > 0")
+    return float(rate)
+
+
+def sigmf_pair(path: Path) -> tuple[Path, Path] | None:
+    """(meta, data) paths when `path` names either file of a SigMF pair, else None."""
+    name = path.name
+    for suffix in (_SIGMF_META, _SIGMF_DATA):
+        if name.endswith(suffix):
+            base = path.with_name(name[: -len(suffix)])
+            return base.with_name(base.name + _SIGMF_META), base.with_name(base.name + _SIGMF_DATA)
+    return None
+
+
+def read_sigmf_meta(meta_path: Path) -> dict:
+    """Load and check a ``.sigmf-meta`` file against the SigMF core rules we use.
+
+    Raises
+    ------
+    CaptureError
+        For unreadable JSON, missing required objects or keys, or bad values.
+    """
+    where = str(meta_path)
+    try:
+        text = meta_path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise CaptureError(f"{where}: SigMF metadata file missing") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise CaptureError(f"{where}: cannot read SigMF metadata ({exc.__class__.__name__})") from None
+    try:
+        meta = json.loads(text)
+    except json.JSONDecodeError as exc:
+        raise CaptureError(f"{where}: broken SigMF metadata: {exc.msg} at line {exc.lineno}") from None
+    if not isinstance(meta, dict):
+        raise CaptureError(f"{where}: broken SigMF metadata: top level must be an object")
+    for key in ("global", "captures", "annotations"):
+        if key not in meta:
+            raise CaptureError(f"{where}: broken SigMF metadata: required object {key!r} missing")
+    glob, caps = meta["global"], meta["captures"]
+    if not isinstance(glob, dict):
+        raise CaptureError(f"{where}: broken SigMF metadata: 'global' must be an object")
+    if not isinstance(caps, list) or not all(isinstance(c, dict) for c in caps):
+        raise CaptureError(f"{where}: broken SigMF metadata: 'captures' must be a list of objects")
+    if not isinstance(meta["annotations"], list):
+        raise CaptureError(f"{where}: broken SigMF metadata: 'annotations' must be a list")
+    if "core:datatype" not in glob:
+        raise CaptureError(f"{where}: broken SigMF metadata: global core:datatype missing")
+    if not isinstance(glob["core:datatype"], str):
+        raise CaptureError(f"{where}: core:datatype {glob['core:datatype']!r}: must be a string")
+    channels = glob.get("core:num_channels", 1)
+    if channels != 1:
+        raise CaptureError(f"{where}: core:num_channels {channels!r}: only single-channel recordings are supported")
+    return meta
+
+
+def _open_sigmf(path: Path, meta_path: Path, data_path: Path, sample_rate: float | None) -> Capture:
+    meta = read_sigmf_meta(meta_path)
+    if not data_path.exists():
+        raise CaptureError(f"{data_path}: SigMF data file missing (metadata {meta_path.name} has no data beside it)")
+    if data_path.is_dir():
+        raise CaptureError(f"{data_path}: is a folder, expected a SigMF data file")
+    glob = meta["global"]
+    try:
+        dt = parse_datatype(glob["core:datatype"])
+    except CaptureError as exc:
+        raise CaptureError(f"{meta_path}: {exc}") from None
+    rate = glob.get("core:sample_rate", sample_rate)
+    if rate is None:
+        raise CaptureError(f"{meta_path}: core:sample_rate missing: give the rate (--rate)")
+    rate = _check_rate(rate, str(meta_path))
+    first = meta["captures"][0] if meta["captures"] else {}
+    centre = first.get("core:frequency")
+    if centre is not None and (isinstance(centre, bool) or not isinstance(centre, (int, float))):
+        raise CaptureError(f"{meta_path}: core:frequency {centre!r}: must be a number")
+    start = first.get("core:datetime")
+    header = first.get("core:header_bytes", 0)
+    if not isinstance(header, int) or header < 0:
+        raise CaptureError(f"{meta_path}: core:header_bytes {header!r}: must be a whole number >= 0")
+    info = _raw_info(
+        path,
+        data_path,
+        dt,
+        rate,
+        kind="sigmf",
+        header=header,
+        centre_hz=None if centre is None else float(centre),
+        start_time=start if isinstance(start, str) else None,
+        meta_path=str(meta_path),
+    )
+    return Capture(info, _datatype=dt)
+
+
+def _open_audio(path: Path) -> Capture:
+    import soundfile as sf
+
+    try:
+        meta = sf.info(str(path))
+    except Exception as exc:  # soundfile's own error types differ between versions
+        raise CaptureError(f"{path}: not a readable WAV/FLAC file ({str(exc).splitlines()[0]})") from None
+    if meta.channels != 2:
+        raise CaptureError(f"{path}: {meta.channels} channel(s): expected 2 (I left, Q right)")
+    if meta.frames <= 0:
+        raise CaptureError(f"{path}: empty capture (no samples)")
+    info = CaptureInfo(
+        path=str(path),
+        data_path=str(path),
+        kind="audio",
+        datatype=meta.subtype,
+        sample_rate_hz=float(meta.samplerate),
+        n_samples=int(meta.frames),
+    )
+    return Capture(info)
+
+
+def open_capture(path: str | os.PathLike, *, datatype: str | None = None, sample_rate: float | None = None) -> Capture:
+    """Open a capture for block reading.
+
+    Parameters
+    ----------
+    path : str or PathLike
+        A SigMF ``.sigmf-meta`` or ``.sigmf-data`` file (either names the pair),
+        a ``.wav``/``.flac`` file with I in the left channel and Q in the right,
+        or a raw file of interleaved IQ.
+    datatype : str, optional
+        SigMF datatype of a raw file (required for raw files).
+    sample_rate : float, optional
+        Samples per second of a raw file (required for raw files).
+
+    Returns
+    -------
+    Capture
+
+    Raises
+    ------
+    CaptureError
+        For a missing file, a folder, an empty file, an unknown datatype, broken
+        SigMF metadata or a missing half of a pair, or audio without 2 channels.
+    """
+    p = Path(path)
+    pair = sigmf_pair(p)
+    if pair is not None:
+        meta_path, data_path = pair
+        if not meta_path.exists() and not data_path.exists():
+            raise CaptureError(f"{p}: no such file")
+        if not meta_path.exists():
+            raise CaptureError(f"{meta_path}: SigMF metadata file missing (data {data_path.name} has no metadata)")
+        if meta_path.is_dir():
+            raise CaptureError(f"{meta_path}: is a folder, expected a SigMF metadata file")
+        return _open_sigmf(p, meta_path, data_path, sample_rate)
+    if not p.exists():
+        raise CaptureError(f"{p}: no such file")
+    if p.is_dir():
+        raise CaptureError(f"{p}: is a folder, expected a capture file")
+    if p.suffix.lower() in _AUDIO_SUFFIXES:
+        return _open_audio(p)
+    if datatype is None:
+        raise CaptureError(f"{p}: raw capture without metadata: give its datatype (--datatype, e.g. cu8)")
+    if sample_rate is None:
+        raise CaptureError(f"{p}: raw capture without metadata: give its sample rate (--rate)")
+    dt = parse_datatype(datatype)
+    rate = _check_rate(sample_rate, str(p))
+    return Capture(_raw_info(p, p, dt, rate, kind="raw"), _datatype=dt)

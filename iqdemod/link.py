@@ -1,0 +1,436 @@
+"""The link description: what is on the air and how frames are laid out.
+
+A link comes from a TOML *link profile* and/or keyword overrides (the command
+line's flags). The profile has three tables::
+
+    [capture]                 # only needed for raw files without metadata
+    datatype = "cu8"
+    sample_rate = 1024000
+    [signal]
+    offset_hz = 137000        # signal centre relative to the capture centre
+    # frequency_hz = 434057000  # or absolute, when the capture centre is known
+    baud = 9600
+    shift_hz = 9600           # upper tone minus lower tone; bit 1 = upper tone
+    invert = false            # true: bit 1 = lower tone
+    [frame]
+    sync_word = "0x9B3C57E1"
+    sync_bits = 32
+    sync_tolerance = 3
+    length = 24               # payload bytes, or "prefix8"
+    crc = "CRC-16/IBM-3740"
+
+Everything here is validated when it is built (``__post_init__``); checks that
+need the capture's sample rate are in :meth:`Link.check_rate`.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Mapping
+
+from .crc import crc_spec
+from .errors import LinkError
+
+__all__ = ["CaptureFormat", "SignalSpec", "FrameSpec", "Link", "load_link", "link_to_toml"]
+
+MAX_LENGTH_BYTES = 4096
+MAX_SYNC_BITS = 64
+
+
+def _number(name: str, value: Any) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise LinkError(f"{name} {value!r}: must be a number")
+    if not math.isfinite(value):
+        raise LinkError(f"{name} {value!r}: must be finite")
+    return float(value)
+
+
+def _integer(name: str, value: Any) -> int:
+    if isinstance(value, bool) or not isinstance(value, int):
+        if isinstance(value, float) and value.is_integer():
+            return int(value)
+        raise LinkError(f"{name} {value!r}: must be a whole number")
+    return int(value)
+
+
+@dataclass(frozen=True)
+class CaptureFormat:
+    """How to read a raw capture that has no metadata of its own.
+
+    Attributes
+    ----------
+    datatype : str or None
+        A SigMF ``core:datatype`` string such as ``"cu8"`` or ``"cf32_le"``.
+    sample_rate : float or None
+        Samples per second.
+    """
+
+    datatype: str | None = None
+    sample_rate: float | None = None
+
+    def __post_init__(self) -> None:
+        if self.datatype is not None:
+            from .capture import parse_datatype  # late: capture imports link's errors only
+
+            parse_datatype(self.datatype)
+        if self.sample_rate is not None:
+            rate = _number("sample rate", self.sample_rate)
+            if rate <= 0:
+                raise LinkError(f"sample rate {self.sample_rate:g} Hz: must be > 0")
+            object.__setattr__(self, "sample_rate", rate)
+
+
+@dataclass(frozen=True)
+class SignalSpec:
+    """The FSK signal: where it is and how it is keyed.
+
+    Attributes
+    ----------
+    baud : float
+        Symbol rate, symbols per second (one bit per symbol).
+    shift_hz : float
+        Upper tone minus lower tone, Hz (> 0).
+    offset_hz : float or None
+        Signal centre relative to the capture centre, Hz (+ = above).
+    frequency_hz : float or None
+        Absolute signal centre, Hz; used with the capture's centre frequency.
+    invert : bool
+        False: bit 1 is the upper tone (mark). True: bit 1 is the lower tone.
+    max_freq_error_hz : float or None
+        How far the transmitter's carrier may be off, Hz; default shift/2.
+    """
+
+    baud: float
+    shift_hz: float
+    offset_hz: float | None = None
+    frequency_hz: float | None = None
+    invert: bool = False
+    max_freq_error_hz: float | None = None
+
+    def __post_init__(self) -> None:
+        baud = _number("baud", self.baud)
+        if baud <= 0:
+            raise LinkError(f"baud {self.baud:g}: must be > 0")
+        shift = _number("shift", self.shift_hz)
+        if shift <= 0:
+            raise LinkError(f"shift {self.shift_hz:g} Hz: must be > 0 (upper tone minus lower tone)")
+        object.__setattr__(self, "baud", baud)
+        object.__setattr__(self, "shift_hz", shift)
+        if self.offset_hz is not None:
+            object.__setattr__(self, "offset_hz", _number("offset", self.offset_hz))
+        if self.frequency_hz is not None:
+            freq = _number("frequency", self.frequency_hz)
+            if freq <= 0:
+                raise LinkError(f"frequency {freq:g} Hz: must be > 0")
+            object.__setattr__(self, "frequency_hz", freq)
+        if self.offset_hz is not None and self.frequency_hz is not None:
+            raise LinkError("offset_hz and frequency_hz both given: give one of them")
+        if not isinstance(self.invert, bool):
+            raise LinkError(f"invert {self.invert!r}: must be true or false")
+        if self.max_freq_error_hz is not None:
+            err = _number("max_freq_error_hz", self.max_freq_error_hz)
+            if err < 0:
+                raise LinkError(f"max_freq_error_hz {err:g} Hz: must be >= 0")
+            object.__setattr__(self, "max_freq_error_hz", err)
+
+    @property
+    def h(self) -> float:
+        """Modulation index, shift × symbol time."""
+        return self.shift_hz / self.baud
+
+    @property
+    def pull_in_hz(self) -> float:
+        """Largest carrier error the receiver searches for, Hz."""
+        return self.shift_hz / 2 if self.max_freq_error_hz is None else self.max_freq_error_hz
+
+    def offset_for(self, centre_hz: float | None) -> float:
+        """The signal centre relative to a capture centred on `centre_hz`, Hz."""
+        if self.frequency_hz is not None:
+            if centre_hz is None:
+                raise LinkError(
+                    f"frequency {self.frequency_hz:g} Hz given, but the capture has no centre "
+                    "frequency: give offset_hz (--offset) instead"
+                )
+            return self.frequency_hz - centre_hz
+        return 0.0 if self.offset_hz is None else self.offset_hz
+
+
+@dataclass(frozen=True)
+class FrameSpec:
+    """Frame layout: sync word, payload length, CRC. Bits are sent MSB first.
+
+    Attributes
+    ----------
+    sync_word : int or None
+        The sync word; None means raw mode (one record of hard bits per burst).
+    sync_bits : int
+        How many bits of `sync_word` are sent (1–64).
+    sync_tolerance : int
+        Bit errors accepted in the sync word.
+    length : int or "prefix8"
+        Payload bytes (1–4096), or "prefix8": the first byte after the sync word
+        is the payload length, and the CRC covers that byte and the payload.
+    crc : str
+        A name from the CRC catalogue, or "none". Sent MSB first after the payload.
+    """
+
+    sync_word: int | None = None
+    sync_bits: int = 32
+    sync_tolerance: int = 3
+    length: int | str = 24
+    crc: str = "CRC-16/IBM-3740"
+
+    def __post_init__(self) -> None:
+        bits = _integer("sync_bits", self.sync_bits)
+        if not 1 <= bits <= MAX_SYNC_BITS:
+            raise LinkError(f"sync_bits {bits}: must be within 1–{MAX_SYNC_BITS}")
+        object.__setattr__(self, "sync_bits", bits)
+        if self.sync_word is not None:
+            word = _integer("sync_word", self.sync_word)
+            if word < 0 or word >= 1 << bits:
+                raise LinkError(f"sync word {word:#x}: does not fit in {bits} bits")
+            object.__setattr__(self, "sync_word", word)
+        tol = _integer("sync_tolerance", self.sync_tolerance)
+        if not 0 <= tol < bits:
+            raise LinkError(f"sync_tolerance {tol}: must be within 0–{bits - 1}")
+        object.__setattr__(self, "sync_tolerance", tol)
+        if isinstance(self.length, str):
+            if self.length != "prefix8":
+                raise LinkError(f"length {self.length!r}: must be 1–{MAX_LENGTH_BYTES} or \"prefix8\"")
+        else:
+            n = _integer("length", self.length)
+            if not 1 <= n <= MAX_LENGTH_BYTES:
+                raise LinkError(f"length {n}: must be within 1–{MAX_LENGTH_BYTES} bytes or \"prefix8\"")
+            object.__setattr__(self, "length", n)
+        if not isinstance(self.crc, str):
+            raise LinkError(f"crc {self.crc!r}: must be a CRC catalogue name such as \"CRC-16/IBM-3740\", or \"none\"")
+        object.__setattr__(self, "crc", "none" if self.crc.lower() == "none" else crc_spec(self.crc).name)
+
+    @property
+    def raw(self) -> bool:
+        """True when there is no sync word: hard bits per burst, no framing."""
+        return self.sync_word is None
+
+    @property
+    def crc_bits(self) -> int:
+        return 0 if self.crc == "none" else crc_spec(self.crc).width
+
+    @property
+    def max_bits(self) -> int:
+        """The longest frame, sync word included, in bits."""
+        payload = 256 if self.length == "prefix8" else int(self.length)
+        return self.sync_bits + 8 * (payload + (self.length == "prefix8")) + self.crc_bits
+
+
+@dataclass(frozen=True)
+class Link:
+    """A whole link description: capture format, signal and frame layout."""
+
+    signal: SignalSpec
+    frame: FrameSpec = field(default_factory=FrameSpec)
+    capture: CaptureFormat = field(default_factory=CaptureFormat)
+
+    def check_rate(self, sample_rate: float, centre_hz: float | None = None) -> float:
+        """Check the signal fits a capture at `sample_rate`; return its offset, Hz.
+
+        Raises
+        ------
+        LinkError
+            When the baud is not below half the sample rate, or the tones (with
+            the carrier pull-in) fall outside the captured band.
+        """
+        rate = float(sample_rate)
+        if not rate > 0:
+            raise LinkError(f"sample rate {rate:g} Hz: must be > 0")
+        sig = self.signal
+        if sig.baud >= rate / 2:
+            raise LinkError(f"baud {sig.baud:g}: must be below half the sample rate ({rate / 2:g})")
+        offset = sig.offset_for(centre_hz)
+        edge = abs(offset) + sig.shift_hz / 2
+        if edge >= rate / 2:
+            raise LinkError(
+                f"offset {offset:g} Hz with shift {sig.shift_hz:g} Hz: the tones reach {edge:g} Hz "
+                f"from the centre, outside the captured band (±{rate / 2:g} Hz)"
+            )
+        return offset
+
+    def replace(self, **overrides: Any) -> "Link":
+        """A copy with flag-style overrides (see :func:`load_link` for the names)."""
+        return _apply(self._as_tables(), overrides)
+
+    def _as_tables(self) -> dict[str, dict[str, Any]]:
+        return {
+            "capture": dataclasses.asdict(self.capture),
+            "signal": dataclasses.asdict(self.signal),
+            "frame": dataclasses.asdict(self.frame),
+        }
+
+    def as_dict(self) -> dict[str, Any]:
+        """JSON-ready form; the sync word as a hex string."""
+        tables = self._as_tables()
+        word = tables["frame"]["sync_word"]
+        tables["frame"]["sync_word"] = None if word is None else f"{word:#x}"
+        return tables
+
+
+# Flag name -> (table, key). These names are the command line's contract.
+OVERRIDES: dict[str, tuple[str, str]] = {
+    "datatype": ("capture", "datatype"),
+    "rate": ("capture", "sample_rate"),
+    "offset": ("signal", "offset_hz"),
+    "frequency": ("signal", "frequency_hz"),
+    "baud": ("signal", "baud"),
+    "shift": ("signal", "shift_hz"),
+    "invert": ("signal", "invert"),
+    "max_freq_error": ("signal", "max_freq_error_hz"),
+    "sync": ("frame", "sync_word"),
+    "sync_bits": ("frame", "sync_bits"),
+    "sync_tolerance": ("frame", "sync_tolerance"),
+    "length": ("frame", "length"),
+    "crc": ("frame", "crc"),
+}
+
+_KEYS = {
+    "capture": {f.name for f in dataclasses.fields(CaptureFormat)},
+    "signal": {f.name for f in dataclasses.fields(SignalSpec)},
+    "frame": {f.name for f in dataclasses.fields(FrameSpec)},
+}
+
+
+def _parse_sync(value: Any) -> int | None:
+    if value is None or isinstance(value, int) and not isinstance(value, bool):
+        return value
+    if not isinstance(value, str):
+        raise LinkError(f"sync word {value!r}: must be a hex string such as \"0x9B3C57E1\"")
+    text = value.strip().lower()
+    if text in ("", "none"):
+        return None
+    digits = text[2:] if text.startswith("0x") else text
+    try:
+        if not digits or digits.startswith(("+", "-")):
+            raise ValueError
+        return int(digits, 16)
+    except ValueError:
+        raise LinkError(f"sync word {value!r}: not hex (expected e.g. \"0x9B3C57E1\")") from None
+
+
+def _parse_length(value: Any) -> int | str:
+    if isinstance(value, str):
+        text = value.strip().lower()
+        if text == "prefix8":
+            return "prefix8"
+        try:
+            return int(text)
+        except ValueError:
+            raise LinkError(f"length {value!r}: must be 1–{MAX_LENGTH_BYTES} or \"prefix8\"") from None
+    return value
+
+
+def _apply(tables: Mapping[str, Mapping[str, Any]], overrides: Mapping[str, Any]) -> Link:
+    merged = {name: dict(tables.get(name, {})) for name in _KEYS}
+    for flag, value in overrides.items():
+        if value is None:
+            continue
+        if flag not in OVERRIDES:
+            raise LinkError(f"unknown link setting {flag!r}: expected one of {', '.join(OVERRIDES)}")
+        table, key = OVERRIDES[flag]
+        merged[table][key] = value
+        if key == "offset_hz":
+            merged["signal"].pop("frequency_hz", None)
+        elif key == "frequency_hz":
+            merged["signal"].pop("offset_hz", None)
+    sig = merged["signal"]
+    for key in ("baud", "shift_hz"):
+        if sig.get(key) is None:
+            flag = "--baud" if key == "baud" else "--shift"
+            raise LinkError(f"{key} not given: set [signal] {key} in the link profile or use {flag}")
+    frame = merged["frame"]
+    if "sync_word" in frame:
+        frame["sync_word"] = _parse_sync(frame["sync_word"])
+    if "length" in frame:
+        frame["length"] = _parse_length(frame["length"])
+    try:
+        return Link(
+            signal=SignalSpec(**sig),
+            frame=FrameSpec(**frame),
+            capture=CaptureFormat(**merged["capture"]),
+        )
+    except TypeError as exc:  # a wrong type that the dataclass itself tripped on
+        raise LinkError(f"bad link value: {exc}") from None
+
+
+def load_link(path: str | Path | None = None, **overrides: Any) -> Link:
+    """Build a link from a TOML profile and/or flag-style overrides.
+
+    Parameters
+    ----------
+    path : str or Path, optional
+        A TOML link profile.
+    **overrides
+        Values that replace the profile's: ``datatype``, ``rate``, ``offset``,
+        ``frequency``, ``baud``, ``shift``, ``invert``, ``max_freq_error``,
+        ``sync``, ``sync_bits``, ``sync_tolerance``, ``length``, ``crc``. None
+        means "not given".
+
+    Raises
+    ------
+    LinkError
+        On TOML syntax (with its line), an unknown table or key, a wrong type or
+        a value out of range, naming the key.
+    """
+    tables: dict[str, dict[str, Any]] = {}
+    if path is not None:
+        p = Path(path)
+        try:
+            text = p.read_text(encoding="utf-8")
+        except FileNotFoundError:
+            raise LinkError(f"link profile {str(p)!r}: no such file") from None
+        except (IsADirectoryError, PermissionError, UnicodeDecodeError) as exc:
+            raise LinkError(f"link profile {str(p)!r}: cannot read it ({exc.__class__.__name__})") from None
+        try:
+            doc = tomllib.loads(text)
+        except tomllib.TOMLDecodeError as exc:
+            raise LinkError(f"link profile {str(p)!r}: TOML syntax error: {exc}") from None
+        for name, table in doc.items():
+            if name not in _KEYS:
+                raise LinkError(f"link profile {str(p)!r}: unknown table [{name}] (expected capture, signal, frame)")
+            if not isinstance(table, dict):
+                raise LinkError(f"link profile {str(p)!r}: {name} must be a table [{name}]")
+            for key in table:
+                if key not in _KEYS[name]:
+                    raise LinkError(
+                        f"link profile {str(p)!r}: unknown key {key!r} in [{name}] "
+                        f"(expected {', '.join(sorted(_KEYS[name]))})"
+                    )
+            tables[name] = dict(table)
+        try:
+            return _apply(tables, overrides)
+        except LinkError as exc:
+            raise LinkError(f"link profile {str(p)!r}: {exc}") from None
+    return _apply(tables, overrides)
+
+
+def link_to_toml(link: Link, *, comment: str | None = None) -> str:
+    """Render `link` as a TOML profile that :func:`load_link` reads back."""
+
+    def val(v: Any) -> str:
+        if isinstance(v, bool):
+            return "true" if v else "false"
+        if isinstance(v, float):
+            return repr(int(v)) if v.is_integer() else repr(v)
+        if isinstance(v, int):
+            return str(v)
+        return '"' + str(v).replace("\\", "\\\\").replace('"', '\\"') + '"'
+
+    lines = [f"# {line}" for line in (comment or "").splitlines()]
+    for name, table in link.as_dict().items():
+        items = [(k, v) for k, v in table.items() if v is not None]
+        if not items:
+            continue
+        lines.append(f"[{name}]")
+        lines += [f"{k} = {val(v)}" for k, v in items]
+    return "\n".join(lines) + "\n"

@@ -1,0 +1,733 @@
+"""Detection theory for binary FSK: what bit error rate a link should show.
+
+Every function here is a closed-form (or one-dimensional root-finding) result
+from the literature, vectorised over the Eb/N0 argument. Eb/N0 arguments are
+*linear* ratios unless the name ends in ``_db``; :func:`db` and :func:`from_db`
+convert. For binary signalling Es = Eb, so the same numbers are Es/N0.
+
+Sources
+-------
+* Proakis, *Digital Communications* (5th ed. ch. 4; 4th ed. sec. 5.4) and
+  Sklar, *Digital Communications* (2nd ed. ch. 4): error rates of orthogonal
+  and antipodal signalling.
+* Proakis, *Digital Communications*, Appendix B, and Stein, "Unified analysis
+  of certain coherent and noncoherent binary communications systems", IEEE
+  Trans. Inf. Theory IT-10, 1964: the probability that one Hermitian quadratic
+  form of two correlated complex Gaussian variables is negative, used for every
+  square-law comparison here.
+* Clopper & Pearson, Biometrika 26, 1934: exact binomial confidence limits.
+
+The correlator convention shared with :mod:`iqdemod.estimate`: references have
+unit amplitude, ``<a, b> = sum(conj(a) * b)``, and a received tone at
+frequency offset ``x / T`` from a reference keeps the complex fraction
+``tone_correlation(x)`` of its amplitude at that correlator's output.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from scipy import optimize, special, stats
+
+from iqdemod.errors import LinkError
+
+__all__ = [
+    "db",
+    "from_db",
+    "pb_noncoherent",
+    "pb_coherent_orthogonal",
+    "pb_antipodal",
+    "tone_correlation",
+    "pb_noncoherent_correlated",
+    "pb_square_law",
+    "pb_mismatched",
+    "mismatch_loss_db",
+    "ebn0_for_pb",
+    "ebn0_db_for_pb",
+    "per_from_ber",
+    "clopper_pearson",
+    "binomial_p_value",
+]
+
+_SCHEMES = ("noncoherent", "coherent_orthogonal", "antipodal", "correlated", "mismatched")
+
+
+# --------------------------------------------------------------------------- helpers
+
+
+def _out(value, scalar: bool):
+    """Return a Python float for scalar input, otherwise the array itself."""
+    return float(value) if scalar else value
+
+
+def _ebn0_array(ebn0, name: str = "ebn0") -> tuple[np.ndarray, bool]:
+    arr = np.asarray(ebn0, dtype=float)
+    if np.any(np.isnan(arr)) or np.any(arr < 0):
+        bad = arr[np.isnan(arr) | (arr < 0)].flat[0]
+        raise LinkError(
+            f"{name} {bad}: must be a linear Eb/N0 >= 0 (convert dB with from_db)"
+        )
+    return arr, arr.ndim == 0
+
+
+def _positive_int(value, name: str, *, minimum: int = 1) -> int:
+    if isinstance(value, bool) or int(value) != value or value < minimum:
+        raise LinkError(f"{name} {value!r}: must be an integer >= {minimum}")
+    return int(value)
+
+
+def _marcum_q1(a, b):
+    """Marcum Q-function Q1(a, b) = P(|CN(a, 2)| > b) (Marcum 1950).
+
+    ``ncx2.sf`` keeps its relative accuracy far into the tail (1e-24 and
+    below), where ``rice.sf`` underflows to 0.
+    """
+    return stats.ncx2.sf(np.square(b), 2, np.square(a))
+
+
+def _exp_i0(a, b):
+    """exp(-(a**2 + b**2) / 2) * I0(a * b) without overflow, for a, b >= 0."""
+    return np.exp(-0.5 * np.square(a - b)) * special.i0e(a * b)
+
+
+# --------------------------------------------------------------------------- units
+
+
+def db(x):
+    """Power ratio to decibels, ``10 * log10(x)`` (0 gives -inf).
+
+    Examples
+    --------
+    >>> db(10.0)
+    10.0
+    """
+    arr = np.asarray(x, dtype=float)
+    with np.errstate(divide="ignore"):
+        return _out(10.0 * np.log10(arr), arr.ndim == 0)
+
+
+def from_db(x_db):
+    """Decibels to a linear power ratio, ``10 ** (x_db / 10)``.
+
+    Examples
+    --------
+    >>> from_db(10.0)
+    10.0
+    """
+    arr = np.asarray(x_db, dtype=float)
+    return _out(np.power(10.0, arr / 10.0), arr.ndim == 0)
+
+
+# --------------------------------------------------------------------------- AWGN
+
+
+def pb_noncoherent(ebn0):
+    """Bit error probability of non-coherent binary orthogonal FSK.
+
+    Quadrature correlators and a square-law decision:
+    ``Pb = exp(-ebn0 / 2) / 2`` (Proakis, *Digital Communications*, 5th ed.
+    ch. 4; Sklar, *Digital Communications*, 2nd ed. ch. 4).
+
+    Parameters
+    ----------
+    ebn0 : float or array_like
+        Linear Eb/N0 (>= 0).
+
+    Returns
+    -------
+    float or ndarray
+        Pb, same shape as `ebn0`.
+
+    Examples
+    --------
+    >>> round(pb_noncoherent(10.0), 7)
+    0.003369
+    """
+    g, scalar = _ebn0_array(ebn0)
+    return _out(0.5 * np.exp(-0.5 * g), scalar)
+
+
+def pb_coherent_orthogonal(ebn0):
+    """Bit error probability of coherent binary orthogonal FSK, ``Q(sqrt(ebn0))``.
+
+    Source: Proakis, *Digital Communications*, ch. 4; Sklar, ch. 4.
+
+    Parameters
+    ----------
+    ebn0 : float or array_like
+        Linear Eb/N0 (>= 0).
+
+    Returns
+    -------
+    float or ndarray
+        Pb.
+    """
+    g, scalar = _ebn0_array(ebn0)
+    return _out(stats.norm.sf(np.sqrt(g)), scalar)
+
+
+def pb_antipodal(ebn0):
+    """Bit error probability of antipodal signalling (BPSK), ``Q(sqrt(2 ebn0))``.
+
+    Source: Proakis, *Digital Communications*, ch. 4; Sklar, ch. 4.
+
+    Parameters
+    ----------
+    ebn0 : float or array_like
+        Linear Eb/N0 (>= 0).
+
+    Returns
+    -------
+    float or ndarray
+        Pb.
+    """
+    g, scalar = _ebn0_array(ebn0)
+    return _out(stats.norm.sf(np.sqrt(2.0 * g)), scalar)
+
+
+# --------------------------------------------------------------------------- tones
+
+
+def _tone_corr(x: np.ndarray, n: int | None) -> np.ndarray:
+    """Complex correlation of two unit tones ``x / T`` Hz apart over one symbol."""
+    x = np.asarray(x, dtype=float)
+    if n is None:
+        # (1/T) * integral_0^T exp(j 2 pi x t / T) dt
+        return np.sinc(x) * np.exp(1j * np.pi * x)
+    # (1/N) * sum_{k<N} exp(j 2 pi x k / N): a geometric series.
+    den = n * np.sin(np.pi * x / n)
+    aliased = np.abs(den) < 1e-12  # x a multiple of N: every sample agrees
+    with np.errstate(divide="ignore", invalid="ignore"):
+        mag = np.where(aliased, 1.0, np.sin(np.pi * x) / np.where(aliased, 1.0, den))
+        phase = np.where(aliased, 0.0, np.pi * x * (n - 1) / n)
+    return mag * np.exp(1j * phase)
+
+
+def tone_correlation(h, *, samples_per_symbol=None):
+    """Complex correlation coefficient of two FSK tones spaced ``h / T``.
+
+    ``rho = <s0, s1> / Es`` with ``s_k = exp(j 2 pi f_k t)`` and
+    ``f1 - f0 = h / T``.
+
+    * continuous time: ``rho = sinc(h) * exp(j pi h)``, ``sinc(x) = sin(pi x)/(pi x)``
+      (Proakis, *Digital Communications*, envelope detection of correlated
+      binary signals; REFERENCE.md sec. 2);
+    * ``N`` samples per symbol (a geometric sum):
+      ``rho_N = sin(pi h) / (N sin(pi h / N)) * exp(j pi h (N - 1) / N)``,
+      which tends to the continuous value as ``N`` grows.
+
+    The same function gives the amplitude a correlator keeps when the
+    received tone is ``h / T`` away from its reference.
+
+    Parameters
+    ----------
+    h : float or array_like
+        Tone spacing times symbol time (modulation index), or a frequency
+        error times symbol time.
+    samples_per_symbol : int, optional
+        ``N``; None (default) for continuous time.
+
+    Returns
+    -------
+    complex or ndarray of complex
+
+    Examples
+    --------
+    >>> round(abs(tone_correlation(0.5)), 6)
+    0.63662
+    >>> round(abs(tone_correlation(0.5, samples_per_symbol=16)), 5)
+    0.63764
+    """
+    n = None if samples_per_symbol is None else _positive_int(
+        samples_per_symbol, "samples_per_symbol"
+    )
+    arr = np.asarray(h, dtype=float)
+    if not np.all(np.isfinite(arr)):
+        raise LinkError(f"h {h!r}: must be finite")
+    rho = _tone_corr(arr, n)
+    return complex(rho) if arr.ndim == 0 else rho
+
+
+def pb_noncoherent_correlated(ebn0, rho):
+    """Bit error probability of non-coherent detection of correlated tones.
+
+    Equal-energy signals with complex correlation ``rho``, quadrature
+    correlators and a square-law decision (Proakis, *Digital
+    Communications*, envelope detection of correlated binary signals;
+    Stein, IEEE Trans. Inf. Theory IT-10, 1964)::
+
+        Pb = Q1(a, b) - exp(-(a^2 + b^2) / 2) I0(a b) / 2
+        a = sqrt(ebn0 / 2 * (1 - sqrt(1 - |rho|^2)))
+        b = sqrt(ebn0 / 2 * (1 + sqrt(1 - |rho|^2)))
+
+    It equals ``exp(-ebn0 / 2) / 2`` at ``rho = 0``.
+
+    Parameters
+    ----------
+    ebn0 : float or array_like
+        Linear Eb/N0 (>= 0).
+    rho : complex or array_like
+        Correlation coefficient, ``|rho| <= 1`` (only its magnitude matters);
+        e.g. ``tone_correlation(h)``.
+
+    Returns
+    -------
+    float or ndarray
+        Pb, broadcast over `ebn0` and `rho`.
+    """
+    g, scalar = _ebn0_array(ebn0)
+    r = np.abs(np.asarray(rho))
+    if np.any(~np.isfinite(r)) or np.any(r > 1.0 + 1e-12):
+        raise LinkError(f"rho {rho!r}: |rho| must be <= 1")
+    root = np.sqrt(np.clip(1.0 - r * r, 0.0, 1.0))
+    a = np.sqrt(0.5 * g * (1.0 - root))
+    b = np.sqrt(0.5 * g * (1.0 + root))
+    pb = _marcum_q1(a, b) - 0.5 * _exp_i0(a, b)
+    return _out(np.clip(pb, 0.0, 0.5), scalar and r.ndim == 0)
+
+
+# --------------------------------------------------------------------------- square law
+
+
+def pb_square_law(mean_right, mean_wrong, *, var_right=1.0, var_wrong=1.0, noise_corr=0.0):
+    """Probability that a square-law comparison picks the wrong branch.
+
+    ``X`` (right branch) and ``Y`` (wrong branch) are jointly complex
+    Gaussian with means `mean_right`, `mean_wrong`, variances
+    ``E|X - mX|^2 = var_right``, ``E|Y - mY|^2 = var_wrong`` and correlation
+    coefficient ``E[(X - mX)(Y - mY)^*] / sqrt(var_right var_wrong) =
+    noise_corr``. Returns ``P(|X|^2 < |Y|^2)``.
+
+    This is the quadratic form ``D = A|X|^2 + B|Y|^2 + C X Y^* + C^* X^* Y``
+    with ``A = 1, B = -1, C = 0`` of Proakis, *Digital Communications*,
+    Appendix B (one diversity branch), after Stein, IEEE Trans. Inf. Theory
+    IT-10, 1964. With ``mu_xx = var_right / 2``, ``mu_yy = var_wrong / 2``,
+    ``mu_xy = noise_corr sqrt(var_right var_wrong) / 2`` and
+    ``delta = mu_xx mu_yy - |mu_xy|^2``::
+
+        w   = (mu_xx - mu_yy) / (4 delta)
+        v1  = sqrt(w^2 + 1 / (4 delta)) - w,   v2 = sqrt(w^2 + 1 / (4 delta)) + w
+        al1 = 2 (|mX|^2 mu_yy + |mY|^2 mu_xx - 2 Re(mX^* mY mu_xy))
+        al2 = |mX|^2 - |mY|^2
+        a   = sqrt(2 v1^2 v2 (al1 v2 - al2)) / (v1 + v2)
+        b   = sqrt(2 v1 v2^2 (al1 v1 + al2)) / (v1 + v2)
+        P(D < 0) = Q1(a, b) - v2 / (v1 + v2) exp(-(a^2 + b^2) / 2) I0(a b)
+
+    Parameters
+    ----------
+    mean_right, mean_wrong : complex or array_like
+        Signal parts of the two correlator outputs.
+    var_right, var_wrong : float or array_like, optional
+        Total complex noise variance of each output (> 0), default 1.
+    noise_corr : complex or array_like, optional
+        Complex noise correlation coefficient, ``|noise_corr| < 1``; default 0.
+
+    Returns
+    -------
+    float or ndarray
+        Error probability, broadcast over all arguments.
+
+    Examples
+    --------
+    Orthogonal tones at Eb/N0 = 10: the signal-to-noise ratio at the right
+    output is ``|mean_right|^2 / var_right``.
+
+    >>> round(pb_square_law(10 ** 0.5, 0.0), 7)
+    0.003369
+    """
+    mx = np.asarray(mean_right, dtype=complex)
+    my = np.asarray(mean_wrong, dtype=complex)
+    vx = np.asarray(var_right, dtype=float)
+    vy = np.asarray(var_wrong, dtype=float)
+    c = np.asarray(noise_corr, dtype=complex)
+    scalar = all(np.ndim(v) == 0 for v in (mx, my, vx, vy, c))
+    for name, v in (("var_right", vx), ("var_wrong", vy)):
+        if np.any(~np.isfinite(v)) or np.any(v <= 0):
+            raise LinkError(f"{name} {v!r}: noise variance must be finite and > 0")
+    if np.any(~np.isfinite(c)) or np.any(np.abs(c) >= 1.0):
+        raise LinkError(f"noise_corr {noise_corr!r}: |noise_corr| must be < 1")
+    if np.any(~np.isfinite(mx)) or np.any(~np.isfinite(my)):
+        raise LinkError("mean_right/mean_wrong: must be finite")
+
+    mu_xx = 0.5 * vx
+    mu_yy = 0.5 * vy
+    mu_xy = 0.5 * c * np.sqrt(vx * vy)
+    delta = mu_xx * mu_yy - np.abs(mu_xy) ** 2
+    w = (mu_xx - mu_yy) / (4.0 * delta)
+    root = np.sqrt(w * w + 1.0 / (4.0 * delta))
+    # v1 * v2 = 1 / (4 delta); take the difference from the product to avoid
+    # cancellation when one variance dominates.
+    big = root + np.abs(w)
+    small = 1.0 / (4.0 * delta * big)
+    v1 = np.where(w >= 0, small, big)
+    v2 = np.where(w >= 0, big, small)
+    ex2 = np.abs(mx) ** 2
+    ey2 = np.abs(my) ** 2
+    al1 = 2.0 * (ex2 * mu_yy + ey2 * mu_xx - 2.0 * np.real(np.conj(mx) * my * mu_xy))
+    al2 = ex2 - ey2
+    s = v1 + v2
+    a = np.sqrt(np.clip(2.0 * v1 * v1 * v2 * (al1 * v2 - al2), 0.0, None)) / s
+    b = np.sqrt(np.clip(2.0 * v1 * v2 * v2 * (al1 * v1 + al2), 0.0, None)) / s
+    pb = _marcum_q1(a, b) - (v2 / s) * _exp_i0(a, b)
+    return _out(np.clip(pb, 0.0, 1.0), scalar)
+
+
+def pb_mismatched(ebn0, *, h=1.0, freq_error_T=0.0, samples_per_symbol=None):
+    """Bit error probability of a correlator bank whose references are off frequency.
+
+    Both tones arrive ``freq_error_T / T`` Hz above their correlator
+    references (tone spacing ``h / T``). For a reference ``w`` and a received
+    waveform ``m`` the signal term is ``<w, m>`` and the noise variance is
+    ``N0 ||w||^2`` (REFERENCE.md sec. 3), so, normalised to the noise of one
+    output, symbol 0 gives
+
+    * right branch mean ``sqrt(ebn0) * rho(freq_error_T)``,
+    * wrong branch mean ``sqrt(ebn0) * rho(freq_error_T - h)`` (leakage),
+    * noise correlation ``<w0, w1> / ||w||^2 = rho(h)`` (zero for integer h),
+
+    with ``rho`` = :func:`tone_correlation`; symbol 1 uses
+    ``rho(freq_error_T + h)`` and ``conj(rho(h))``. Each case is evaluated
+    with :func:`pb_square_law` (Proakis, Appendix B; Stein 1964) and the two
+    equally likely symbols are averaged: for ``h != 1`` an offset moves one
+    tone towards the other reference and the other tone away.
+
+    At ``freq_error_T = 0`` this is :func:`pb_noncoherent_correlated`; at
+    ``h = 1`` and no error it is :func:`pb_noncoherent`.
+
+    Parameters
+    ----------
+    ebn0 : float or array_like
+        Linear Eb/N0 (>= 0).
+    h : float, optional
+        Tone spacing times symbol time, not 0 (mod `samples_per_symbol`).
+    freq_error_T : float, optional
+        Frequency error times symbol time.
+    samples_per_symbol : int, optional
+        Use the discrete correlation of ``N`` samples; None for continuous time.
+
+    Returns
+    -------
+    float or ndarray
+        Pb averaged over the two symbols.
+
+    Examples
+    --------
+    >>> round(pb_mismatched(10.0, freq_error_T=0.2), 5)
+    0.01418
+    """
+    g, scalar = _ebn0_array(ebn0)
+    n = None if samples_per_symbol is None else _positive_int(
+        samples_per_symbol, "samples_per_symbol"
+    )
+    for name, v in (("h", h), ("freq_error_T", freq_error_T)):
+        if not (np.ndim(v) == 0 and math.isfinite(float(v))):
+            raise LinkError(f"{name} {v!r}: must be a finite number")
+    h = float(h)
+    eps = float(freq_error_T)
+    rho_h = complex(_tone_corr(np.asarray(h), n))
+    if abs(rho_h) >= 1.0 - 1e-12:
+        raise LinkError(f"h {h}: the two tones coincide; must not be 0 (mod samples_per_symbol)")
+    amp = np.sqrt(g)
+    right = complex(_tone_corr(np.asarray(eps), n))
+    leak0 = complex(_tone_corr(np.asarray(eps - h), n))
+    leak1 = complex(_tone_corr(np.asarray(eps + h), n))
+    pb0 = pb_square_law(amp * right, amp * leak0, noise_corr=rho_h)
+    pb1 = pb_square_law(amp * right, amp * leak1, noise_corr=np.conj(rho_h))
+    return _out(0.5 * (np.asarray(pb0) + np.asarray(pb1)), scalar)
+
+
+def mismatch_loss_db(freq_error_T, *, samples_per_symbol=None):
+    """Amplitude loss of a correlator off frequency, ``-20 log10 |sinc(freq_error_T)|`` dB.
+
+    REFERENCE.md sec. 3 [derived]; with `samples_per_symbol` the discrete
+    ``|rho_N|`` of :func:`tone_correlation` is used instead of ``sinc``.
+
+    Parameters
+    ----------
+    freq_error_T : float or array_like
+        Frequency error times symbol time.
+    samples_per_symbol : int, optional
+        ``N``; None for continuous time.
+
+    Returns
+    -------
+    float or ndarray
+        Loss in dB (>= 0; inf at a null).
+
+    Examples
+    --------
+    >>> round(mismatch_loss_db(0.2), 4)
+    0.5792
+    """
+    arr = np.asarray(freq_error_T, dtype=float)
+    mag = np.abs(tone_correlation(arr, samples_per_symbol=samples_per_symbol))
+    with np.errstate(divide="ignore"):
+        return _out(-20.0 * np.log10(mag), arr.ndim == 0)
+
+
+# --------------------------------------------------------------------------- inverses
+
+
+def _pb_function(scheme: str, kw: dict):
+    allowed = {
+        "noncoherent": set(),
+        "coherent_orthogonal": set(),
+        "antipodal": set(),
+        "correlated": {"rho"},
+        "mismatched": {"h", "freq_error_T", "samples_per_symbol"},
+    }
+    if scheme not in allowed:
+        raise LinkError(f"scheme {scheme!r}: must be one of {', '.join(_SCHEMES)}")
+    extra = set(kw) - allowed[scheme]
+    if extra:
+        raise LinkError(
+            f"options {sorted(extra)} for scheme {scheme!r}: expected only {sorted(allowed[scheme]) or 'none'}"
+        )
+    if scheme == "correlated":
+        if "rho" not in kw:
+            raise LinkError("scheme 'correlated': needs rho=")
+        rho = kw["rho"]
+        if np.ndim(rho) != 0:
+            raise LinkError(f"rho {rho!r}: must be a single number for scheme 'correlated'")
+        pb_noncoherent_correlated(1.0, rho)  # validates rho
+        return lambda g: pb_noncoherent_correlated(g, rho)
+    if scheme == "mismatched":
+        pb_mismatched(1.0, **kw)  # validates the options
+        return lambda g: pb_mismatched(g, **kw)
+    return None
+
+
+def _solve_one(fun, pb: float, scheme: str) -> float:
+    """Root of fun(g) = pb in linear g, on a log-Pb scale in dB of g."""
+    lo_db, hi_db = -30.0, 60.0
+    f_db = lambda x: math.log(max(fun(from_db(x)), 1e-300)) - math.log(pb)
+    f_lo = f_db(lo_db)
+    if f_lo < 0.0:  # target within a hair of Pb(0): solve linearly near 0
+        g_lo = from_db(lo_db)
+        return optimize.brentq(lambda g: fun(g) - pb, 0.0, g_lo, xtol=1e-15, rtol=1e-12)
+    if f_db(hi_db) > 0.0:
+        raise LinkError(
+            f"target Pb {pb:g} for scheme {scheme!r}: not reached below {hi_db:g} dB "
+            "(error floor); choose a larger Pb or a smaller mismatch"
+        )
+    x = optimize.brentq(f_db, lo_db, hi_db, xtol=1e-10, rtol=1e-13)
+    return from_db(x)
+
+
+def ebn0_for_pb(pb, scheme="noncoherent", **options):
+    """Linear Eb/N0 at which a scheme reaches bit error probability `pb`.
+
+    * ``"noncoherent"`` (orthogonal FSK, square law): exact, ``-2 ln(2 pb)``;
+    * ``"coherent_orthogonal"``: exact, ``Q^-1(pb)^2``;
+    * ``"antipodal"``: exact, ``Q^-1(pb)^2 / 2``;
+    * ``"correlated"`` (option ``rho``): :func:`pb_noncoherent_correlated`;
+    * ``"mismatched"`` (options ``h``, ``freq_error_T``,
+      ``samples_per_symbol``): :func:`pb_mismatched`.
+
+    The last two are solved with ``scipy.optimize.brentq`` on log Pb against
+    Eb/N0 in dB (Pb is monotone in Eb/N0 for these schemes).
+
+    Parameters
+    ----------
+    pb : float or array_like
+        Target bit error probability, ``0 < pb <= 0.5``.
+    scheme : str, optional
+        One of the names above; default ``"noncoherent"``.
+    **options
+        The scheme's options, keyword only.
+
+    Returns
+    -------
+    float or ndarray
+        Linear Eb/N0, same shape as `pb`.
+
+    Raises
+    ------
+    LinkError
+        Bad `pb`, unknown scheme or option, or a target below the error
+        floor of a mismatched receiver.
+
+    Examples
+    --------
+    >>> round(db(ebn0_for_pb(1e-5)), 4)
+    13.3525
+    """
+    arr = np.asarray(pb, dtype=float)
+    if np.any(~(arr > 0)) or np.any(arr > 0.5):
+        raise LinkError(f"pb {pb!r}: must be in (0, 0.5]")
+    fun = _pb_function(scheme, options)
+    if scheme == "noncoherent":
+        out = -2.0 * np.log(2.0 * arr)
+    elif scheme == "coherent_orthogonal":
+        out = stats.norm.isf(arr) ** 2
+    elif scheme == "antipodal":
+        out = 0.5 * stats.norm.isf(arr) ** 2
+    else:
+        out = np.array([_solve_one(fun, float(p), scheme) for p in arr.ravel()]).reshape(arr.shape)
+    return _out(out, arr.ndim == 0)
+
+
+def ebn0_db_for_pb(pb, scheme="noncoherent", **options):
+    """Eb/N0 in dB at which a scheme reaches `pb`: ``db(ebn0_for_pb(...))``.
+
+    Parameters
+    ----------
+    pb : float or array_like
+        Target bit error probability, ``0 < pb <= 0.5``.
+    scheme : str, optional
+        See :func:`ebn0_for_pb`.
+    **options
+        See :func:`ebn0_for_pb`.
+
+    Returns
+    -------
+    float or ndarray
+        Eb/N0 in dB.
+
+    Examples
+    --------
+    >>> round(ebn0_db_for_pb(1e-5, "antipodal"), 4)
+    9.5879
+    """
+    return db(ebn0_for_pb(pb, scheme, **options))
+
+
+# --------------------------------------------------------------------------- counting
+
+
+def per_from_ber(ber, n_bits):
+    """Packet error rate of `n_bits` independent bits, ``1 - (1 - ber)^n_bits``.
+
+    Computed as ``-expm1(n_bits * log1p(-ber))`` so that tiny `ber` keeps its
+    digits (``per ~ n_bits * ber``).
+
+    Parameters
+    ----------
+    ber : float or array_like
+        Bit error probability in [0, 1].
+    n_bits : int or array_like
+        Bits per packet (>= 0).
+
+    Returns
+    -------
+    float or ndarray
+        Packet error probability, broadcast over the arguments.
+
+    Examples
+    --------
+    >>> per_from_ber(1e-12, 1000)  # doctest: +ELLIPSIS
+    9.99999999...e-10
+    """
+    p = np.asarray(ber, dtype=float)
+    n = np.asarray(n_bits, dtype=float)
+    if np.any(~(p >= 0)) or np.any(p > 1):
+        raise LinkError(f"ber {ber!r}: must be in [0, 1]")
+    if np.any(~(n >= 0)) or np.any(n != np.floor(n)) or np.any(~np.isfinite(n)):
+        raise LinkError(f"n_bits {n_bits!r}: must be a whole number >= 0")
+    with np.errstate(divide="ignore", invalid="ignore"):
+        per = -np.expm1(n * np.log1p(-p))
+    per = np.where(n == 0, 0.0, np.where(p == 1.0, 1.0, per))
+    return _out(per, p.ndim == 0 and n.ndim == 0)
+
+
+def _counts(k, n):
+    karr = np.asarray(k)
+    narr = np.asarray(n)
+    for name, v in (("k", karr), ("n", narr)):
+        if not np.issubdtype(v.dtype, np.integer) and not (
+            np.issubdtype(v.dtype, np.floating) and np.all(v == np.floor(v))
+        ):
+            raise LinkError(f"{name} {v!r}: must be a whole number")
+    karr = karr.astype(np.int64)
+    narr = narr.astype(np.int64)
+    if np.any(narr < 1):
+        raise LinkError(f"n {n!r}: must be >= 1")
+    if np.any(karr < 0) or np.any(karr > narr):
+        raise LinkError(f"k {k!r}: must be in [0, n] (n = {n!r})")
+    return karr, narr
+
+
+def clopper_pearson(k, n, *, confidence=0.95, alternative="two-sided"):
+    """Exact (Clopper–Pearson) confidence interval for a binomial proportion.
+
+    ``lower = beta.ppf(alpha/2, k, n - k + 1)`` and
+    ``upper = beta.ppf(1 - alpha/2, k + 1, n - k)``, with ``lower = 0`` at
+    ``k = 0`` and ``upper = 1`` at ``k = n`` (Clopper & Pearson, Biometrika
+    26, 1934); the same as ``scipy.stats.binomtest(k, n).proportion_ci("exact")``.
+
+    Parameters
+    ----------
+    k : int or array_like
+        Observed errors.
+    n : int or array_like
+        Trials (>= 1).
+    confidence : float, optional
+        Confidence level in (0, 1); default 0.95.
+    alternative : {"two-sided", "less", "greater"}, optional
+        ``"less"`` gives the one-sided upper bound ``(0, upper)`` (all of
+        ``1 - confidence`` in the upper tail), ``"greater"`` the one-sided
+        lower bound ``(lower, 1)``; names as in ``scipy.stats.binomtest``.
+
+    Returns
+    -------
+    (float, float) or (ndarray, ndarray)
+        ``(lower, upper)``.
+
+    Examples
+    --------
+    >>> lo, hi = clopper_pearson(0, 1000)
+    >>> lo, round(hi, 8)
+    (0.0, 0.00368208)
+    """
+    karr, narr = _counts(k, n)
+    if not (0.0 < float(confidence) < 1.0):
+        raise LinkError(f"confidence {confidence!r}: must be in (0, 1)")
+    if alternative not in ("two-sided", "less", "greater"):
+        raise LinkError(f"alternative {alternative!r}: must be 'two-sided', 'less' or 'greater'")
+    alpha = 1.0 - float(confidence)
+    tail = alpha / 2.0 if alternative == "two-sided" else alpha
+    with np.errstate(invalid="ignore"):
+        lo = stats.beta.ppf(tail, karr, narr - karr + 1)
+        hi = stats.beta.ppf(1.0 - tail, karr + 1, narr - karr)
+    lo = np.where(karr == 0, 0.0, lo)
+    hi = np.where(karr == narr, 1.0, hi)
+    if alternative == "less":
+        lo = np.zeros_like(lo)
+    elif alternative == "greater":
+        hi = np.ones_like(hi)
+    scalar = karr.ndim == 0 and narr.ndim == 0
+    return _out(lo, scalar), _out(hi, scalar)
+
+
+def binomial_p_value(k, n, p):
+    """Two-sided exact binomial test of `k` errors in `n` trials against rate `p`.
+
+    ``scipy.stats.binomtest(k, n, p).pvalue`` (the two-sided p-value sums the
+    probabilities of all outcomes no more likely than `k`).
+
+    Parameters
+    ----------
+    k : int
+        Observed errors.
+    n : int
+        Trials (>= 1).
+    p : float
+        Hypothesised error probability in [0, 1].
+
+    Returns
+    -------
+    float
+        p-value in [0, 1].
+
+    Examples
+    --------
+    >>> binomial_p_value(5, 10, 0.5)
+    1.0
+    """
+    karr, narr = _counts(k, n)
+    if karr.ndim or narr.ndim:
+        raise LinkError(f"k {k!r}, n {n!r}: must be single numbers")
+    if not (0.0 <= float(p) <= 1.0):
+        raise LinkError(f"p {p!r}: must be in [0, 1]")
+    return float(stats.binomtest(int(karr), int(narr), float(p)).pvalue)

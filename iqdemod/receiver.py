@@ -1,0 +1,483 @@
+"""The receiver: capture blocks in, bursts with their symbols and frames out.
+
+Data path (each stage in its own module)::
+
+    capture blocks ─ tune (mix + decimate) ─ bursts (energy detector)
+      └─ per burst: carrier (coarse) ─ timing ─ correlate ─ carrier (residual)
+         ─ timing ─ correlate ─ square-law bits ─ framing ─ frames
+
+Streaming happens up to the burst detector, with every state carried
+explicitly; a burst, once complete, is a bounded buffer at a few samples per
+symbol and is processed as a block. Every burst keeps the two square-law
+decision statistics of each symbol for the link-health stage.
+"""
+
+from __future__ import annotations
+
+import contextlib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Iterable, Iterator
+
+import numpy as np
+
+from . import bursts as _bursts
+from .bursts import RawBurst
+from .capture import Capture, CaptureInfo, DEFAULT_BLOCK_SAMPLES, open_capture
+from .carrier import coarse_offset, residual_offset
+from .correlate import correlate, tone_sums, window_sums
+from .estimate import EbN0Estimate, estimate_blind, estimate_data_aided
+from .framing import FrameHit, bits_to_bytes, find_frames
+from .link import Link
+from .timing import Timing, symbol_starts, symbol_timing
+from .tune import TunerPlan, plan_tuner, tune
+
+__all__ = ["ReceiverPlan", "Burst", "Frame", "Receiver", "DecodeSummary", "plan_receiver", "iter_bursts", "decode"]
+
+MAX_BURST_SYMBOLS = 1 << 15
+
+
+@dataclass(frozen=True, eq=False)
+class ReceiverPlan:
+    """Fixed settings of the receiver for one link on one capture."""
+
+    link: Link
+    sample_rate_hz: float
+    offset_hz: float
+    centre_hz: float | None
+    tuner: TunerPlan
+    detector: _bursts.DetectorPlan
+
+    @property
+    def rate_hz(self) -> float:
+        """The decimated rate the bursts are processed at."""
+        return self.tuner.output_rate_hz
+
+    @property
+    def period(self) -> float:
+        """Nominal symbol period at the decimated rate, samples."""
+        return self.rate_hz / self.link.signal.baud
+
+    @property
+    def tones_hz(self) -> tuple[float, float]:
+        """(bit-0 tone, bit-1 tone) relative to the signal centre."""
+        s = self.link.signal.shift_hz / 2
+        return (s, -s) if self.link.signal.invert else (-s, s)
+
+    def input_sample(self, burst_start: int, position: float) -> float:
+        """Input-sample index of a position in a burst buffer (cumulative-sum convention)."""
+        return (burst_start + position - 0.5) * self.tuner.decimation - self.tuner.delay_samples
+
+
+def plan_receiver(link: Link, sample_rate_hz: float, centre_hz: float | None = None) -> ReceiverPlan:
+    """Check `link` against the capture's rate and plan tuner and detector.
+
+    Raises
+    ------
+    LinkError
+        When the signal does not fit the capture (see :meth:`Link.check_rate`).
+    """
+    offset = link.check_rate(sample_rate_hz, centre_hz)
+    sig = link.signal
+    tuner = plan_tuner(sample_rate_hz, sig, offset)
+    overlap = link.frame.max_bits + 64 if not link.frame.raw else 64
+    detector = _bursts.plan_detector(
+        tuner.output_rate_hz,
+        baud=sig.baud,
+        band_hz=sig.shift_hz / 2 + sig.pull_in_hz + sig.baud / 2,
+        max_symbols=max(MAX_BURST_SYMBOLS, 4 * overlap),
+        overlap_symbols=overlap,
+    )
+    return ReceiverPlan(link, float(sample_rate_hz), offset, centre_hz, tuner, detector)
+
+
+@dataclass(frozen=True, eq=False)
+class Frame:
+    """One frame (or, in raw mode, one burst's bits).
+
+    Attributes
+    ----------
+    capture : str
+    t_s : float
+        Time of the sync word's first bit (raw mode: of the burst's first bit),
+        seconds from the capture start.
+    sample : int
+        The same instant as an input-sample index.
+    burst : int
+    length : int
+        Payload bytes (raw mode: 0).
+    payload : bytes
+    crc_ok : bool
+    sync_errors : int
+    freq_error_hz : float
+        Measured carrier error of the burst.
+    ebn0_db : float or None
+        This frame's Eb/N0 estimate.
+    truncated : bool
+        The burst ended before the frame did.
+    bits : numpy.ndarray or None
+        Raw mode only: the hard bits.
+    first_symbol, n_symbols : int
+        Where the frame's symbols lie in its burst's arrays.
+    ebn0 : EbN0Estimate or None
+    """
+
+    capture: str
+    t_s: float
+    sample: int
+    burst: int
+    length: int
+    payload: bytes
+    crc_ok: bool
+    sync_errors: int
+    freq_error_hz: float
+    ebn0_db: float | None
+    truncated: bool = False
+    bits: np.ndarray | None = field(default=None, repr=False)
+    first_symbol: int = 0
+    n_symbols: int = 0
+    ebn0: EbN0Estimate | None = field(default=None, repr=False)
+
+    @property
+    def raw(self) -> bool:
+        return self.bits is not None
+
+    def as_record(self) -> dict:
+        """The JSON Lines record of this frame (the decode output contract)."""
+        ebn0 = None if self.ebn0_db is None or not np.isfinite(self.ebn0_db) else round(float(self.ebn0_db), 2)
+        rec = {"capture": self.capture, "t_s": round(self.t_s, 7), "sample": self.sample, "burst": self.burst}
+        if self.raw:
+            rec.update(n_bits=int(len(self.bits)), bits_hex=bits_to_bytes(self.bits).hex())
+        else:
+            rec.update(
+                length=self.length,
+                payload_hex=self.payload.hex(),
+                crc_ok=self.crc_ok,
+                sync_errors=self.sync_errors,
+            )
+            if self.truncated:
+                rec["truncated"] = True
+        rec.update(freq_error_hz=round(self.freq_error_hz, 1), ebn0_db=ebn0)
+        return rec
+
+
+@dataclass(frozen=True, eq=False)
+class Burst:
+    """A demodulated burst: its symbol grid, decision statistics, bits and frames.
+
+    Attributes
+    ----------
+    index : int
+    sample : int
+        Input-sample index of the first symbol kept.
+    n_symbols : int
+        Symbols where the detector saw the signal (the arrays below).
+    freq_error_hz : float
+        Carrier error found and removed, Hz.
+    residual_hz : float
+        What the residual estimator still measures after the correction, Hz.
+    clock_error_ppm : float
+    z0sq, z1sq : numpy.ndarray
+        float64 square-law statistics of the bit-0 and bit-1 tones, per symbol.
+        Scale: |z|² of a unit tone is 1.
+    bits : numpy.ndarray
+        uint8 decisions.
+    frames : tuple of Frame
+    timing_strength : float
+    piece : int
+        0 unless this is a later piece of a burst cut for length.
+    """
+
+    index: int
+    sample: int
+    n_symbols: int
+    freq_error_hz: float
+    residual_hz: float
+    clock_error_ppm: float
+    z0sq: np.ndarray = field(repr=False)
+    z1sq: np.ndarray = field(repr=False)
+    bits: np.ndarray = field(repr=False)
+    frames: tuple[Frame, ...] = ()
+    timing_strength: float = 0.0
+    piece: int = 0
+    symbol_s: float = 0.0
+
+
+def _demodulate(x: np.ndarray, plan: ReceiverPlan, delta_hz: float) -> tuple[Timing, np.ndarray, np.ndarray, np.ndarray]:
+    """Timing, starts, correlator outputs and running sums of `x` after removing `delta_hz`."""
+    rate = plan.rate_hz
+    n = np.arange(len(x))
+    xc = x * np.exp(-2j * np.pi * (delta_hz / rate) * n)
+    sums = tone_sums(xc, rate, plan.tones_hz)
+    timing = symbol_timing(sums, plan.period)
+    starts = symbol_starts(timing, len(x))
+    z = correlate(sums, starts, timing.period_samples)
+    return timing, starts, z, sums
+
+
+def _residual(sums: np.ndarray, starts: np.ndarray, period: float, decided: np.ndarray, rate: float,
+              *, fine: bool) -> float:
+    """Residual carrier error, decision-directed, from steady stretches of one tone.
+
+    With ``fine=False``: the half-symbol phase comparison (pull-in ±baud).
+    With ``fine=True``: the phase step between consecutive symbols of the same
+    tone, a baseline twice as long with full-symbol sums (pull-in ±baud/2,
+    several times less noisy). Only symbols away from a change of tone count,
+    so a Gaussian pulse does not pull the estimate with the data pattern; with
+    too few of them every symbol is used.
+    """
+    if len(starts) < 2:
+        return 0.0
+    same_next = decided[1:] == decided[:-1]
+    if fine:
+        use = np.flatnonzero(same_next)
+        if len(use) < 8:
+            return 0.0
+        z = window_sums(sums, starts, period)
+        idx = np.arange(len(starts))
+        zw = z[idx, decided]
+        acc = np.sum(zw[use + 1] * np.conj(zw[use]))
+        return float(np.angle(acc) / (2 * np.pi * period / rate)) if acc != 0 else 0.0
+    steady = np.zeros(len(decided), dtype=bool)
+    steady[1:-1] = same_next[1:] & same_next[:-1]
+    use = np.flatnonzero(steady) if steady.sum() >= 16 else np.arange(len(starts))
+    first = window_sums(sums, starts[use], period / 2)
+    second = window_sums(sums, starts[use] + period / 2, period / 2)
+    tone = decided[use]
+    idx = np.arange(len(use))
+    return residual_offset(first[idx, tone], second[idx, tone], period, rate)
+
+
+def demodulate_burst(raw: RawBurst, plan: ReceiverPlan, *, capture: str = "") -> Burst:
+    """Carrier, timing, correlation, decisions and framing for one burst.
+
+    Parameters
+    ----------
+    raw : RawBurst
+        From the burst detector.
+    plan : ReceiverPlan
+    capture : str
+        Name recorded in each frame.
+
+    Returns
+    -------
+    Burst
+    """
+    sig = plan.link.signal
+    rate = plan.rate_hz
+    x = raw.samples.astype(np.complex128)
+    core0, core1 = raw.core
+    core = x[core0:core1] if core1 - core0 > 4 * plan.period else x
+    delta = coarse_offset(core, rate, baud=sig.baud, shift_hz=sig.shift_hz, pull_in_hz=sig.pull_in_hz)
+    timing, starts, z, sums = _demodulate(x, plan, delta)
+    # Decision-directed refinement of the carrier on the symbols the detector saw.
+    inside = (starts >= core0 - plan.period) & (starts + timing.period_samples <= core1 + plan.period)
+    for fine in (False, True):
+        decided = np.argmax(np.abs(z[inside]), axis=1)
+        delta += _residual(sums, starts[inside], timing.period_samples, decided, rate, fine=fine)
+        timing, starts, z, sums = _demodulate(x, plan, delta)
+        inside = (starts >= core0 - plan.period) & (starts + timing.period_samples <= core1 + plan.period)
+    zsq = z.real**2 + z.imag**2
+    decided = (zsq[:, 1] > zsq[:, 0]).astype(np.uint8)
+    residual = _residual(sums, starts[inside], timing.period_samples, decided[inside], rate, fine=True)
+    bits_all = decided  # tone index 1 is bit 1 (tones_hz already honours `invert`)
+    keep = np.flatnonzero(inside)
+    if keep.size == 0:
+        keep = np.arange(len(starts))
+    k0, k1 = int(keep[0]), int(keep[-1]) + 1
+    period = timing.period_samples
+    burst = Burst(
+        index=raw.index,
+        sample=int(round(plan.input_sample(raw.start, starts[k0]))) if len(starts) else int(plan.input_sample(raw.start, 0)),
+        n_symbols=k1 - k0,
+        freq_error_hz=float(delta),
+        residual_hz=float(residual),
+        clock_error_ppm=timing.clock_error_ppm(plan.period),
+        z0sq=zsq[k0:k1, 0].copy(),
+        z1sq=zsq[k0:k1, 1].copy(),
+        bits=bits_all[k0:k1].copy(),
+        timing_strength=timing.strength,
+        piece=raw.piece,
+        symbol_s=period * plan.tuner.decimation / plan.sample_rate_hz,
+    )
+    return _with_frames(burst, plan, raw, starts[k0:k1], capture)
+
+
+def _with_frames(burst: Burst, plan: ReceiverPlan, raw: RawBurst, starts: np.ndarray, capture: str) -> Burst:
+    fs = plan.sample_rate_hz
+    spec = plan.link.frame
+    frames = []
+    if spec.raw:
+        if burst.n_symbols:
+            est = estimate_blind(burst.z0sq, burst.z1sq)
+            sample = burst.sample
+            frames.append(
+                Frame(capture, sample / fs, sample, burst.index, 0, b"", False, 0, burst.freq_error_hz,
+                      est.ebn0_db, bits=burst.bits, first_symbol=0, n_symbols=burst.n_symbols, ebn0=est)
+            )
+    else:
+        for hit in find_frames(burst.bits, spec):
+            a, b = hit.bit_index, min(hit.bit_index + hit.n_bits, burst.n_symbols)
+            z0, z1 = burst.z0sq[a:b], burst.z1sq[a:b]
+            if hit.crc_ok:
+                est = estimate_data_aided(z0, z1, burst.bits[a:b])
+            else:
+                est = estimate_blind(z0, z1)
+            sample = int(round(plan.input_sample(raw.start, starts[a])))
+            frames.append(
+                Frame(capture, sample / fs, sample, burst.index, hit.length, hit.payload, hit.crc_ok,
+                      hit.sync_errors, burst.freq_error_hz, est.ebn0_db, hit.truncated,
+                      first_symbol=a, n_symbols=b - a, ebn0=est)
+            )
+    return Burst(**{**burst.__dict__, "frames": tuple(frames)})
+
+
+class Receiver:
+    """Streaming receiver for one capture: feed blocks, collect bursts.
+
+    The explicit states of the tuner and the burst detector live here between
+    calls; every stage underneath is a pure function of (input, state).
+
+    Parameters
+    ----------
+    link : Link
+    info : CaptureInfo
+        Sample rate, centre frequency and name of the capture.
+    """
+
+    def __init__(self, link: Link, info: CaptureInfo):
+        self.plan = plan_receiver(link, info.sample_rate_hz, info.centre_hz)
+        self.info = info
+        self._table = self.plan.tuner.table()
+        self._tuner = self.plan.tuner.initial_state()
+        self._detector = self.plan.detector.initial_state()
+        self._last_frame_sample = -np.inf
+        self._name = Path(info.path).name
+
+    def feed(self, block: np.ndarray) -> list[Burst]:
+        """Process one block of input samples; return the bursts it completed."""
+        y, self._tuner = tune(block, self.plan.tuner, self._tuner, table=self._table)
+        found, self._detector = _bursts.detect(y, self.plan.detector, self._detector)
+        return [self._finish(raw) for raw in found]
+
+    def flush(self) -> list[Burst]:
+        """End of input: hand out the bursts still open."""
+        found, self._detector = _bursts.flush(self.plan.detector, self._detector)
+        return [self._finish(raw) for raw in found]
+
+    @property
+    def noise_floor(self) -> float | None:
+        """The detector's noise-floor statistic (band power per decimated sample)."""
+        return self._detector.floor
+
+    def _finish(self, raw: RawBurst) -> Burst:
+        burst = demodulate_burst(raw, self.plan, capture=self._name)
+        if raw.piece:  # pieces of a long burst overlap: drop frames already handed out
+            half = 0.5 * self.plan.sample_rate_hz / self.plan.link.signal.baud
+            kept = tuple(f for f in burst.frames if f.sample > self._last_frame_sample + half)
+            burst = Burst(**{**burst.__dict__, "frames": kept})
+        if burst.frames:
+            self._last_frame_sample = max(self._last_frame_sample, max(f.sample for f in burst.frames))
+        return burst
+
+
+class DecodeSummary:
+    """Counts kept while decoding: bursts, frames, good frames, and the capture's defects."""
+
+    def __init__(self) -> None:
+        self.bursts = 0
+        self.frames = 0
+        self.good = 0
+        self.stats = None
+
+    def add(self, burst: Burst) -> None:
+        if burst.piece == 0:
+            self.bursts += 1
+        self.frames += len(burst.frames)
+        self.good += sum(f.crc_ok for f in burst.frames)
+
+    def line(self, name: str) -> str:
+        """The one-line summary for people."""
+        text = f"{name}: {self.bursts} burst(s), {self.frames} frame(s), {self.good} good"
+        if self.stats is not None and self.stats.clipped:
+            text += f", {self.stats.clipped_fraction:.3%} clipped"
+        return text
+
+
+def iter_bursts(
+    capture: Capture,
+    link: Link,
+    *,
+    block_samples: int = DEFAULT_BLOCK_SAMPLES,
+    progress: bool = False,
+) -> Iterator[Burst]:
+    """Demodulate every burst of an open capture, in time order.
+
+    Parameters
+    ----------
+    capture : Capture
+        From :func:`iqdemod.open_capture`.
+    link : Link
+    block_samples : int
+        Samples read per block; the results do not depend on it.
+    progress : bool
+        Show a tqdm bar (stderr) over the capture's samples.
+
+    Yields
+    ------
+    Burst
+    """
+    rx = Receiver(link, capture.info)
+    bar = None
+    if progress:
+        from tqdm import tqdm
+
+        bar = tqdm(total=capture.info.n_samples, unit="S", unit_scale=True, desc=Path(capture.info.path).name,
+                   leave=False, delay=1.0)
+    try:
+        for block in capture.blocks(block_samples):
+            yield from rx.feed(block)
+            if bar is not None:
+                bar.update(len(block))
+        yield from rx.flush()
+    finally:
+        if bar is not None:
+            bar.close()
+
+
+def decode(
+    path: str | Path | Capture,
+    link: Link,
+    *,
+    block_samples: int = DEFAULT_BLOCK_SAMPLES,
+    progress: bool = False,
+    summary: DecodeSummary | None = None,
+) -> Iterator[Frame]:
+    """Decode the frames of a capture, in time order.
+
+    Parameters
+    ----------
+    path : str, Path or Capture
+        A capture file (see :func:`iqdemod.open_capture`) or an open capture.
+    link : Link
+        From :func:`iqdemod.load_link`. Its ``capture`` table supplies datatype
+        and rate for raw files.
+
+    Yields
+    ------
+    Frame
+        Every frame whose sync word was found, good CRC or bad (raw mode: one
+        record per burst).
+    summary : DecodeSummary, optional
+        Filled in as the capture is read.
+    """
+    with contextlib.ExitStack() as stack:
+        cap = path if isinstance(path, Capture) else stack.enter_context(
+            open_capture(path, datatype=link.capture.datatype, sample_rate=link.capture.sample_rate)
+        )
+        for burst in iter_bursts(cap, link, block_samples=block_samples, progress=progress):
+            if summary is not None:
+                summary.add(burst)
+            yield from burst.frames
+        if summary is not None:
+            summary.stats = cap.stats

@@ -1,0 +1,45 @@
+"""Shared fixtures: small synthetic captures made by the project's own generator."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+import iqdemod
+from iqdemod.synth import SynthConfig, synthesize
+
+# The link of most tests: a buoy-style 9600 baud telemetry link, 137 kHz off centre.
+LINK_KW = dict(
+    rate=1_024_000,
+    offset=137_000,
+    baud=9600,
+    shift=9600,
+    sync="0x9B3C57E1",
+    length=24,
+    crc="CRC-16/IBM-3740",
+)
+
+
+def make_link(**kw) -> iqdemod.Link:
+    return iqdemod.load_link(None, **{**LINK_KW, **kw})
+
+
+def make_capture(path: Path, *, link=None, ebn0=(18.0,), frames=8, **cfg) -> tuple[Path, dict]:
+    """Synthesize a capture; return (meta path, truth)."""
+    link = link or make_link()
+    truth = synthesize(path, SynthConfig(link=link, ebn0_db=tuple(ebn0), n_frames=frames, **cfg))
+    return path.with_name(path.name + ".sigmf-meta"), truth
+
+
+def truth_payloads(truth: dict) -> list[str]:
+    return [f["payload_hex"] for f in truth["frames"]]
+
+
+@pytest.fixture(scope="session")
+def strong_capture(tmp_path_factory) -> tuple[Path, dict]:
+    """12 frames at 18 dB with a carrier error and a clock error (cf32_le)."""
+    base = tmp_path_factory.mktemp("strong") / "strong"
+    return make_capture(base, frames=12, freq_error_hz=1200.0, clock_ppm=60.0, seed=11)

@@ -1,0 +1,215 @@
+"""Reading captures: raw datatypes, SigMF pairs, WAV/FLAC, defects, streaming."""
+
+import json
+import warnings
+
+import numpy as np
+import pytest
+import soundfile as sf
+from hypothesis import given, settings, strategies as st
+
+from iqdemod.capture import CaptureWarning, open_capture, parse_datatype
+from iqdemod.errors import CaptureError
+
+
+def read_all(cap, block=1000):
+    return np.concatenate(list(cap.blocks(block)))
+
+
+def test_datatype_strings_follow_sigmf():
+    # SigMF v1.2 core:datatype [spec]: width is per component, complex interleaved I first.
+    assert parse_datatype("cf32_le").numpy == "<f4"
+    assert parse_datatype("ci16_be").numpy == ">i2"
+    assert parse_datatype("cu8").numpy == "|u1"
+    for bad in ("rf32_le", "cf16_le", "ci16", "cu8_le", "complex", ""):
+        with pytest.raises(CaptureError):
+            parse_datatype(bad)
+
+
+@pytest.mark.parametrize(
+    "name,raw,expected",
+    [
+        ("cu8", np.array([0, 255, 127, 128], np.uint8), [-1 + 1j, -0.5 / 127.5 + 0.5j / 127.5]),
+        ("ci8", np.array([-128, 127, 0, 64], np.int8), [-1 + 127j / 128, 0.5j]),
+        ("ci16_le", np.array([-32768, 16384], "<i2"), [-1 + 0.5j]),
+        ("ci16_be", np.array([16384, -32768], ">i2"), [0.5 - 1j]),
+        ("cf32_le", np.array([0.25, -0.5], "<f4"), [0.25 - 0.5j]),
+        ("cf64_le", np.array([0.125, 0.75], "<f8"), [0.125 + 0.75j]),
+    ],
+)
+def test_raw_scaling(tmp_path, name, raw, expected):
+    p = tmp_path / "x.raw"
+    raw.tofile(p)
+    with open_capture(p, datatype=name, sample_rate=1000) as cap:
+        got = read_all(cap)
+    np.testing.assert_allclose(got, np.array(expected, np.complex64), atol=1e-7)
+
+
+def test_cut_final_sample_is_dropped_with_a_warning(tmp_path):
+    p = tmp_path / "cut.raw"
+    np.arange(11, dtype=np.uint8).tofile(p)  # 5 complete cu8 samples and one byte
+    with open_capture(p, datatype="cu8", sample_rate=1000) as cap:
+        assert cap.info.n_samples == 5 and cap.info.cut_bytes == 1
+        with pytest.warns(CaptureWarning, match="cut final sample"):
+            assert len(read_all(cap)) == 5
+
+
+def test_nan_and_inf_are_zeroed_and_counted(tmp_path):
+    x = np.ones(100, np.complex64)
+    x[10:20] = np.nan
+    x[30] = complex(np.inf, 0)
+    p = tmp_path / "nan.cf32"
+    x.tofile(p)
+    with open_capture(p, datatype="cf32_le", sample_rate=1000) as cap:
+        with pytest.warns(CaptureWarning, match="11 NaN/Inf"):
+            got = read_all(cap, 7)
+        assert cap.stats.nonfinite == 11
+    assert np.all(got[10:20] == 0) and got[30] == 0 and np.all(np.isfinite(got))
+
+
+def test_clipping_is_measured(tmp_path):
+    raw = np.full(200, 128, np.uint8)
+    raw[:20] = 255  # 10 samples with I and Q at full scale
+    p = tmp_path / "clip.cu8"
+    raw.tofile(p)
+    with open_capture(p, datatype="cu8", sample_rate=1000) as cap:
+        with pytest.warns(CaptureWarning, match="clipped"):
+            read_all(cap)
+        assert cap.stats.clipped == 10
+        assert cap.stats.clipped_fraction == pytest.approx(0.1)
+
+
+def test_blocks_are_bounded_and_chunking_is_invisible(tmp_path):
+    rng = np.random.default_rng(0)
+    x = (rng.standard_normal(20001) + 1j * rng.standard_normal(20001)).astype(np.complex64)
+    p = tmp_path / "x.cf32"
+    x.tofile(p)
+    with open_capture(p, datatype="cf32_le", sample_rate=1000) as cap:
+        sizes = [len(b) for b in cap.blocks(4096)]
+        assert max(sizes) == 4096 and sizes[-1] == 20001 % 4096
+        np.testing.assert_array_equal(read_all(cap, 333), x)
+        with_overlap = list(cap.blocks(100, overlap=10))
+        np.testing.assert_array_equal(with_overlap[1][:10], with_overlap[0][-10:])
+
+
+def write_sigmf(base, data: np.ndarray, meta: dict):
+    data.tofile(str(base) + ".sigmf-data")
+    with open(str(base) + ".sigmf-meta", "w") as fh:
+        json.dump(meta, fh)
+
+
+SIGMF_META = {
+    "global": {"core:datatype": "ci16_le", "core:sample_rate": 250000, "core:version": "1.2.0"},
+    "captures": [{"core:sample_start": 0, "core:frequency": 433.92e6, "core:datetime": "2026-05-01T12:00:00Z"}],
+    "annotations": [],
+}
+
+
+@pytest.mark.parametrize("suffix", [".sigmf-meta", ".sigmf-data"])
+def test_sigmf_pair_from_either_file(tmp_path, suffix):
+    base = tmp_path / "rec"
+    write_sigmf(base, np.array([100, -100, 200, -200], "<i2"), SIGMF_META)
+    with open_capture(str(base) + suffix) as cap:
+        info = cap.info
+        assert info.kind == "sigmf" and info.sample_rate_hz == 250000 and info.n_samples == 2
+        assert info.centre_hz == 433.92e6 and info.start_time == "2026-05-01T12:00:00Z"
+        np.testing.assert_allclose(read_all(cap), np.array([100 - 100j, 200 - 200j]) / 32768)
+
+
+def test_sigmf_header_bytes_are_skipped(tmp_path):
+    base = tmp_path / "hdr"
+    meta = json.loads(json.dumps(SIGMF_META))
+    meta["captures"][0]["core:header_bytes"] = 4
+    write_sigmf(base, np.array([7, 7, 100, -100], "<i2"), meta)
+    with open_capture(str(base) + ".sigmf-meta") as cap:
+        np.testing.assert_allclose(read_all(cap), [(100 - 100j) / 32768])
+
+
+@pytest.mark.parametrize(
+    "mutate,match",
+    [
+        (lambda m: m.pop("captures"), "required object 'captures' missing"),
+        (lambda m: m["global"].pop("core:datatype"), "core:datatype missing"),
+        (lambda m: m["global"].update({"core:datatype": "rf32_le"}), "real samples"),
+        (lambda m: m["global"].update({"core:sample_rate": -5}), "sample rate -5 Hz: must be > 0"),
+        (lambda m: m["global"].update({"core:num_channels": 2}), "core:num_channels 2"),
+    ],
+)
+def test_broken_sigmf_metadata(tmp_path, mutate, match):
+    meta = json.loads(json.dumps(SIGMF_META))
+    mutate(meta)
+    base = tmp_path / "bad"
+    write_sigmf(base, np.zeros(4, "<i2"), meta)
+    with pytest.raises(CaptureError, match=match):
+        open_capture(str(base) + ".sigmf-meta")
+
+
+def test_sigmf_missing_halves_and_json_errors(tmp_path):
+    base = tmp_path / "half"
+    np.zeros(4, "<i2").tofile(str(base) + ".sigmf-data")
+    with pytest.raises(CaptureError, match="metadata file missing"):
+        open_capture(str(base) + ".sigmf-data")
+    (tmp_path / "lone.sigmf-meta").write_text(json.dumps(SIGMF_META))
+    with pytest.raises(CaptureError, match="data file missing"):
+        open_capture(tmp_path / "lone.sigmf-meta")
+    (tmp_path / "junk.sigmf-meta").write_text("{not json")
+    (tmp_path / "junk.sigmf-data").write_bytes(b"\0" * 8)
+    with pytest.raises(CaptureError, match="broken SigMF metadata"):
+        open_capture(tmp_path / "junk.sigmf-meta")
+
+
+@pytest.mark.parametrize("fmt,subtype", [("WAV", "PCM_16"), ("FLAC", "PCM_24"), ("WAV", "FLOAT")])
+def test_two_channel_audio_round_trip(tmp_path, fmt, subtype):
+    rng = np.random.default_rng(3)
+    iq = 0.5 * (rng.uniform(-1, 1, 5000) + 1j * rng.uniform(-1, 1, 5000))
+    p = tmp_path / f"iq.{fmt.lower()}"
+    sf.write(p, np.stack([iq.real, iq.imag], axis=1), 48000, subtype=subtype, format=fmt)
+    with open_capture(p) as cap:
+        assert cap.info.sample_rate_hz == 48000 and cap.info.n_samples == 5000
+        got = read_all(cap, 777)
+    np.testing.assert_allclose(got, iq, atol=2 / 32768)  # I left, Q right
+
+
+def test_audio_must_have_two_channels(tmp_path):
+    p = tmp_path / "mono.wav"
+    sf.write(p, np.zeros(100), 8000)
+    with pytest.raises(CaptureError, match="1 channel\\(s\\): expected 2"):
+        open_capture(p)
+
+
+def test_plain_errors(tmp_path):
+    with pytest.raises(CaptureError, match="no such file"):
+        open_capture(tmp_path / "nothing.cu8", datatype="cu8", sample_rate=1)
+    with pytest.raises(CaptureError, match="is a folder"):
+        open_capture(tmp_path, datatype="cu8", sample_rate=1)
+    (tmp_path / "empty.cu8").write_bytes(b"")
+    with pytest.raises(CaptureError, match="empty capture"):
+        open_capture(tmp_path / "empty.cu8", datatype="cu8", sample_rate=1)
+    (tmp_path / "x.cu8").write_bytes(b"\0\0")
+    with pytest.raises(CaptureError, match="give its datatype"):
+        open_capture(tmp_path / "x.cu8")
+    with pytest.raises(CaptureError, match="datatype 'cq9': unknown"):
+        open_capture(tmp_path / "x.cu8", datatype="cq9", sample_rate=1)
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    data=st.binary(min_size=0, max_size=3000),
+    name=st.sampled_from(["cu8", "ci8", "ci16_le", "ci16_be", "cf32_le", "cf64_le", "cf32_be", "ci32_le"]),
+    block=st.integers(1, 700),
+)
+def test_reader_on_random_bytes(tmp_path_factory, data, name, block):
+    """Random bytes never crash the reader, and the sample count is right."""
+    p = tmp_path_factory.mktemp("fuzz") / "f.raw"
+    p.write_bytes(data)
+    size = parse_datatype(name).sample_bytes
+    if len(data) < size:
+        with pytest.raises(CaptureError, match="empty capture"):
+            open_capture(p, datatype=name, sample_rate=1000)
+        return
+    with open_capture(p, datatype=name, sample_rate=1000) as cap:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", CaptureWarning)
+            got = read_all(cap, block)
+    assert len(got) == len(data) // size
+    assert np.all(np.isfinite(got)) and got.dtype == np.complex64

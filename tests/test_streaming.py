@@ -1,0 +1,97 @@
+"""Every stateful stage, cut at random points, gives what one call on the whole input gives.
+
+(The test scipy.signal applies to its filters' zi/zf.)
+"""
+
+import numpy as np
+import pytest
+from hypothesis import given, settings, strategies as st
+
+import iqdemod
+from iqdemod import bursts as B
+from iqdemod.receiver import plan_receiver
+from iqdemod.tune import tune
+
+from conftest import make_capture, make_link
+
+
+def _pieces(x, cuts):
+    cuts = sorted(set(c % (len(x) + 1) for c in cuts))
+    edges = [0, *cuts, len(x)]
+    return [x[a:b] for a, b in zip(edges[:-1], edges[1:])]
+
+
+@pytest.fixture(scope="module")
+def plan():
+    return plan_receiver(make_link(), 1_024_000)
+
+
+@pytest.fixture(scope="module")
+def samples():
+    rng = np.random.default_rng(5)
+    n = 60_000
+    t = np.arange(n)
+    x = 0.3 * np.exp(2j * np.pi * 141_000 * t / 1_024_000) + 0.05 * (rng.standard_normal(n) + 1j * rng.standard_normal(n))
+    return x.astype(np.complex64)
+
+
+@settings(max_examples=25, deadline=None)
+@given(cuts=st.lists(st.integers(0, 60_000), max_size=8))
+def test_tuner_is_cut_invariant(plan, samples, cuts):
+    whole, _ = tune(samples, plan.tuner, plan.tuner.initial_state())
+    state, outs = plan.tuner.initial_state(), []
+    for piece in _pieces(samples, cuts):
+        before = state
+        y, state = tune(piece, plan.tuner, state)
+        assert before.n_in + len(piece) == state.n_in  # the caller's state was not changed
+        outs.append(y)
+    np.testing.assert_allclose(np.concatenate(outs), whole, rtol=0, atol=1e-6)
+
+
+def test_tuner_moves_the_signal_to_zero_with_unit_gain(plan, samples):
+    y, _ = tune(samples, plan.tuner, plan.tuner.initial_state())
+    y = y[50:]  # after the filter's start-up
+    # the tone sits 4 kHz above the 137 kHz centre: it must come out at 4 kHz, amplitude 0.3
+    spec = np.abs(np.fft.fft(y * np.hanning(len(y))))
+    f = np.fft.fftfreq(len(y), 1 / plan.rate_hz)
+    assert abs(f[np.argmax(spec)] - 4000) < plan.rate_hz / len(y) * 1.5
+    assert np.mean(np.abs(y)) == pytest.approx(0.3, rel=0.03)
+
+
+@pytest.fixture(scope="module")
+def decimated(tmp_path_factory):
+    meta, _ = make_capture(tmp_path_factory.mktemp("det") / "d", frames=6, seed=2, ebn0=(14.0,))
+    link = make_link()
+    plan = plan_receiver(link, 1_024_000)
+    with iqdemod.open_capture(meta) as cap:
+        x = np.concatenate(list(cap.blocks()))
+    y, _ = tune(x, plan.tuner, plan.tuner.initial_state())
+    return plan, y
+
+
+def _detect_all(plan, pieces):
+    state, found = plan.detector.initial_state(), []
+    for piece in pieces:
+        got, state = B.detect(piece, plan.detector, state)
+        found += got
+    got, state = B.flush(plan.detector, state)
+    return found + got
+
+
+@settings(max_examples=15, deadline=None)
+@given(cuts=st.lists(st.integers(0, 10**6), max_size=6))
+def test_burst_detector_is_cut_invariant(decimated, cuts):
+    plan, y = decimated
+    whole = _detect_all(plan, [y])
+    cut = _detect_all(plan, _pieces(y, cuts))
+    assert [(b.index, b.start, b.core, len(b.samples)) for b in cut] == [
+        (b.index, b.start, b.core, len(b.samples)) for b in whole
+    ]
+    for a, b in zip(cut, whole):
+        np.testing.assert_array_equal(a.samples, b.samples)
+
+
+def test_detector_finds_each_burst_once(decimated):
+    plan, y = decimated
+    found = _detect_all(plan, [y])
+    assert len(found) == 6
