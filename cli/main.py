@@ -9,19 +9,19 @@ traceback instead.
 from __future__ import annotations
 
 import contextlib
-import functools
 import json
+import os
 import sys
 import warnings
 from pathlib import Path
-from typing import Any, Callable, Iterator
+from typing import Any, Iterator
 
 import click
 
 import iqdemod
 from iqdemod.errors import IqdemodError
 
-from ._common import EXIT_FAILED, link_options, link_from_options, open_output, say, warn
+from ._common import EXIT_FAILED, link_from_options, link_options, open_output, say, warn
 
 __all__ = ["main"]
 
@@ -34,6 +34,11 @@ class _Group(click.Group):
         try:
             with _warnings_to_stderr():
                 return super().invoke(ctx)
+        except BrokenPipeError:
+            # the reader of our output (e.g. `| head`) has had enough: not an error of ours
+            devnull = os.open(os.devnull, os.O_WRONLY)
+            os.dup2(devnull, sys.stdout.fileno())
+            ctx.exit(0)
         except IqdemodError as exc:
             if debug:
                 raise

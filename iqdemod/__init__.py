@@ -6,12 +6,16 @@ No radio framework needed. The handful of names a script needs::
     link = iqdemod.load_link("buoys.toml")
     for frame in iqdemod.decode("capture.sigmf-meta", link):
         print(frame.t_s, frame.payload.hex(), frame.crc_ok)
+    report = iqdemod.assess("capture.sigmf-meta", link)
+    print(report.ebn0_db, report.margin_db)
 """
 
+from . import predict
 from .capture import Capture, CaptureInfo, open_capture
 from .errors import CaptureError, IqdemodError, LinkError
 from .link import FrameSpec, Link, SignalSpec, load_link
 from .receiver import Burst, Frame, decode, iter_bursts
+from .health import HealthReport, assess
 
 __version__ = "0.1.0"
 
@@ -27,6 +31,9 @@ __all__ = [
     "iter_bursts",
     "Burst",
     "Frame",
+    "assess",
+    "HealthReport",
+    "predict",
     "IqdemodError",
     "CaptureError",
     "LinkError",

@@ -731,3 +731,54 @@ def binomial_p_value(k, n, p):
     if not (0.0 <= float(p) <= 1.0):
         raise LinkError(f"p {p!r}: must be in [0, 1]")
     return float(stats.binomtest(int(karr), int(narr), float(p)).pvalue)
+
+
+def curves_table(ebn0_db, *, h: float = 1.0, freq_error_T: float = 0.0, frame_bits: int = 208,
+                 target_ber: float = 1e-5, samples_per_symbol=None) -> dict:
+    """BER (and PER) against Eb/N0 for a link and the textbook references, for planning.
+
+    Parameters
+    ----------
+    ebn0_db : array_like
+        Eb/N0 values, dB.
+    h, freq_error_T : float
+        Modulation index and residual carrier error × symbol time of the link.
+    frame_bits : int
+        Bits a frame's CRC covers, for the frame error rate.
+    target_ber : float
+        The Eb/N0 each scheme needs for this BER is reported too.
+
+    Returns
+    -------
+    dict
+        Lists keyed ``ebn0_db``, ``ber_link``, ``ber_noncoherent``,
+        ``ber_coherent_orthogonal``, ``ber_antipodal``, ``per_link``, and
+        ``needed_db`` (a dict per scheme; None where the target is below the
+        link's error floor).
+    """
+    x = np.asarray(ebn0_db, dtype=float)
+    g = from_db(x)
+    link = np.asarray(pb_mismatched(g, h=h, freq_error_T=freq_error_T, samples_per_symbol=samples_per_symbol), float)
+    try:
+        need_link = float(ebn0_db_for_pb(target_ber, "mismatched", h=h, freq_error_T=freq_error_T,
+                                         samples_per_symbol=samples_per_symbol))
+    except LinkError:
+        need_link = None
+    return {
+        "h": float(h),
+        "freq_error_T": float(freq_error_T),
+        "frame_bits": int(frame_bits),
+        "target_ber": float(target_ber),
+        "ebn0_db": x.tolist(),
+        "ber_link": link.tolist(),
+        "ber_noncoherent": np.asarray(pb_noncoherent(g), float).tolist(),
+        "ber_coherent_orthogonal": np.asarray(pb_coherent_orthogonal(g), float).tolist(),
+        "ber_antipodal": np.asarray(pb_antipodal(g), float).tolist(),
+        "per_link": np.asarray(per_from_ber(link, frame_bits), float).tolist(),
+        "needed_db": {
+            "link": need_link,
+            "noncoherent": float(ebn0_db_for_pb(target_ber, "noncoherent")),
+            "coherent_orthogonal": float(ebn0_db_for_pb(target_ber, "coherent_orthogonal")),
+            "antipodal": float(ebn0_db_for_pb(target_ber, "antipodal")),
+        },
+    }

@@ -15,6 +15,7 @@ decision statistics of each symbol for the link-health stage.
 from __future__ import annotations
 
 import contextlib
+import functools
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Iterable, Iterator
@@ -64,6 +65,39 @@ class ReceiverPlan:
         s = self.link.signal.shift_hz / 2
         return (s, -s) if self.link.signal.invert else (-s, s)
 
+    @functools.cached_property
+    def noise_bandwidth_ratio(self) -> float:
+        """Noise at a correlator output relative to a full-band integrate-and-dump.
+
+        The theory (½·exp(−Eb/2N0)) assumes the correlator integrates white
+        noise over the whole capture band. Here the tuner's low-pass filter runs
+        first and removes the far tails of the correlator's sinc response, so a
+        correlator sees a little less noise (κ < 1) while the tone keeps its
+        energy. For white input noise of variance σ² the output noise is
+        σ²/T²·Σ|c_n|², c the combined filter–decimate–correlate weights; the
+        ideal is σ²/(T·D). κ is their ratio, averaged over both tones and
+        several fractional window starts. Eb/N0 = (decision SNR)·κ.
+        """
+        h = self.tuner.taps.astype(np.float64)
+        d = self.tuner.decimation
+        period = self.period
+        ratios = []
+        for tone in self.tones_hz:
+            omega = 2 * np.pi * tone / self.rate_hz
+            for a in np.arange(8) / 8:
+                m = np.arange(int(np.floor(a)), int(np.ceil(a + period)) + 1)
+                w = np.clip(np.minimum(m + 1, a + period) - np.maximum(m, a), 0, None)
+                v = np.zeros(len(m) * d, np.complex128)
+                v[::d] = w * np.exp(-1j * omega * m)
+                c = np.convolve(v, h[::-1])
+                ratios.append(d * np.sum(np.abs(c) ** 2) / period)
+        return float(np.mean(ratios))
+
+    @property
+    def ebn0_correction_db(self) -> float:
+        """Add to a decision-SNR estimate (dB) to get Eb/N0 (see :attr:`noise_bandwidth_ratio`)."""
+        return 10 * np.log10(self.noise_bandwidth_ratio)
+
     def input_sample(self, burst_start: int, position: float) -> float:
         """Input-sample index of a position in a burst buffer (cumulative-sum convention)."""
         return (burst_start + position - 0.5) * self.tuner.decimation - self.tuner.delay_samples
@@ -112,7 +146,8 @@ class Frame:
     freq_error_hz : float
         Measured carrier error of the burst.
     ebn0_db : float or None
-        This frame's Eb/N0 estimate.
+        This frame's Eb/N0 estimate, dB (the decision SNR of `ebn0` corrected
+        by the receiver's noise bandwidth, :attr:`ReceiverPlan.ebn0_correction_db`).
     truncated : bool
         The burst ended before the frame did.
     bits : numpy.ndarray or None
@@ -120,6 +155,7 @@ class Frame:
     first_symbol, n_symbols : int
         Where the frame's symbols lie in its burst's arrays.
     ebn0 : EbN0Estimate or None
+        The estimate of the decision SNR (|signal|²/E|noise|² at the correlators).
     """
 
     capture: str
@@ -306,6 +342,7 @@ def demodulate_burst(raw: RawBurst, plan: ReceiverPlan, *, capture: str = "") ->
 def _with_frames(burst: Burst, plan: ReceiverPlan, raw: RawBurst, starts: np.ndarray, capture: str) -> Burst:
     fs = plan.sample_rate_hz
     spec = plan.link.frame
+    corr = plan.ebn0_correction_db
     frames = []
     if spec.raw:
         if burst.n_symbols:
@@ -313,7 +350,7 @@ def _with_frames(burst: Burst, plan: ReceiverPlan, raw: RawBurst, starts: np.nda
             sample = burst.sample
             frames.append(
                 Frame(capture, sample / fs, sample, burst.index, 0, b"", False, 0, burst.freq_error_hz,
-                      est.ebn0_db, bits=burst.bits, first_symbol=0, n_symbols=burst.n_symbols, ebn0=est)
+                      est.ebn0_db + corr, bits=burst.bits, first_symbol=0, n_symbols=burst.n_symbols, ebn0=est)
             )
     else:
         for hit in find_frames(burst.bits, spec):
@@ -326,7 +363,7 @@ def _with_frames(burst: Burst, plan: ReceiverPlan, raw: RawBurst, starts: np.nda
             sample = int(round(plan.input_sample(raw.start, starts[a])))
             frames.append(
                 Frame(capture, sample / fs, sample, burst.index, hit.length, hit.payload, hit.crc_ok,
-                      hit.sync_errors, burst.freq_error_hz, est.ebn0_db, hit.truncated,
+                      hit.sync_errors, burst.freq_error_hz, est.ebn0_db + corr, hit.truncated,
                       first_symbol=a, n_symbols=b - a, ebn0=est)
             )
     return Burst(**{**burst.__dict__, "frames": tuple(frames)})
