@@ -206,13 +206,22 @@ class _Converter:
             self._lut = ((raw.astype(np.float32) - np.float32(dt.offset)) * np.float32(dt.scale)).astype(np.float32)
 
     def __call__(self, buf: np.ndarray) -> tuple[np.ndarray, int, int]:
-        """Convert components `buf` (raw dtype); return (complex64, nonfinite, clipped)."""
+        """Convert components `buf` (raw dtype); return (complex64, nonfinite, clipped).
+
+        The common case (all finite, nothing at full scale) costs two reductions
+        (min and max); the counting runs only when they say it is needed.
+        """
         dt = self.dt
         if dt.is_float:
             with np.errstate(over="ignore", invalid="ignore"):  # out-of-range float64 becomes inf, then 0
-                comp = buf.astype(np.float32, copy=True)
-            finite = np.isfinite(comp)
+                comp = buf.astype(np.float32, copy=False)  # native cf32: no copy at all
+            lo, hi = comp.min(initial=0.0), comp.max(initial=0.0)
+            if lo > -1.0 and hi < 1.0:  # NaN fails both comparisons, inf fails one
+                return comp.view(np.complex64), 0, 0
+            if not comp.flags.writeable:
+                comp = comp.copy()
             bad = 0
+            finite = np.isfinite(comp)
             if not finite.all():
                 bad_pairs = ~finite.reshape(-1, 2).all(axis=1)
                 bad = int(bad_pairs.sum())
@@ -220,8 +229,10 @@ class _Converter:
             clipped = int((np.abs(comp).reshape(-1, 2) >= 1.0).any(axis=1).sum())
             return comp.view(np.complex64), bad, clipped
         lo, hi = dt.full_scale
-        pairs = buf.reshape(-1, 2)
-        clipped = int(((pairs == lo) | (pairs == hi)).any(axis=1).sum())
+        clipped = 0
+        if buf.size and (buf.min() <= lo or buf.max() >= hi):
+            pairs = buf.reshape(-1, 2)
+            clipped = int(((pairs == lo) | (pairs == hi)).any(axis=1).sum())
         if self._lut is not None:
             comp = self._lut[buf.view(np.uint8)]
         else:
@@ -277,7 +288,8 @@ class Capture:
         Yields
         ------
         numpy.ndarray
-            complex64 blocks, ±1 full scale, NaN/Inf already zeroed.
+            complex64 blocks, ±1 full scale, NaN/Inf already zeroed. A block
+            may be read-only (a cf32 file is handed out without a copy).
         """
         block_samples = int(block_samples)
         overlap = int(overlap)
@@ -326,21 +338,18 @@ class Capture:
             except OSError as exc:
                 raise CaptureError(f"{self.info.data_path}: cannot open ({exc.strerror})") from None
         self._fh.seek(self.info.header_bytes)
-        buf = bytearray(step * dt.sample_bytes)
         while remaining > 0:
             n = min(step, remaining)
-            view = memoryview(buf)[: n * dt.sample_bytes]
-            got = self._fh.readinto(view)
-            if got != len(view):
+            data = self._fh.read(n * dt.sample_bytes)  # a fresh buffer per block: blocks never alias
+            if len(data) != n * dt.sample_bytes:
                 raise CaptureError(
-                    f"{self.info.data_path}: file shrank while reading (got {got} of {len(view)} bytes)"
+                    f"{self.info.data_path}: file shrank while reading (got {len(data)} of "
+                    f"{n * dt.sample_bytes} bytes)"
                 )
-            raw = np.frombuffer(buf, dtype=dt.numpy, count=2 * n)
-            samples, bad, clipped = convert(raw)
+            samples, bad, clipped = convert(np.frombuffer(data, dtype=dt.numpy))
             self._count(n, bad, clipped)
             remaining -= n
             yield samples
-            del raw, view
 
     def _audio_blocks(self, step: int) -> Iterator[np.ndarray]:
         import soundfile as sf

@@ -234,7 +234,7 @@ def _normal_limit(ratio: float, n: float) -> tuple[float, float, float]:
     )
 
 
-def _data_aided_from_stats(st: tuple[float, ...]) -> EbN0Estimate:
+def _data_aided_from_stats(st: tuple[float, ...], exact: bool = True) -> EbN0Estimate:
     n, t, o = st
     if not o > 0.0:
         raise LinkError("sum of the other-branch statistics 0: must be > 0 (no noise to measure)")
@@ -243,7 +243,7 @@ def _data_aided_from_stats(st: tuple[float, ...]) -> EbN0Estimate:
     alpha = (1.0 - CONFIDENCE) / 2.0
     dof = 2.0 * n
     _, lo_guess, hi_guess = _normal_limit(ratio, n)
-    if n <= _EXACT_MAX_SYMBOLS:
+    if exact and n <= _EXACT_MAX_SYMBOLS:
         # T/O ~ F'(2L, 2L; 2 L rho): invert each tail in rho (Neyman).
         if _ncf_sf(ratio, dof, 0.0) >= alpha:
             lo = 0.0
@@ -265,7 +265,7 @@ def _data_aided_from_stats(st: tuple[float, ...]) -> EbN0Estimate:
     )
 
 
-def estimate_data_aided(z0sq, z1sq, bits) -> EbN0Estimate:
+def estimate_data_aided(z0sq, z1sq, bits, *, exact_interval: bool = True) -> EbN0Estimate:
     """Data-aided Eb/N0 from symbols whose bits are known.
 
     With ``T = sum |r_true|^2`` (the output of the sent tone's correlator)
@@ -295,6 +295,10 @@ def estimate_data_aided(z0sq, z1sq, bits) -> EbN0Estimate:
         correlators (1-D, equal length, >= 1 symbol).
     bits : array_like of {0, 1}
         The bit sent in each symbol (1 means tone 1).
+    exact_interval : bool
+        False takes the interval from the normal limit of ``log(T/O)``, which
+        costs nothing; the receiver does so per frame, and :func:`pool`
+        recomputes the exact interval from the sums.
 
     Returns
     -------
@@ -319,7 +323,7 @@ def estimate_data_aided(z0sq, z1sq, bits) -> EbN0Estimate:
     one = b.astype(bool)
     true_sum = float(np.where(one, z1, z0).sum())
     other_sum = float(np.where(one, z0, z1).sum())
-    return _data_aided_from_stats((float(z0.size), true_sum, other_sum))
+    return _data_aided_from_stats((float(z0.size), true_sum, other_sum), exact_interval)
 
 
 # --------------------------------------------------------------------------- blind

@@ -156,7 +156,8 @@ class HealthAccumulator:
         blind = [f.ebn0 for f in frames if f not in good]
         self._da.extend(da)
         self._blind.extend(blind)
-        est = pool(da) if da else pool(blind)
+        group = da or blind
+        est = group[0] if len(group) == 1 else pool(group)  # for the shrinkage: its variance, not an exact interval
         if frames:
             lo, hi = est.ci90_db
             var = ((hi - lo) / (2 * 1.645)) ** 2 if math.isfinite(lo) and math.isfinite(hi) else math.inf

@@ -239,28 +239,32 @@ class Burst:
     symbol_s: float = 0.0
 
 
-def _demodulate(x: np.ndarray, plan: ReceiverPlan, delta_hz: float) -> tuple[Timing, np.ndarray, np.ndarray, np.ndarray]:
-    """Timing, starts, correlator outputs and running sums of `x` after removing `delta_hz`."""
+def _demodulate(x: np.ndarray, plan: ReceiverPlan, delta_hz: float, timing: Timing | None = None
+                ) -> tuple[Timing, np.ndarray, np.ndarray, np.ndarray]:
+    """Timing, starts, correlator outputs and running sums of `x` with the carrier error `delta_hz` removed.
+
+    The carrier error is folded into the tone frequencies. A `timing` passed in
+    is kept; otherwise it is estimated.
+    """
     rate = plan.rate_hz
-    n = np.arange(len(x))
-    xc = x * np.exp(-2j * np.pi * (delta_hz / rate) * n)
-    sums = tone_sums(xc, rate, plan.tones_hz)
-    timing = symbol_timing(sums, plan.period)
+    sums = tone_sums(x, rate, [f + delta_hz for f in plan.tones_hz])
+    if timing is None:
+        timing = symbol_timing(sums, plan.period)
     starts = symbol_starts(timing, len(x))
     z = correlate(sums, starts, timing.period_samples)
     return timing, starts, z, sums
 
 
-def _residual(sums: np.ndarray, starts: np.ndarray, period: float, decided: np.ndarray, rate: float,
-              *, fine: bool) -> float:
+def _residual(sums: np.ndarray, starts: np.ndarray, z: np.ndarray, period: float, decided: np.ndarray,
+              rate: float, *, fine: bool) -> float:
     """Residual carrier error, decision-directed, from steady stretches of one tone.
 
     With ``fine=False``: the half-symbol phase comparison (pull-in ±baud).
     With ``fine=True``: the phase step between consecutive symbols of the same
-    tone, a baseline twice as long with full-symbol sums (pull-in ±baud/2,
-    several times less noisy). Only symbols away from a change of tone count,
-    so a Gaussian pulse does not pull the estimate with the data pattern; with
-    too few of them every symbol is used.
+    tone in the correlator outputs `z`, a baseline twice as long with
+    full-symbol sums (pull-in ±baud/2, several times less noisy). Only symbols
+    away from a change of tone count, so a Gaussian pulse does not pull the
+    estimate with the data pattern; with too few of them every symbol is used.
     """
     if len(starts) < 2:
         return 0.0
@@ -269,9 +273,7 @@ def _residual(sums: np.ndarray, starts: np.ndarray, period: float, decided: np.n
         use = np.flatnonzero(same_next)
         if len(use) < 8:
             return 0.0
-        z = window_sums(sums, starts, period)
-        idx = np.arange(len(starts))
-        zw = z[idx, decided]
+        zw = z[np.arange(len(starts)), decided]
         acc = np.sum(zw[use + 1] * np.conj(zw[use]))
         return float(np.angle(acc) / (2 * np.pi * period / rate)) if acc != 0 else 0.0
     steady = np.zeros(len(decided), dtype=bool)
@@ -301,8 +303,14 @@ def demodulate_burst(raw: RawBurst, plan: ReceiverPlan, *, capture: str = "") ->
     """
     sig = plan.link.signal
     rate = plan.rate_hz
-    x = raw.samples.astype(np.complex128)
-    core0, core1 = raw.core
+    # Keep the detector's core with a detector frame of margin each side: the first frame
+    # above the threshold may start up to a frame late; beyond that is only noise.
+    margin = int(plan.detector.frame_len)
+    lo = max(0, raw.core[0] - margin)
+    hi = min(len(raw.samples), raw.core[1] + margin // 2)
+    x = raw.samples[lo:hi].astype(np.complex128)
+    raw_start = raw.start + lo
+    core0, core1 = raw.core[0] - lo, raw.core[1] - lo
     core = x[core0:core1] if core1 - core0 > 4 * plan.period else x
     delta = coarse_offset(core, rate, baud=sig.baud, shift_hz=sig.shift_hz, pull_in_hz=sig.pull_in_hz)
     timing, starts, z, sums = _demodulate(x, plan, delta)
@@ -310,12 +318,13 @@ def demodulate_burst(raw: RawBurst, plan: ReceiverPlan, *, capture: str = "") ->
     inside = (starts >= core0 - plan.period) & (starts + timing.period_samples <= core1 + plan.period)
     for fine in (False, True):
         decided = np.argmax(np.abs(z[inside]), axis=1)
-        delta += _residual(sums, starts[inside], timing.period_samples, decided, rate, fine=fine)
-        timing, starts, z, sums = _demodulate(x, plan, delta)
+        delta += _residual(sums, starts[inside], z[inside], timing.period_samples, decided, rate, fine=fine)
+        # the timing is estimated again only once the carrier is close
+        timing, starts, z, sums = _demodulate(x, plan, delta, None if fine else timing)
         inside = (starts >= core0 - plan.period) & (starts + timing.period_samples <= core1 + plan.period)
     zsq = z.real**2 + z.imag**2
     decided = (zsq[:, 1] > zsq[:, 0]).astype(np.uint8)
-    residual = _residual(sums, starts[inside], timing.period_samples, decided[inside], rate, fine=True)
+    residual = _residual(sums, starts[inside], z[inside], timing.period_samples, decided[inside], rate, fine=True)
     bits_all = decided  # tone index 1 is bit 1 (tones_hz already honours `invert`)
     keep = np.flatnonzero(inside)
     if keep.size == 0:
@@ -324,7 +333,7 @@ def demodulate_burst(raw: RawBurst, plan: ReceiverPlan, *, capture: str = "") ->
     period = timing.period_samples
     burst = Burst(
         index=raw.index,
-        sample=int(round(plan.input_sample(raw.start, starts[k0]))) if len(starts) else int(plan.input_sample(raw.start, 0)),
+        sample=int(round(plan.input_sample(raw_start, starts[k0]))) if len(starts) else int(plan.input_sample(raw_start, 0)),
         n_symbols=k1 - k0,
         freq_error_hz=float(delta),
         residual_hz=float(residual),
@@ -336,10 +345,10 @@ def demodulate_burst(raw: RawBurst, plan: ReceiverPlan, *, capture: str = "") ->
         piece=raw.piece,
         symbol_s=period * plan.tuner.decimation / plan.sample_rate_hz,
     )
-    return _with_frames(burst, plan, raw, starts[k0:k1], capture)
+    return _with_frames(burst, plan, raw_start, starts[k0:k1], capture)
 
 
-def _with_frames(burst: Burst, plan: ReceiverPlan, raw: RawBurst, starts: np.ndarray, capture: str) -> Burst:
+def _with_frames(burst: Burst, plan: ReceiverPlan, raw_start: int, starts: np.ndarray, capture: str) -> Burst:
     fs = plan.sample_rate_hz
     spec = plan.link.frame
     corr = plan.ebn0_correction_db
@@ -357,10 +366,10 @@ def _with_frames(burst: Burst, plan: ReceiverPlan, raw: RawBurst, starts: np.nda
             a, b = hit.bit_index, min(hit.bit_index + hit.n_bits, burst.n_symbols)
             z0, z1 = burst.z0sq[a:b], burst.z1sq[a:b]
             if hit.crc_ok:
-                est = estimate_data_aided(z0, z1, burst.bits[a:b])
+                est = estimate_data_aided(z0, z1, burst.bits[a:b], exact_interval=False)
             else:
                 est = estimate_blind(z0, z1)
-            sample = int(round(plan.input_sample(raw.start, starts[a])))
+            sample = int(round(plan.input_sample(raw_start, starts[a])))
             frames.append(
                 Frame(capture, sample / fs, sample, burst.index, hit.length, hit.payload, hit.crc_ok,
                       hit.sync_errors, burst.freq_error_hz, est.ebn0_db + corr, hit.truncated,
@@ -386,6 +395,7 @@ class Receiver:
         self.plan = plan_receiver(link, info.sample_rate_hz, info.centre_hz)
         self.info = info
         self._table = self.plan.tuner.table()
+        self._polyphase = self.plan.tuner.polyphase()
         self._tuner = self.plan.tuner.initial_state()
         self._detector = self.plan.detector.initial_state()
         self._last_frame_sample = -np.inf
@@ -393,7 +403,8 @@ class Receiver:
 
     def feed(self, block: np.ndarray) -> list[Burst]:
         """Process one block of input samples; return the bursts it completed."""
-        y, self._tuner = tune(block, self.plan.tuner, self._tuner, table=self._table)
+        y, self._tuner = tune(block, self.plan.tuner, self._tuner, table=self._table,
+                                polyphase=self._polyphase)
         found, self._detector = _bursts.detect(y, self.plan.detector, self._detector)
         return [self._finish(raw) for raw in found]
 

@@ -24,7 +24,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .correlate import window_sums
+from .correlate import phasor
+
 
 __all__ = ["Timing", "symbol_timing", "symbol_starts", "SEGMENT_SYMBOLS"]
 
@@ -90,9 +91,14 @@ def symbol_timing(sums: np.ndarray, period_samples: float, *, max_ppm: float = 2
     starts = np.arange(0, max(1, int(np.floor(n - T)) + 1), dtype=np.float64)
     if n < 2 * T:
         return Timing(0.0, T, 0.0)
-    z = window_sums(sums, starts, T)
-    e = (z.real**2 + z.imag**2).sum(axis=1)
-    rot = e * np.exp(-2j * np.pi * starts / T)
+    # Windows start on whole samples, so their ends all share one fractional part:
+    # the interpolation is two shifted slices, no gather.
+    whole, frac = int(np.floor(T)), T - np.floor(T)
+    m = len(starts)
+    ends = (1.0 - frac) * sums[:, whole : whole + m] + frac * sums[:, whole + 1 : whole + 1 + m]
+    z = ends - sums[:, :m]
+    e = (z.real**2 + z.imag**2).sum(axis=0)
+    rot = e * phasor(-1.0 / T, len(starts))  # starts are 0, 1, 2, …
     total = rot.sum()
     strength = float(abs(total) / max(e.sum(), 1e-300))
     phase0 = float(np.angle(total))

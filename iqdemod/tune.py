@@ -10,8 +10,10 @@ of the global sample index. For speed it runs in two parts:
   decimation, where samples are few.
 
 Decimation is a linear-phase Kaiser-window FIR (Kaiser, "Nonrecursive digital
-filter design using the I0-sinh window function", 1974) applied polyphase by
-``scipy.signal.upfirdn``, so its cost per input sample is taps / decimation.
+filter design using the I0-sinh window function", 1974) applied in polyphase
+form, so its cost per input sample is taps / decimation. The polyphase sum is
+written as a few small matrix products over the block reshaped to rows of D
+samples, which BLAS runs near the memory bandwidth.
 
 The state (:class:`TunerState`) goes in and comes back, as scipy.signal's
 ``zi``/``zf`` do; the caller's state is never changed.
@@ -22,7 +24,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import signal as _sig
+from scipy import signal as _sig  # filter design only
 
 from .link import SignalSpec
 
@@ -79,6 +81,25 @@ class TunerPlan:
     def fine_hz(self) -> float:
         return self.offset_hz - self.coarse_hz
 
+    def polyphase(self) -> np.ndarray:
+        """The taps as one matrix for the row-wise products (float32, shape (2B, 2D)).
+
+        Row r of the input holds samples rD … rD + D − 1 as interleaved
+        (re, im) float32, and P = prefix / D. Output m is
+        Σ_b row(m + P − b) · h[bD − c] summed over the columns c: rows 2b and
+        2b + 1 of this matrix give the real and imaginary part of sub-filter b.
+        """
+        d = self.decimation
+        h = self.taps.astype(np.float32)
+        n_b = (len(h) - 1 + d - 1) // d + 1
+        g = np.zeros((n_b, 2 * d, 2), np.float32)
+        for b in range(n_b):
+            for c in range(d):
+                k = b * d - c
+                if 0 <= k < len(h):
+                    g[b, 2 * c, 0] = g[b, 2 * c + 1, 1] = h[k]
+        return np.ascontiguousarray(np.concatenate(list(g), axis=1).T)
+
     def table(self) -> np.ndarray:
         k = np.arange(TABLE_LEN)
         cycles = round(self.offset_hz * TABLE_LEN / self.sample_rate_hz)
@@ -134,9 +155,10 @@ def plan_tuner(sample_rate_hz: float, signal: SignalSpec, offset_hz: float) -> T
     return TunerPlan(fs, float(offset_hz), decimation, taps, passband)
 
 
-def _mix(x: np.ndarray, n0: int, table: np.ndarray) -> np.ndarray:
-    """x·table[(n0 + n) mod TABLE_LEN], without building an index array."""
-    out = np.empty_like(x)
+def _mix(x: np.ndarray, n0: int, table: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
+    """x·table[(n0 + n) mod TABLE_LEN] into `out`, without building an index array."""
+    if out is None:
+        out = np.empty_like(x)
     n = len(x)
     p = n0 % TABLE_LEN
     head = min(n, (TABLE_LEN - p) % TABLE_LEN)
@@ -155,7 +177,14 @@ def _mix(x: np.ndarray, n0: int, table: np.ndarray) -> np.ndarray:
     return out
 
 
-def tune(x: np.ndarray, plan: TunerPlan, state: TunerState, *, table: np.ndarray | None = None) -> tuple[np.ndarray, TunerState]:
+def tune(
+    x: np.ndarray,
+    plan: TunerPlan,
+    state: TunerState,
+    *,
+    table: np.ndarray | None = None,
+    polyphase: np.ndarray | None = None,
+) -> tuple[np.ndarray, TunerState]:
     """Mix and decimate one block.
 
     Parameters
@@ -165,8 +194,9 @@ def tune(x: np.ndarray, plan: TunerPlan, state: TunerState, *, table: np.ndarray
     plan : TunerPlan
     state : TunerState
         From :meth:`TunerPlan.initial_state` or the previous call.
-    table : numpy.ndarray, optional
-        ``plan.table()``, passed in to avoid rebuilding it every block.
+    table, polyphase : numpy.ndarray, optional
+        ``plan.table()`` and ``plan.polyphase()``, passed in to avoid rebuilding
+        them every block.
 
     Returns
     -------
@@ -179,8 +209,9 @@ def tune(x: np.ndarray, plan: TunerPlan, state: TunerState, *, table: np.ndarray
     if table is None:
         table = plan.table()
     x = np.asarray(x, dtype=np.complex64)
-    mixed = _mix(x, state.n_in, table)
-    buf = np.concatenate([state.buffer, mixed])
+    buf = np.empty(len(state.buffer) + len(x), np.complex64)
+    buf[: len(state.buffer)] = state.buffer
+    _mix(x, state.n_in, table, out=buf[len(state.buffer) :])
     d = plan.decimation
     n_in = state.n_in + len(x)
     prefix = plan._prefix
@@ -192,14 +223,49 @@ def tune(x: np.ndarray, plan: TunerPlan, state: TunerState, *, table: np.ndarray
     if d == 1:
         y = buf[prefix : prefix + count].copy()
     else:
-        seg = buf[: prefix + (count - 1) * d + 1]
-        full = _sig.upfirdn(plan.taps, seg, 1, d)
-        y = full[prefix // d : prefix // d + count].astype(np.complex64, copy=False)
+        g = plan.polyphase() if polyphase is None else polyphase
+        p = prefix // d
+        rows_needed = count + p
+        seg = buf[: rows_needed * d]
+        if len(seg) < rows_needed * d:  # the last row is partial: only its first sample is used
+            seg = np.concatenate([seg, np.zeros(rows_needed * d - len(seg), np.complex64)])
+        rows = seg.view(np.float32).reshape(rows_needed, 2 * d)
+        z = g @ rows.T  # (2B, rows): every sub-filter on every row, in one product
+        re = z[0, p : p + count].copy()
+        im = z[1, p : p + count].copy()
+        for b in range(1, len(g) // 2):
+            re += z[2 * b, p - b : p - b + count]
+            im += z[2 * b + 1, p - b : p - b + count]
+        y = np.empty(count, np.complex64)
+        y.real = re
+        y.imag = im
     n_out = state.n_out + count
     keep_from = count * d  # buffer index of sample n_out·D − prefix
     new_state = TunerState(n_in, n_out, buf[keep_from:].copy())
     if plan.fine_hz:
-        m = np.arange(state.n_out, n_out, dtype=np.float64)
-        cycles = np.mod(plan.fine_hz * (m * d - plan.delay_samples) / plan.sample_rate_hz, 1.0)
-        y = y * np.exp(-2j * np.pi * cycles).astype(np.complex64)
+        y *= _fine_rotation(plan, state.n_out, count)
     return y, new_state
+
+
+def _fine_rotation(plan: TunerPlan, n_out: int, count: int) -> np.ndarray:
+    """exp(−j2π·fine·t) at outputs n_out … n_out + count − 1 (t at each output's centre)."""
+    d = plan.decimation
+    step = plan.fine_hz * d / plan.sample_rate_hz  # cycles per output sample
+    base = _steps(step, count)
+    start = np.mod(plan.fine_hz * (n_out * d - plan.delay_samples) / plan.sample_rate_hz, 1.0)
+    return base * np.complex64(np.exp(-2j * np.pi * start))
+
+
+_STEP_CACHE: dict[float, np.ndarray] = {}
+
+
+def _steps(step: float, count: int) -> np.ndarray:
+    # exp(−j2π·step·k) for k < count, kept per step and grown as needed (exact phases from k, not a recurrence)
+    table = _STEP_CACHE.get(step)
+    if table is None or len(table) < count:
+        k = np.arange(max(count, 1 << 16), dtype=np.float64)
+        table = np.exp(-2j * np.pi * np.mod(step * k, 1.0)).astype(np.complex64)
+        if len(_STEP_CACHE) > 32:
+            _STEP_CACHE.clear()
+        _STEP_CACHE[step] = table
+    return table[:count]
