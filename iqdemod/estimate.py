@@ -713,3 +713,57 @@ def crb_normalised_variance_coherent_da(ebn0, n_symbols):
         raise LinkError(f"n_symbols {n_symbols!r}: must be an integer >= 1")
     out = (2.0 * g + g * g) / (int(n_symbols) * g * g)
     return float(out) if g.ndim == 0 else out
+
+
+# --------------------------------------------------------------------------- non-orthogonal tones
+
+
+def correct_leakage(estimate: EbN0Estimate, leakage: float) -> EbN0Estimate:
+    """Undo the signal that leaks into the other correlator when the tones are not orthogonal.
+
+    With tone correlation ρ the other branch holds |ρ|²·S + N instead of N
+    (REFERENCE §2–3: the signal term of a correlator is ⟨w, m⟩). An estimator
+    built for orthogonal tones then measures R − 1 with R = (S + N)/(|ρ|²S + N);
+    solving for S/N gives γ = (R − 1)/(1 − |ρ|²·R), applied here to the point
+    value and to both ends of the interval (the map is increasing). Pool first,
+    then correct: the sums kept inside an estimate stay those of the raw
+    statistics.
+
+    Parameters
+    ----------
+    estimate : EbN0Estimate
+        From an estimator that assumes orthogonal tones (data-aided or
+        decision-directed-raw; the blind moment estimator's model differs).
+    leakage : float
+        |ρ|², 0 <= leakage < 1.
+
+    Returns
+    -------
+    EbN0Estimate
+        The same method and sums; values that the model cannot explain (the
+        other branch stronger than leakage allows) become +inf dB ends and a
+        point value capped at 60 dB.
+    """
+    if not 0.0 <= leakage < 1.0:
+        raise LinkError(f"leakage {leakage!r}: must be within [0, 1)")
+    if leakage == 0.0:
+        return estimate
+
+    def fix(db: float) -> float:
+        if db == -math.inf:
+            return db
+        if db == math.inf:
+            return math.inf
+        g = 10.0 ** (db / 10.0)
+        denom = 1.0 - leakage * (1.0 + g)
+        return _to_db(g / denom) if denom > 0 else math.inf
+
+    value = min(fix(estimate.ebn0_db), 60.0)
+    lo, hi = (fix(v) for v in estimate.ci90_db)
+    return EbN0Estimate(
+        ebn0_db=value,
+        ci90_db=(min(lo, value), max(hi, value)),
+        n_symbols=estimate.n_symbols,
+        method=estimate.method,
+        _stats=estimate._stats,
+    )

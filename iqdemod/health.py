@@ -33,7 +33,7 @@ import numpy as np
 from . import predict as P
 from .capture import Capture, DEFAULT_BLOCK_SAMPLES, open_capture
 from .errors import IqdemodError
-from .estimate import EbN0Estimate, pool
+from .estimate import EbN0Estimate, correct_leakage, pool
 from .link import Link
 from .receiver import Burst, ReceiverPlan, iter_bursts
 
@@ -158,6 +158,7 @@ class HealthAccumulator:
         self._blind.extend(blind)
         group = da or blind
         est = group[0] if len(group) == 1 else pool(group)  # for the shrinkage: its variance, not an exact interval
+        est = correct_leakage(est, self.plan.tone_leakage)
         if frames:
             lo, hi = est.ci90_db
             var = ((hi - lo) / (2 * 1.645)) ** 2 if math.isfinite(lo) and math.isfinite(hi) else math.inf
@@ -191,7 +192,8 @@ class HealthAccumulator:
         symbol_t = 1.0 / sig.baud
         sps = max(2, int(round(plan.period)))  # the discrete tone correlation takes whole samples
         # -- Eb/N0 (decision SNR, then corrected to Eb/N0)
-        parts = [pool(g) for g in (self._da, self._blind) if g]
+        leak = plan.tone_leakage
+        parts = [correct_leakage(pool(g), leak) for g in (self._da, self._blind) if g]
         method = None
         snr_db = snr_ci = None
         if parts:

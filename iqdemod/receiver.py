@@ -27,7 +27,8 @@ from .bursts import RawBurst
 from .capture import Capture, CaptureInfo, DEFAULT_BLOCK_SAMPLES, open_capture
 from .carrier import coarse_offset, residual_offset
 from .correlate import correlate, tone_sums, window_sums
-from .estimate import EbN0Estimate, estimate_blind, estimate_data_aided
+from .estimate import (EbN0Estimate, correct_leakage, estimate_blind, estimate_data_aided,
+                       estimate_decision_directed)
 from .framing import FrameHit, bits_to_bytes, find_frames
 from .link import Link
 from .timing import Timing, symbol_starts, symbol_timing
@@ -93,6 +94,24 @@ class ReceiverPlan:
                 ratios.append(d * np.sum(np.abs(c) ** 2) / period)
         return float(np.mean(ratios))
 
+    @functools.cached_property
+    def tone_leakage(self) -> float:
+        """|ρ|²: the power a unit tone puts into the other tone's correlator (0 for h = 1, 2, …).
+
+        Computed for this receiver's own correlators (fractional windows at the
+        decimated rate), averaged over window starts; about sinc²(h) (REFERENCE §2).
+        """
+        period = self.period
+        f0, f1 = self.tones_hz
+        omega = 2 * np.pi * (f0 - f1) / self.rate_hz
+        vals = []
+        for a in np.arange(8) / 8:
+            m = np.arange(int(np.floor(a)), int(np.ceil(a + period)) + 1)
+            w = np.clip(np.minimum(m + 1, a + period) - np.maximum(m, a), 0, None)
+            vals.append(abs(np.sum(w * np.exp(1j * omega * m)) / period) ** 2)
+        leak = float(np.mean(vals))
+        return 0.0 if leak < 1e-4 else leak
+
     @property
     def ebn0_correction_db(self) -> float:
         """Add to a decision-SNR estimate (dB) to get Eb/N0 (see :attr:`noise_bandwidth_ratio`)."""
@@ -155,7 +174,8 @@ class Frame:
     first_symbol, n_symbols : int
         Where the frame's symbols lie in its burst's arrays.
     ebn0 : EbN0Estimate or None
-        The estimate of the decision SNR (|signal|²/E|noise|² at the correlators).
+        The estimator's own output, before the corrections for tone leakage
+        (non-orthogonal tones) and noise bandwidth that give `ebn0_db`.
     """
 
     capture: str
@@ -348,6 +368,21 @@ def demodulate_burst(raw: RawBurst, plan: ReceiverPlan, *, capture: str = "") ->
     return _with_frames(burst, plan, raw_start, starts[k0:k1], capture)
 
 
+def _estimate(z0: np.ndarray, z1: np.ndarray, bits: np.ndarray | None, leakage: float) -> EbN0Estimate:
+    """The decision SNR of a run of symbols, before any leakage correction.
+
+    Known bits (a good CRC): data-aided. Otherwise, with orthogonal tones, the
+    blind moment estimator; with non-orthogonal tones, whose model that
+    estimator does not cover, the raw decision-directed ratio, to be corrected
+    by :func:`iqdemod.estimate.correct_leakage` (biased upward at low SNR).
+    """
+    if bits is not None:
+        return estimate_data_aided(z0, z1, bits, exact_interval=False)
+    if leakage:
+        return estimate_decision_directed(z0, z1, debias=False)
+    return estimate_blind(z0, z1)
+
+
 def _with_frames(burst: Burst, plan: ReceiverPlan, raw_start: int, starts: np.ndarray, capture: str) -> Burst:
     fs = plan.sample_rate_hz
     spec = plan.link.frame
@@ -355,24 +390,23 @@ def _with_frames(burst: Burst, plan: ReceiverPlan, raw_start: int, starts: np.nd
     frames = []
     if spec.raw:
         if burst.n_symbols:
-            est = estimate_blind(burst.z0sq, burst.z1sq)
+            est = _estimate(burst.z0sq, burst.z1sq, None, plan.tone_leakage)
+            db = correct_leakage(est, plan.tone_leakage).ebn0_db + corr
             sample = burst.sample
             frames.append(
                 Frame(capture, sample / fs, sample, burst.index, 0, b"", False, 0, burst.freq_error_hz,
-                      est.ebn0_db + corr, bits=burst.bits, first_symbol=0, n_symbols=burst.n_symbols, ebn0=est)
+                      db, bits=burst.bits, first_symbol=0, n_symbols=burst.n_symbols, ebn0=est)
             )
     else:
         for hit in find_frames(burst.bits, spec):
             a, b = hit.bit_index, min(hit.bit_index + hit.n_bits, burst.n_symbols)
-            z0, z1 = burst.z0sq[a:b], burst.z1sq[a:b]
-            if hit.crc_ok:
-                est = estimate_data_aided(z0, z1, burst.bits[a:b], exact_interval=False)
-            else:
-                est = estimate_blind(z0, z1)
+            est = _estimate(burst.z0sq[a:b], burst.z1sq[a:b], burst.bits[a:b] if hit.crc_ok else None,
+                            plan.tone_leakage)
+            db = correct_leakage(est, plan.tone_leakage).ebn0_db + corr
             sample = int(round(plan.input_sample(raw_start, starts[a])))
             frames.append(
                 Frame(capture, sample / fs, sample, burst.index, hit.length, hit.payload, hit.crc_ok,
-                      hit.sync_errors, burst.freq_error_hz, est.ebn0_db + corr, hit.truncated,
+                      hit.sync_errors, burst.freq_error_hz, db, hit.truncated,
                       first_symbol=a, n_symbols=b - a, ebn0=est)
             )
     return Burst(**{**burst.__dict__, "frames": tuple(frames)})

@@ -97,7 +97,8 @@ def symbol_timing(sums: np.ndarray, period_samples: float, *, max_ppm: float = 2
     m = len(starts)
     ends = (1.0 - frac) * sums[:, whole : whole + m] + frac * sums[:, whole + 1 : whole + 1 + m]
     z = ends - sums[:, :m]
-    e = (z.real**2 + z.imag**2).sum(axis=0)
+    p = z.real**2 + z.imag**2
+    e = (p[1] - p[0]) ** 2
     rot = e * phasor(-1.0 / T, len(starts))  # starts are 0, 1, 2, …
     total = rot.sum()
     strength = float(abs(total) / max(e.sum(), 1e-300))
