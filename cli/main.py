@@ -11,6 +11,7 @@ from __future__ import annotations
 import contextlib
 import json
 import os
+import signal
 import sys
 import warnings
 from pathlib import Path
@@ -26,11 +27,23 @@ from ._common import EXIT_FAILED, link_from_options, link_options, open_output, 
 __all__ = ["main"]
 
 
+class _Terminated(BaseException):
+    """SIGTERM, raised in the main thread so that every open output is cleaned up."""
+
+
+def _on_sigterm(signum, frame):
+    raise _Terminated()
+
+
 class _Group(click.Group):
     """Turns the library's errors into one line and an exit status."""
 
     def invoke(self, ctx: click.Context) -> Any:
         debug = bool(ctx.params.get("debug"))
+        try:
+            signal.signal(signal.SIGTERM, _on_sigterm)
+        except ValueError:  # not the main thread (e.g. inside a test runner's worker): leave it
+            pass
         try:
             with _warnings_to_stderr():
                 return super().invoke(ctx)
@@ -53,8 +66,11 @@ class _Group(click.Group):
         except KeyboardInterrupt:
             if debug:
                 raise
-            click.echo("Error: interrupted", err=True)
+            click.echo("Error: interrupted; finished outputs are complete, unfinished ones were not written", err=True)
             ctx.exit(130)
+        except _Terminated:
+            click.echo("Error: terminated; finished outputs are complete, unfinished ones were not written", err=True)
+            ctx.exit(143)
 
 
 @contextlib.contextmanager

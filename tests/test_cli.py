@@ -206,3 +206,28 @@ def test_installed_script_runs():
     rows = [json.loads(line) for line in res.stdout.splitlines()]
     truth = json.loads((here / "harbour-buoys.truth.json").read_text())
     assert sorted(r["payload_hex"] for r in rows if r["crc_ok"]) == sorted(truth_payloads(truth))
+
+
+def test_sigterm_leaves_the_previous_output_intact(tmp_path):
+    """A run stopped by SIGTERM mid-way keeps the old output file and leaves no temporary file."""
+    import signal
+    import time
+
+    meta, _ = make_capture(tmp_path / "long", frames=200, seed=30)
+    out = tmp_path / "frames.jsonl"
+    out.write_text("previous\n")
+    exe = shutil.which("iqdemod")
+    proc = subprocess.Popen([exe, "decode", str(meta), *LINK_FLAGS, "-o", str(out), "-q", "--block", "4096"],
+                            stderr=subprocess.PIPE, text=True)
+    deadline = time.monotonic() + 30
+    while not list(tmp_path.glob(".frames.jsonl.*")) and proc.poll() is None and time.monotonic() < deadline:
+        time.sleep(0.02)  # wait until the output is being written
+    time.sleep(0.2)
+    proc.send_signal(signal.SIGTERM)
+    _, err = proc.communicate(timeout=60)
+    if proc.returncode == 0:  # finished before the signal: then the output must be complete
+        assert len(out.read_text().splitlines()) == 200
+    else:
+        assert proc.returncode == 143 and "terminated" in err
+        assert out.read_text() == "previous\n"
+    assert not list(tmp_path.glob(".frames.jsonl.*"))
