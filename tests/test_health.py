@@ -1,0 +1,86 @@
+"""Link health on generated captures: Eb/N0 bias and interval coverage, prediction against observation."""
+
+import numpy as np
+import pytest
+from scipy import stats
+
+import iqdemod
+from iqdemod.health import assess
+from iqdemod.receiver import plan_receiver
+
+from conftest import make_capture, make_link
+
+
+@pytest.mark.parametrize("ebn0,seed", [(6.0, 61), (14.0, 141), (22.0, 221)])
+def test_capture_level_ebn0_is_unbiased(tmp_path, ebn0, seed):
+    link = make_link()
+    meta, _ = make_capture(tmp_path / "e", link=link, ebn0=(ebn0,), frames=60, freq_error_hz=-1500.0,
+                           clock_ppm=60.0, seed=seed)
+    r = assess(meta, link)
+    assert r.ebn0_db == pytest.approx(ebn0, abs=0.25)
+    lo, hi = r.ebn0_db_ci90
+    assert lo < r.ebn0_db < hi and hi - lo < 0.5
+
+
+@pytest.mark.parametrize("ebn0", [10.0, 18.0])
+def test_per_frame_interval_coverage(tmp_path, ebn0):
+    """The 90 % interval of each good frame's data-aided estimate covers the truth about 90 % of the time."""
+    link = make_link()
+    meta, _ = make_capture(tmp_path / "c", link=link, ebn0=(ebn0,), frames=150, freq_error_hz=900.0,
+                           clock_ppm=-30.0, seed=int(ebn0) + 5)
+    corr = plan_receiver(link, 1_024_000).ebn0_correction_db
+    frames = [f for f in iqdemod.decode(meta, link) if f.crc_ok]
+    assert len(frames) >= 60
+    # the interval is of the decision SNR; the truth at the decisions is Eb/N0 − correction
+    truth_dec = ebn0 - corr
+    covered = np.mean([f.ebn0.ci90_db[0] <= truth_dec <= f.ebn0.ci90_db[1] for f in frames])
+    # binomial spread for n ≈ 60–150 at p = 0.9: ±3.3 standard deviations ≈ ±0.13 at n = 60
+    assert 0.77 <= covered <= 0.99, covered
+
+
+def test_prediction_agrees_with_observed_crc_failures(tmp_path):
+    # exact binomial test of the observed frame error count against the predicted rate
+    link = make_link()
+    meta, _ = make_capture(tmp_path / "p", link=link, ebn0=(11.5,), frames=300, freq_error_hz=1200.0,
+                           clock_ppm=-50.0, seed=115)
+    r = assess(meta, link)
+    bad = r.frames - r.frames_crc_ok
+    assert r.frames == 300 and bad > 5
+    assert stats.binomtest(bad, r.frames, r.per_predicted).pvalue >= 0.01
+    assert r.per_p_value == pytest.approx(stats.binomtest(bad, r.frames, r.per_predicted).pvalue)
+    assert r.verdict == "consistent with theory"
+    lo, hi = r.per_observed_ci95  # Clopper–Pearson, REFERENCE §7
+    assert (lo, hi) == pytest.approx(stats.binomtest(bad, r.frames).proportion_ci(0.95, method="exact"))
+    # margin: Eb/N0 minus what 1e-5 needs (13.35 dB non-coherent orthogonal, REFERENCE §1, plus the receiver gain)
+    assert r.margin_db == pytest.approx(r.ebn0_db - r.ebn0_needed_db)
+    assert r.ebn0_needed_db == pytest.approx(13.3525 - r.decision_gain_db, abs=0.02)
+    assert r.noncoherent_penalty_db == pytest.approx(13.3525 - 12.5982, abs=1e-3)  # REFERENCE §1 table
+
+
+def test_transmitter_health_figures(strong_capture):
+    meta, _ = strong_capture
+    r = assess(meta, make_link())
+    assert r.freq_error_hz == pytest.approx(1200, abs=40)
+    # carrier error in ppm of the signal's absolute frequency (capture centre + offset)
+    assert r.freq_error_ppm == pytest.approx(r.freq_error_hz / (869_525_000 + 137_000) * 1e6)
+    assert r.clock_error_ppm == pytest.approx(60, abs=25)
+    assert r.mismatch_loss_db < 0.01 and r.clipped_fraction == 0
+    assert sum(r.histogram_right) > 0 and len(r.histogram_edges_db) == len(r.histogram_right) + 1
+
+
+def test_worse_than_theory_is_called_out(tmp_path):
+    """Impulsive interference (a short click in every other frame) breaks CRCs that the Eb/N0 cannot explain."""
+    link = make_link(datatype="cf32_le")
+    meta, truth = make_capture(tmp_path / "i", link=link, ebn0=(16.0,), frames=40, seed=44)
+    data = tmp_path / "i.sigmf-data"
+    x = np.fromfile(data, np.complex64)
+    rng = np.random.default_rng(1)
+    for f in truth["frames"][::2]:
+        a = int(f["sync_sample"]) + 120 * 107  # inside the payload
+        x[a : a + 200] += (0.5 * (rng.standard_normal(200) + 1j * rng.standard_normal(200))).astype(np.complex64)
+    x.tofile(data)
+    r = assess(meta, link)
+    assert r.frames == 40 and r.frames_crc_ok <= 25
+    assert r.ebn0_db > 12  # the clicks hardly move the estimate…
+    assert r.verdict == "worse than theory predicts" and r.causes  # …so the failures stand out
+    assert any("bursts of errors" in c for c in r.causes)
