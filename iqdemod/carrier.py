@@ -10,11 +10,12 @@ Two estimators, used in turn on each burst:
   IEEE Trans. IT-20, 1974, extended to a pair of tones), computed as a
   Blackman–Tukey estimate from the short-lag autocorrelation. Its pull-in is
   the search range, ±(pull-in) around the nominal centre.
-- :func:`residual_offset`, decision-directed. Within each symbol the winning
-  tone's correlator output turns by 2π·δf·T; comparing the phase of the first
-  and second half-symbol sums measures δf without being biased by the data
-  pattern (a delay-and-multiply phase-difference estimator, in the manner of
-  Kay, IEEE Trans. ASSP-37, 1989). Unambiguous for |δf| < baud.
+- :func:`residual_offset`, decision-directed. While one tone is sent, its
+  correlator output turns by 2π·δf·T from symbol to symbol; the averaged
+  phase step of consecutive same-tone symbols measures δf (a delay-and-
+  multiply phase-difference estimator, in the manner of Kay, IEEE Trans.
+  ASSP-37, 1989). Unambiguous for |δf| < baud/2; the coarse estimate leaves
+  a few hundredths of the baud.
 """
 
 from __future__ import annotations
@@ -74,25 +75,33 @@ def coarse_offset(x: np.ndarray, rate_hz: float, *, baud: float, shift_hz: float
     return float(np.clip(delta, -pull_in_hz, pull_in_hz))
 
 
-def residual_offset(half_first: np.ndarray, half_second: np.ndarray, period_samples: float, rate_hz: float) -> float:
-    """Decision-directed carrier error from the winning correlator's half-symbol sums, Hz.
+def residual_offset(z: np.ndarray, decided: np.ndarray, period_samples: float, rate_hz: float) -> float:
+    """Decision-directed carrier error from the winning correlator outputs, Hz.
+
+    The correlator references run on a common time axis, so while the same
+    tone is sent the winning output turns by 2π·δf·T from one symbol to the
+    next. The angle of Σ z[k+1]·conj(z[k]) over pairs of the same tone
+    estimates δf; pairs across a change of tone are left out, so a Gaussian
+    pulse does not pull the estimate with the data pattern.
 
     Parameters
     ----------
-    half_first, half_second : numpy.ndarray
-        Complex sums over the first and second half of each symbol, taken on the
-        tone each symbol was decided to be.
+    z : numpy.ndarray
+        Complex output of the winning correlator, per symbol.
+    decided : numpy.ndarray
+        The tone decided for each symbol.
     period_samples : float
         Symbol period in samples at `rate_hz`.
 
     Returns
     -------
     float
-        δf, Hz; 0.0 when there are no symbols.
+        δf, Hz, unambiguous for |δf| < baud/2; 0.0 with fewer than 8 pairs.
     """
-    if len(half_first) == 0:
+    same = np.flatnonzero(decided[1:] == decided[:-1])
+    if len(same) < 8:
         return 0.0
-    acc = np.sum(half_second * np.conj(half_first))
+    acc = np.sum(z[same + 1] * np.conj(z[same]))
     if acc == 0:
         return 0.0
-    return float(np.angle(acc) / (2 * np.pi * (period_samples / 2) / rate_hz))
+    return float(np.angle(acc) / (2 * np.pi * period_samples / rate_hz))

@@ -3,7 +3,7 @@
 Data path (each stage in its own module)::
 
     capture blocks ─ tune (mix + decimate) ─ bursts (energy detector)
-      └─ per burst: carrier (coarse) ─ timing ─ correlate ─ carrier (residual)
+      └─ per burst: carrier (coarse) ─ timing ─ correlate ─ carrier (phase step)
          ─ timing ─ correlate ─ square-law bits ─ framing ─ frames
 
 Streaming happens up to the burst detector, with every state carried
@@ -26,7 +26,7 @@ from . import bursts as _bursts
 from .bursts import RawBurst
 from .capture import Capture, CaptureInfo, DEFAULT_BLOCK_SAMPLES, open_capture
 from .carrier import coarse_offset, residual_offset
-from .correlate import correlate, tone_sums, window_sums
+from .correlate import correlate, tone_sums
 from .estimate import (EbN0Estimate, correct_leakage, estimate_blind, estimate_data_aided,
                        estimate_decision_directed)
 from .framing import FrameHit, bits_to_bytes, find_frames
@@ -275,35 +275,16 @@ def _demodulate(x: np.ndarray, plan: ReceiverPlan, delta_hz: float, timing: Timi
     return timing, starts, z, sums
 
 
-def _residual(sums: np.ndarray, starts: np.ndarray, z: np.ndarray, period: float, decided: np.ndarray,
-              rate: float, *, fine: bool) -> float:
-    """Residual carrier error, decision-directed, from steady stretches of one tone.
+def _residual(z: np.ndarray, decided: np.ndarray, period: float, rate: float) -> float:
+    """Residual carrier error from the phase step between consecutive symbols of the same tone, Hz.
 
-    With ``fine=False``: the half-symbol phase comparison (pull-in ±baud).
-    With ``fine=True``: the phase step between consecutive symbols of the same
-    tone in the correlator outputs `z`, a baseline twice as long with
-    full-symbol sums (pull-in ±baud/2, several times less noisy). Only symbols
-    away from a change of tone count, so a Gaussian pulse does not pull the
-    estimate with the data pattern; with too few of them every symbol is used.
+    See :func:`iqdemod.carrier.residual_offset`; `z` are the correlator
+    outputs and `decided` the tone chosen for each symbol.
     """
-    if len(starts) < 2:
+    if len(z) < 2:
         return 0.0
-    same_next = decided[1:] == decided[:-1]
-    if fine:
-        use = np.flatnonzero(same_next)
-        if len(use) < 8:
-            return 0.0
-        zw = z[np.arange(len(starts)), decided]
-        acc = np.sum(zw[use + 1] * np.conj(zw[use]))
-        return float(np.angle(acc) / (2 * np.pi * period / rate)) if acc != 0 else 0.0
-    steady = np.zeros(len(decided), dtype=bool)
-    steady[1:-1] = same_next[1:] & same_next[:-1]
-    use = np.flatnonzero(steady) if steady.sum() >= 16 else np.arange(len(starts))
-    first = window_sums(sums, starts[use], period / 2)
-    second = window_sums(sums, starts[use] + period / 2, period / 2)
-    tone = decided[use]
-    idx = np.arange(len(use))
-    return residual_offset(first[idx, tone], second[idx, tone], period, rate)
+    zw = z[np.arange(len(z)), decided]
+    return residual_offset(zw, decided, period, rate)
 
 
 def demodulate_burst(raw: RawBurst, plan: ReceiverPlan, *, capture: str = "") -> Burst:
@@ -334,17 +315,16 @@ def demodulate_burst(raw: RawBurst, plan: ReceiverPlan, *, capture: str = "") ->
     core = x[core0:core1] if core1 - core0 > 4 * plan.period else x
     delta = coarse_offset(core, rate, baud=sig.baud, shift_hz=sig.shift_hz, pull_in_hz=sig.pull_in_hz)
     timing, starts, z, sums = _demodulate(x, plan, delta)
-    # Decision-directed refinement of the carrier on the symbols the detector saw.
+    # Decision-directed refinement of the carrier on the symbols the detector saw; the coarse
+    # estimate is within a few hundredths of the baud, well inside this estimator's ±baud/2.
     inside = (starts >= core0 - plan.period) & (starts + timing.period_samples <= core1 + plan.period)
-    for fine in (False, True):
-        decided = np.argmax(np.abs(z[inside]), axis=1)
-        delta += _residual(sums, starts[inside], z[inside], timing.period_samples, decided, rate, fine=fine)
-        # the timing is estimated again only once the carrier is close
-        timing, starts, z, sums = _demodulate(x, plan, delta, None if fine else timing)
-        inside = (starts >= core0 - plan.period) & (starts + timing.period_samples <= core1 + plan.period)
+    decided = np.argmax(np.abs(z[inside]), axis=1)
+    delta += _residual(z[inside], decided, timing.period_samples, rate)
+    timing, starts, z, sums = _demodulate(x, plan, delta)
+    inside = (starts >= core0 - plan.period) & (starts + timing.period_samples <= core1 + plan.period)
     zsq = z.real**2 + z.imag**2
     decided = (zsq[:, 1] > zsq[:, 0]).astype(np.uint8)
-    residual = _residual(sums, starts[inside], z[inside], timing.period_samples, decided[inside], rate, fine=True)
+    residual = _residual(z[inside], decided[inside], timing.period_samples, rate)
     bits_all = decided  # tone index 1 is bit 1 (tones_hz already honours `invert`)
     keep = np.flatnonzero(inside)
     if keep.size == 0:
