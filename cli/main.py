@@ -181,7 +181,7 @@ def synth(output, ebn0, n_frames, freq_error, clock_ppm, gaussian_bt, gap, noise
             f"and {truth_path}")
 
 
-from . import more_commands  # noqa: E402,F401  (registers health, curves, batch, survey)
+from . import batch_cmd, more_commands, survey_cmd  # noqa: E402,F401  (register the other commands)
 
 if __name__ == "__main__":  # pragma: no cover
     main()

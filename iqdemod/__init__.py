@@ -16,6 +16,7 @@ from .errors import CaptureError, IqdemodError, LinkError
 from .link import FrameSpec, Link, SignalSpec, load_link
 from .receiver import Burst, Frame, decode, iter_bursts
 from .health import HealthReport, assess
+from . import survey  # the module; its main function is survey.survey(capture)
 
 __version__ = "0.1.0"
 
@@ -34,6 +35,7 @@ __all__ = [
     "assess",
     "HealthReport",
     "predict",
+    "survey",
     "IqdemodError",
     "CaptureError",
     "LinkError",
