@@ -144,12 +144,13 @@ class HealthAccumulator:
         good = [f for f in frames if f.crc_ok and not f.raw]
         self.frames += len(frames)
         self.good += len(good)
+        if not frames:  # no sync word found: most likely the detector triggered on noise
+            return
+        # transmitter figures from bursts that carried a frame (a noise trigger has no carrier to measure)
         n = burst.n_symbols
         self._freq += (n, n * burst.freq_error_hz, n * burst.freq_error_hz**2)
         self._clock += (n, n * burst.clock_error_ppm)
         self._resid += (n, n * burst.residual_hz**2)
-        if not frames:  # no sync word found: most likely the detector triggered on noise
-            return
         # Good frames: data-aided on their known bits. The others: blind on their own symbols,
         # so the noise at a burst's edges does not dilute the estimate.
         da = [f.ebn0 for f in good]
@@ -159,14 +160,13 @@ class HealthAccumulator:
         group = da or blind
         est = group[0] if len(group) == 1 else pool(group)  # for the shrinkage: its variance, not an exact interval
         est = correct_leakage(est, self.plan.tone_leakage)
-        if frames:
-            lo, hi = est.ci90_db
-            var = ((hi - lo) / (2 * 1.645)) ** 2 if math.isfinite(lo) and math.isfinite(hi) else math.inf
-            bad = sum(not f.crc_ok for f in frames)
-            bits = float(np.mean([f.n_symbols - self.plan.link.frame.sync_bits for f in frames]))
-            self._per_burst.append((est.ebn0_db, var, len(frames), bad, bits))
-            self._bits_sum += bits * len(frames)
-            self._bits_n += len(frames)
+        lo, hi = est.ci90_db
+        var = ((hi - lo) / (2 * 1.645)) ** 2 if math.isfinite(lo) and math.isfinite(hi) else math.inf
+        bad = sum(not f.crc_ok for f in frames)
+        bits = float(np.mean([f.n_symbols - self.plan.link.frame.sync_bits for f in frames]))
+        self._per_burst.append((est.ebn0_db, var, len(frames), bad, bits))
+        self._bits_sum += bits * len(frames)
+        self._bits_n += len(frames)
         self._histogram(burst, est)
 
     def _histogram(self, burst: Burst, est: EbN0Estimate) -> None:
