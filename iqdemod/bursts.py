@@ -3,9 +3,15 @@
 The decimated stream is cut into *detector frames* of ``frame_len`` samples
 (about 16 symbols). Each frame's statistic is the power in the signal's band
 (both tones plus the carrier pull-in), taken from an FFT of the frame, so that
-noise outside that band does not dilute a weak burst. The noise floor is the
-mean statistic of the quiet frames, updated once per *floor block* of
-``BLOCK_FRAMES`` frames. A burst starts when a frame exceeds ``ON_RATIO`` × the
+noise outside that band does not dilute a weak burst. The noise floor comes
+from minimum statistics (Martin, "Noise power spectral density estimation based
+on optimal smoothing and minimum statistics", IEEE Trans. Speech Audio Process.
+9(5), 2001): the smallest frame statistic over the last ``HISTORY_BLOCKS``
+floor blocks of ``BLOCK_FRAMES`` frames, divided by the expected minimum of as
+many pure-noise frames (each the mean of K exponential FFT bins, so Gamma(K)/K).
+A channel that is busy most of the time still shows its floor in the gaps.
+That estimate is a guard: the frames of a block below ``ON_RATIO`` × the guard
+are the quiet ones, and their mean, smoothed over blocks, is the floor. A burst starts when a frame exceeds ``ON_RATIO`` × the
 floor and ends after ``HANG_FRAMES`` frames in a row below ``OFF_RATIO`` × the
 floor (hysteresis, as in a classic squelch).
 
@@ -18,6 +24,7 @@ out in pieces that overlap by ``overlap_frames``, so memory stays bounded.
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -29,6 +36,7 @@ OFF_RATIO = 1.25
 HANG_FRAMES = 2
 PRE_FRAMES = 2
 BLOCK_FRAMES = 32
+HISTORY_BLOCKS = 8
 FRAME_SYMBOLS = 16
 
 
@@ -65,6 +73,7 @@ class DetectorState:
     pending_start: int = 0  # global index of pending[0]
     next_frame: int = 0
     floor: float | None = None
+    minima: tuple[float, ...] = ()  # the smallest frame statistic of each recent floor block
     in_burst: bool = False
     burst_start: int = 0  # global sample index where the current piece's buffer starts
     core_start: int = 0  # global index of the first frame above the on-threshold
@@ -131,11 +140,20 @@ def _frame_power(x: np.ndarray, plan: DetectorPlan) -> np.ndarray:
     return power[:, plan.band_bins].mean(axis=1) / plan.frame_len
 
 
-def _initial_floor(power: np.ndarray) -> float:
-    # Robust to bursts in the first block: average the frames near the low quantile.
-    low = np.quantile(power, 0.2)
-    quiet = power[power <= 1.5 * low]
-    return float(quiet.mean()) if quiet.size else float(low)
+@functools.lru_cache(maxsize=64)
+def _minimum_bias(n_bins: int, n_frames: int) -> float:
+    """Expected-ish minimum of `n_frames` pure-noise frame statistics, relative to their mean.
+
+    A frame statistic is the mean of `n_bins` independent exponential bins,
+    Gamma(K, 1/K); its 1/(n+1) quantile stands for the smallest of n.
+    """
+    from scipy.stats import gamma
+
+    return float(gamma.ppf(1.0 / (n_frames + 1), n_bins) / n_bins)
+
+
+def _floor_from(minima: tuple[float, ...], n_bins: int) -> float:
+    return min(minima) / _minimum_bias(n_bins, BLOCK_FRAMES * len(minima))
 
 
 def _run_block(power: np.ndarray, first_frame: int, st: dict, plan: DetectorPlan, out: list) -> None:
@@ -143,15 +161,12 @@ def _run_block(power: np.ndarray, first_frame: int, st: dict, plan: DetectorPlan
     floor = st["floor"]
     on, off = ON_RATIO * floor, OFF_RATIO * floor
     fl = plan.frame_len
-    quiet_powers = []
     for i, p in enumerate(power):
         f = first_frame + i
         if not st["in_burst"]:
             if p > on:
                 st.update(in_burst=True, core_start=f * fl, quiet=0, piece=0)
                 st["burst_start"] = max(0, (f - PRE_FRAMES) * fl)
-            else:
-                quiet_powers.append(p)
             continue
         st["quiet"] = st["quiet"] + 1 if p < off else 0
         if st["quiet"] >= HANG_FRAMES:
@@ -163,8 +178,6 @@ def _run_block(power: np.ndarray, first_frame: int, st: dict, plan: DetectorPlan
             out.append((st["burst_start"], st["core_start"], end, end, st["piece"], False))
             restart = end - plan.overlap_frames * fl
             st.update(burst_start=restart, core_start=restart, piece=st["piece"] + 1)
-    if len(quiet_powers) >= 4:
-        st["floor"] = 0.7 * floor + 0.3 * float(np.mean(quiet_powers))
 
 
 def _emit(found, st: dict, pending: np.ndarray, pending_start: int, bursts: list) -> None:
@@ -186,7 +199,9 @@ def _emit(found, st: dict, pending: np.ndarray, pending_start: int, bursts: list
 
 def _advance(state: DetectorState, y: np.ndarray, plan: DetectorPlan, *, final: bool) -> tuple[list[RawBurst], DetectorState]:
     pending = np.concatenate([state.pending, np.asarray(y, np.complex64)]) if len(y) else state.pending
-    st = {k: getattr(state, k) for k in ("floor", "in_burst", "burst_start", "core_start", "quiet", "n_bursts", "piece")}
+    st = {k: getattr(state, k)
+          for k in ("floor", "minima", "in_burst", "burst_start", "core_start", "quiet", "n_bursts", "piece")}
+    n_bins = int(plan.band_bins.sum())
     fl = plan.frame_len
     block = BLOCK_FRAMES * fl
     next_frame = state.next_frame
@@ -201,8 +216,14 @@ def _advance(state: DetectorState, y: np.ndarray, plan: DetectorPlan, *, final: 
         else:
             break
         power = _frame_power(pending[a : a + n_frames * fl], plan)
-        if st["floor"] is None:
-            st["floor"] = _initial_floor(power)
+        # Minimum statistics find the floor even on a busy channel; the quiet frames under
+        # that guard then give the precise value. The block's own frames count, so the
+        # first block is judged too.
+        st["minima"] = (st["minima"] + (float(power.min()),))[-HISTORY_BLOCKS:]
+        guard = _floor_from(st["minima"], n_bins)
+        quiet = power[power < ON_RATIO * guard]
+        level = float(quiet.mean()) if len(quiet) >= 8 else guard
+        st["floor"] = level if st["floor"] is None else 0.7 * st["floor"] + 0.3 * level
         found: list = []
         _run_block(power, next_frame, st, plan, found)
         _emit(found, st, pending, state.pending_start, bursts)
@@ -220,6 +241,7 @@ def _advance(state: DetectorState, y: np.ndarray, plan: DetectorPlan, *, final: 
         pending_start=keep,
         next_frame=next_frame,
         floor=st["floor"],
+        minima=st["minima"],
         in_burst=st["in_burst"],
         burst_start=st["burst_start"],
         core_start=st["core_start"],

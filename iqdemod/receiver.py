@@ -31,7 +31,7 @@ from .estimate import (EbN0Estimate, correct_leakage, estimate_blind, estimate_d
                        estimate_decision_directed)
 from .framing import FrameHit, bits_to_bytes, find_frames
 from .link import Link
-from .timing import Timing, symbol_starts, symbol_timing
+from .timing import SEGMENT_SYMBOLS, Timing, symbol_starts, symbol_timing
 from .tune import TunerPlan, plan_tuner, tune
 
 __all__ = ["ReceiverPlan", "Burst", "Frame", "Receiver", "DecodeSummary", "plan_receiver", "iter_bursts", "decode"]
@@ -287,8 +287,13 @@ def _residual(z: np.ndarray, decided: np.ndarray, period: float, rate: float) ->
     return residual_offset(zw, decided, period, rate)
 
 
-def demodulate_burst(raw: RawBurst, plan: ReceiverPlan, *, capture: str = "") -> Burst:
+def demodulate_burst(raw: RawBurst, plan: ReceiverPlan, *, capture: str = "", _depth: int = 0) -> list[Burst]:
     """Carrier, timing, correlation, decisions and framing for one burst.
+
+    When the timing shows that the detector joined two transmissions (a jump
+    of the symbol phase, see :class:`iqdemod.timing.Timing`), each part is
+    demodulated on its own, with its own carrier and clock, and handed out as
+    a burst of its own (the same index, the next piece numbers).
 
     Parameters
     ----------
@@ -300,7 +305,8 @@ def demodulate_burst(raw: RawBurst, plan: ReceiverPlan, *, capture: str = "") ->
 
     Returns
     -------
-    Burst
+    list of Burst
+        One, or one per transmission found in the buffer.
     """
     sig = plan.link.signal
     rate = plan.rate_hz
@@ -315,6 +321,8 @@ def demodulate_burst(raw: RawBurst, plan: ReceiverPlan, *, capture: str = "") ->
     core = x[core0:core1] if core1 - core0 > 4 * plan.period else x
     delta = coarse_offset(core, rate, baud=sig.baud, shift_hz=sig.shift_hz, pull_in_hz=sig.pull_in_hz)
     timing, starts, z, sums = _demodulate(x, plan, delta)
+    if timing.breaks and _depth < 3:
+        return _split(raw, lo, x, timing.breaks, plan, capture, _depth)
     # Decision-directed refinement of the carrier on the symbols the detector saw; the coarse
     # estimate is within a few hundredths of the baud, well inside this estimator's ±baud/2.
     inside = (starts >= core0 - plan.period) & (starts + timing.period_samples <= core1 + plan.period)
@@ -345,7 +353,28 @@ def demodulate_burst(raw: RawBurst, plan: ReceiverPlan, *, capture: str = "") ->
         piece=raw.piece,
         symbol_s=period * plan.tuner.decimation / plan.sample_rate_hz,
     )
-    return _with_frames(burst, plan, raw_start, starts[k0:k1], capture)
+    return [_with_frames(burst, plan, raw_start, starts[k0:k1], capture)]
+
+
+def _split(raw: RawBurst, lo: int, x: np.ndarray, breaks: tuple[int, ...], plan: ReceiverPlan, capture: str,
+           depth: int) -> list[Burst]:
+    """Demodulate the parts of a buffer that holds several transmissions; drop frames seen twice."""
+    seg = int(SEGMENT_SYMBOLS * plan.period)
+    cuts = [0, *breaks, len(x)]
+    out: list[Burst] = []
+    last_sample = -np.inf
+    half = 0.5 * plan.sample_rate_hz / plan.link.signal.baud
+    for i, (a, b) in enumerate(zip(cuts[:-1], cuts[1:])):
+        # overlap the neighbours by a segment: the phase jump is only known to a segment
+        a0, b0 = max(0, a - seg), min(len(x), b + seg)
+        part = RawBurst(raw.index, raw.start + lo + a0, raw.samples[lo + a0 : lo + b0], (0, b0 - a0),
+                        raw.piece + i)
+        for burst in demodulate_burst(part, plan, capture=capture, _depth=depth + 1):
+            kept = tuple(f for f in burst.frames if f.sample > last_sample + half)
+            if kept:
+                last_sample = max(f.sample for f in kept)
+            out.append(Burst(**{**burst.__dict__, "frames": kept, "piece": len(out) + raw.piece}))
+    return out
 
 
 def _estimate(z0: np.ndarray, z1: np.ndarray, bits: np.ndarray | None, leakage: float) -> EbN0Estimate:
@@ -420,27 +449,29 @@ class Receiver:
         y, self._tuner = tune(block, self.plan.tuner, self._tuner, table=self._table,
                                 polyphase=self._polyphase)
         found, self._detector = _bursts.detect(y, self.plan.detector, self._detector)
-        return [self._finish(raw) for raw in found]
+        return [burst for raw in found for burst in self._finish(raw)]
 
     def flush(self) -> list[Burst]:
         """End of input: hand out the bursts still open."""
         found, self._detector = _bursts.flush(self.plan.detector, self._detector)
-        return [self._finish(raw) for raw in found]
+        return [burst for raw in found for burst in self._finish(raw)]
 
     @property
     def noise_floor(self) -> float | None:
         """The detector's noise-floor statistic (band power per decimated sample)."""
         return self._detector.floor
 
-    def _finish(self, raw: RawBurst) -> Burst:
-        burst = demodulate_burst(raw, self.plan, capture=self._name)
-        if raw.piece:  # pieces of a long burst overlap: drop frames already handed out
-            half = 0.5 * self.plan.sample_rate_hz / self.plan.link.signal.baud
-            kept = tuple(f for f in burst.frames if f.sample > self._last_frame_sample + half)
-            burst = Burst(**{**burst.__dict__, "frames": kept})
-        if burst.frames:
-            self._last_frame_sample = max(self._last_frame_sample, max(f.sample for f in burst.frames))
-        return burst
+    def _finish(self, raw: RawBurst) -> list[Burst]:
+        out = []
+        half = 0.5 * self.plan.sample_rate_hz / self.plan.link.signal.baud
+        for burst in demodulate_burst(raw, self.plan, capture=self._name):
+            if burst.piece:  # pieces of a long burst overlap: drop frames already handed out
+                kept = tuple(f for f in burst.frames if f.sample > self._last_frame_sample + half)
+                burst = Burst(**{**burst.__dict__, "frames": kept})
+            if burst.frames:
+                self._last_frame_sample = max(self._last_frame_sample, max(f.sample for f in burst.frames))
+            out.append(burst)
+        return out
 
 
 class DecodeSummary:

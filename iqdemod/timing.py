@@ -46,11 +46,15 @@ class Timing:
     strength : float
         |symbol-rate line| / mean energy: near 0 when the burst has no
         transitions to time on.
+    breaks : tuple of int
+        Sample positions where the symbol phase jumps and stays: two
+        transmissions with too short a gap for the detector to part them.
     """
 
     first_s: float
     period_samples: float
     strength: float
+    breaks: tuple[int, ...] = ()
 
     def clock_error_ppm(self, nominal_period: float) -> float:
         """Transmitter symbol-clock error, ppm (+ = faster than nominal)."""
@@ -106,6 +110,7 @@ def symbol_timing(sums: np.ndarray, period_samples: float, *, max_ppm: float = 2
     seg_len = SEGMENT_SYMBOLS * T
     n_seg = int(len(starts) // seg_len)
     intercept, slope = 0.0, 0.0
+    breaks: tuple[int, ...] = ()
     if n_seg >= 3:
         edges = np.round(np.arange(n_seg + 1) * seg_len).astype(int)
         csum = np.concatenate([[0], np.cumsum(rot)])
@@ -122,10 +127,35 @@ def symbol_timing(sums: np.ndarray, period_samples: float, *, max_ppm: float = 2
             # slope = 2π(1/T' − 1/T)
             if abs(slope / (2 * np.pi) * T) > max_ppm * 1e-6:
                 intercept, slope = 0.0, 0.0
+            breaks = _breaks(resid, w, edges)
     period = 1.0 / (1.0 / T + slope / (2 * np.pi))
     phi0 = phase0 + intercept
     first = (-phi0 * period / (2 * np.pi)) % period
-    return Timing(float(first), float(period), strength)
+    return Timing(float(first), float(period), strength, breaks)
+
+
+def _breaks(resid: np.ndarray, w: np.ndarray, edges: np.ndarray) -> tuple[int, ...]:
+    """Segment edges where the timing phase jumps by more than a quarter symbol and stays there.
+
+    One clock drifts smoothly, by far less than that between segments; a jump
+    between two steady pairs of segments (both before, both after) is a new
+    transmission. Weak segments (little transition energy) and overwhelming
+    ones (a click of interference) are not trusted either way.
+    """
+    med = np.median(w)
+    usable = (w >= 0.3 * med) & (w <= 5.0 * med)
+    out = []
+    last = -2
+    for j in range(2, len(resid) - 1):
+        if j + 2 > len(resid) or j - last < 3 or not usable[j - 2 : j + 2].all():
+            continue
+        before, after = resid[j - 2 : j], resid[j : j + 2]
+        if abs(_wrap(before[1] - before[0])) > np.pi / 4 or abs(_wrap(after[1] - after[0])) > np.pi / 4:
+            continue
+        if abs(_wrap(np.angle(np.exp(1j * after).sum()) - np.angle(np.exp(1j * before).sum()))) > np.pi / 2:
+            out.append(int(edges[j]))
+            last = j
+    return tuple(out)
 
 
 def symbol_starts(timing: Timing, n_samples: int) -> np.ndarray:
