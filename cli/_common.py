@@ -3,8 +3,6 @@
 from __future__ import annotations
 
 import contextlib
-import functools
-import sys
 from pathlib import Path
 from typing import Any, Callable, Iterator, TextIO
 

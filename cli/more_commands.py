@@ -3,14 +3,12 @@
 from __future__ import annotations
 
 import json
-import math
 from pathlib import Path
 
 import click
 import numpy as np
 
 import iqdemod
-from iqdemod import predict as P
 
 from ._common import link_from_options, link_options, open_output, say
 from .main import main
@@ -65,6 +63,8 @@ def health_text(r) -> str:
         rows.append(("clock error", f"{r.clock_error_ppm:+.0f} ppm", "symbol clock, mean over bursts"))
     if r.mismatch_loss_db is not None:
         rows.append(("mismatch loss", f"{r.mismatch_loss_db:.3f} dB", "from the residual carrier error"))
+    rows.append(("decision gain", f"{r.decision_gain_db:+.2f} dB",
+                 "the receiver's filter: its decisions see Eb/N0 plus this (predictions include it)"))
     rows.append(("clipped", _pct(r.clipped_fraction), "samples at full scale"))
     width = max(len(a) for a, _, _ in rows)
     vwidth = max(len(b) for _, b, c in rows if c) if any(c for _, _, c in rows) else 0

@@ -1101,7 +1101,9 @@ def run_batch(
         if not (target.parent if str(target.parent) else Path(".")).is_dir():
             raise IqdemodError(f"{target}: folder {str(target.parent)!r} does not exist")
     if plot is not None:
-        _require_matplotlib()
+        from .plots import require_matplotlib
+
+        require_matplotlib()
     if cluster is not None:
         _require_distributed()
     found = _discover(paths)
@@ -1185,15 +1187,6 @@ def run_batch(
 
 
 # --------------------------------------------------------------------------- trend figure
-def _require_matplotlib():
-    try:
-        from matplotlib.backends.backend_agg import FigureCanvasAgg
-        from matplotlib.figure import Figure
-    except ImportError:
-        raise IqdemodError("the trend plot needs matplotlib: pip install 'iqdemod[plot]'") from None
-    return Figure, FigureCanvasAgg
-
-
 def _parse_time(text: str | None) -> datetime | None:
     if not text:
         return None
@@ -1226,7 +1219,9 @@ def plot_trend(source: str | os.PathLike | Sequence[CaptureRow], png: str | os.P
     IqdemodError
         When matplotlib is missing (``pip install 'iqdemod[plot]'``).
     """
-    Figure, FigureCanvasAgg = _require_matplotlib()
+    from .plots import new_figure, save_figure
+
+    fig = new_figure(figsize=(10, 6.5), layout="constrained")
     import matplotlib.dates as mdates
 
     rows = read_report(source) if isinstance(source, (str, os.PathLike)) else list(source)
@@ -1240,8 +1235,6 @@ def plot_trend(source: str | os.PathLike | Sequence[CaptureRow], png: str | os.P
             continue
         series.setdefault(r.transmitter or "unknown", []).append((t, r))
         shown += 1
-    fig = Figure(figsize=(10, 6.5), layout="constrained")
-    FigureCanvasAgg(fig)
     ax1, ax2 = fig.subplots(2, 1, sharex=True)
     pers = [r.per_observed for pts in series.values() for _, r in pts if r.per_observed]
     pers += [r.per_predicted for pts in series.values() for _, r in pts if r.per_predicted]
@@ -1285,6 +1278,4 @@ def plot_trend(source: str | os.PathLike | Sequence[CaptureRow], png: str | os.P
     left = len(rows) - shown
     fig.suptitle(f"Link trend: {shown} capture(s), {len(series)} transmitter(s)"
                  + (f"; {left} left out (failed or unmeasured)" if left else ""))
-    target = Path(png)
-    with atomic_writer(target, "wb") as fh:
-        fig.savefig(fh, format="png", dpi=110)
+    save_figure(fig, png)

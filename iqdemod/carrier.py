@@ -20,6 +20,8 @@ Two estimators, used in turn on each burst:
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 
 __all__ = ["coarse_offset", "residual_offset"]
@@ -53,26 +55,38 @@ def coarse_offset(x: np.ndarray, rate_hz: float, *, baud: float, shift_hz: float
     n_lags = min(int(np.ceil(period)), len(x) - 1)
     if n_lags < 1:
         return 0.0
-    lags = np.arange(1, n_lags + 1)
     r0 = float(np.vdot(x, x).real)
-    r = np.array([np.vdot(x[:-k], x[k:]) for k in lags])  # Σ x[n+k]·conj(x[n])
-    w = np.clip(1.0 - lags / period, 0.0, None)
-
-    def smoothed(f: np.ndarray) -> np.ndarray:
-        phase = np.exp(-2j * np.pi * np.outer(f, lags) / rate_hz)
-        return r0 + 2.0 * (phase @ (w * r)).real
-
-    step = baud / 64
-    grid = np.arange(-pull_in_hz, pull_in_hz + step / 2, step) if pull_in_hz > 0 else np.zeros(1)
-    score = smoothed(grid - shift_hz / 2) + smoothed(grid + shift_hz / 2)
+    r = np.array([np.vdot(x[:-k], x[k:]) for k in range(1, n_lags + 1)])  # Σ x[n+k]·conj(x[n])
+    grid, kernel = _search_kernel(float(rate_hz), float(baud), float(shift_hz), float(pull_in_hz), n_lags)
+    # kernel rows: both tones' weighted phase ramps, so score = Σ over tones of the smoothed spectrum
+    score = 2.0 * r0 + 2.0 * (kernel @ r).real
     i = int(np.argmax(score))
     delta = float(grid[i])
+    step = grid[1] - grid[0] if len(grid) > 1 else 0.0
     if 0 < i < len(score) - 1:  # parabolic refinement between grid points
         a, b, c = score[i - 1], score[i], score[i + 1]
         denom = a - 2 * b + c
         if denom < 0:
             delta += 0.5 * (a - c) / denom * step
     return float(np.clip(delta, -pull_in_hz, pull_in_hz))
+
+
+@functools.lru_cache(maxsize=32)
+def _search_kernel(rate_hz: float, baud: float, shift_hz: float, pull_in_hz: float, n_lags: int):
+    """The candidate offsets and, per candidate, Σ over both tones of w_k·exp(−j2π f k / rate).
+
+    It depends only on the link and the rate, so every burst of a capture shares it.
+    """
+    period = rate_hz / baud
+    lags = np.arange(1, n_lags + 1)
+    w = np.clip(1.0 - lags / period, 0.0, None)
+    step = baud / 64
+    grid = np.arange(-pull_in_hz, pull_in_hz + step / 2, step) if pull_in_hz > 0 else np.zeros(1)
+    kernel = np.zeros((len(grid), n_lags), np.complex128)
+    for tone in (-shift_hz / 2, shift_hz / 2):
+        kernel += w * np.exp(-2j * np.pi * np.outer(grid + tone, lags) / rate_hz)
+    kernel.setflags(write=False)
+    return grid, kernel
 
 
 def residual_offset(z: np.ndarray, decided: np.ndarray, period_samples: float, rate_hz: float) -> float:

@@ -23,20 +23,37 @@ import numpy as np
 __all__ = ["tone_sums", "window_sums", "correlate", "phasor"]
 
 
-def tone_sums(x: np.ndarray, rate_hz: float, tones_hz) -> np.ndarray:
-    """Running sums of `x` mixed down by each tone.
+def tone_sums(x: np.ndarray, rate_hz: float, tones_hz, *, offset_hz: float = 0.0) -> np.ndarray:
+    """Running sums of `x` mixed down by each tone (plus a common `offset_hz`).
 
     Returns
     -------
     numpy.ndarray
         complex128, shape (n_tones, len(x) + 1); row i at position t is the sum
-        of x[n]·exp(−j2π f_i n / rate) over n < t.
+        of x[n]·exp(−j2π (f_i + offset) n / rate) over n < t.
     """
     x = np.asarray(x, dtype=np.complex128)
-    out = np.zeros((len(tones_hz), len(x) + 1), dtype=np.complex128)
+    n = len(x)
+    out = np.zeros((len(tones_hz), n + 1), dtype=np.complex128)
+    shifted = x * phasor(-offset_hz / rate_hz, n) if offset_hz else x
     for i, f in enumerate(tones_hz):
-        np.cumsum(x * phasor(-f / rate_hz, len(x)), out=out[i, 1:])
+        np.cumsum(shifted * _cached_phasor(-f / rate_hz, n), out=out[i, 1:])
     return out
+
+
+_PHASORS: dict[float, np.ndarray] = {}
+
+
+def _cached_phasor(cycles_per_sample: float, n: int) -> np.ndarray:
+    """:func:`phasor` for the link's fixed frequencies, kept and grown as needed (values do not depend on n)."""
+    table = _PHASORS.get(cycles_per_sample)
+    if table is None or len(table) < n:
+        if len(_PHASORS) > 64:
+            _PHASORS.clear()
+        table = phasor(cycles_per_sample, max(n, 4096))
+        table.setflags(write=False)
+        _PHASORS[cycles_per_sample] = table
+    return table[:n]
 
 
 def phasor(cycles_per_sample: float, n: int, *, row: int = 64) -> np.ndarray:

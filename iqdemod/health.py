@@ -345,7 +345,6 @@ def assess(
     HealthReport
     """
     import contextlib
-    import warnings as _w
 
     if not 0 < target_ber < 0.5:
         raise IqdemodError(f"target BER {target_ber:g}: must be within (0, 0.5)")

@@ -3,45 +3,46 @@
 from __future__ import annotations
 
 import os
-import tempfile
-from pathlib import Path
 
 import numpy as np
 
 from . import predict as P
+from ._io import atomic_writer
 from .errors import IqdemodError
 
-__all__ = ["plot_health", "plot_curves", "save_figure", "require_matplotlib"]
+__all__ = ["plot_health", "plot_curves", "new_figure", "save_figure", "require_matplotlib"]
 
 
-def require_matplotlib():
-    """Import matplotlib with the Agg backend, or say how to install it."""
+def require_matplotlib() -> None:
+    """Check that matplotlib can be imported, or say how to install it.
+
+    Raises
+    ------
+    IqdemodError
+        When matplotlib (the ``plot`` extra) is missing.
+    """
     try:
-        import matplotlib
-
-        matplotlib.use("Agg")
-        import matplotlib.pyplot as plt
+        import matplotlib.figure  # noqa: F401
+        from matplotlib.backends.backend_agg import FigureCanvasAgg  # noqa: F401
     except ImportError:
         raise IqdemodError("plots need matplotlib: pip install 'iqdemod[plot]'") from None
-    return plt
+
+
+def new_figure(**kwargs):
+    """A matplotlib Figure on its own Agg canvas (no pyplot, no global backend switch)."""
+    require_matplotlib()
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    fig = Figure(**kwargs)
+    FigureCanvasAgg(fig)
+    return fig
 
 
 def save_figure(fig, path: str | os.PathLike) -> None:
-    """Save `fig` as PNG next to `path`, then rename it into place (never half-written)."""
-    target = Path(path)
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".png", dir=target.parent if str(target.parent) else ".")
-    os.close(fd)
-    try:
-        fig.savefig(tmp, format="png", dpi=110)
-        os.replace(tmp, target)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
-    finally:
-        import matplotlib.pyplot as plt
-
-        plt.close(fig)
+    """Write `fig` as a PNG to a temporary file beside `path`, then rename it into place."""
+    with atomic_writer(path, "wb") as fh:
+        fig.savefig(fh, format="png", dpi=110)
 
 
 def _curve_axes(ax, ebn0_db: np.ndarray, *, h: float, freq_error_T: float, sps: int | None) -> None:
@@ -61,8 +62,8 @@ def _curve_axes(ax, ebn0_db: np.ndarray, *, h: float, freq_error_T: float, sps: 
 def plot_curves(path, *, ebn0_db: np.ndarray, h: float = 1.0, freq_error_T: float = 0.0, sps: int | None = None,
                 target_ber: float | None = None) -> None:
     """BER against Eb/N0 for the link and the coherent references."""
-    plt = require_matplotlib()
-    fig, ax = plt.subplots(figsize=(7.5, 5.2))
+    fig = new_figure(figsize=(7.5, 5.2), layout="constrained")
+    ax = fig.subplots()
     _curve_axes(ax, np.asarray(ebn0_db, float), h=h, freq_error_T=freq_error_T, sps=sps)
     if target_ber:
         ax.axhline(target_ber, color="k", lw=0.8, alpha=0.6)
@@ -71,7 +72,6 @@ def plot_curves(path, *, ebn0_db: np.ndarray, h: float = 1.0, freq_error_T: floa
     ax.set_ylim(lo, 0.6)
     ax.legend(fontsize=8, loc="lower left")
     ax.set_title("Bit error probability in white Gaussian noise")
-    fig.tight_layout()
     save_figure(fig, path)
 
 
@@ -84,8 +84,8 @@ def plot_health(path, report) -> None:
         PNG to write.
     report : iqdemod.health.HealthReport
     """
-    plt = require_matplotlib()
-    fig, (ax, hx) = plt.subplots(1, 2, figsize=(12, 5.2), gridspec_kw={"width_ratios": [1.35, 1]})
+    fig = new_figure(figsize=(12, 5.2), layout="constrained")
+    ax, hx = fig.subplots(1, 2, width_ratios=[1.35, 1])
     centre = report.ebn0_db if report.ebn0_db is not None else 10.0
     grid = np.linspace(min(0.0, centre - 6), max(16.0, centre + 4), 200)
     dT = (report.residual_freq_error_hz or 0.0) / report.baud
@@ -127,5 +127,4 @@ def plot_health(path, report) -> None:
     hx.set_ylabel("symbols")
     hx.set_title("Decision statistics", fontsize=10)
     hx.grid(True, alpha=0.3)
-    fig.tight_layout()
     save_figure(fig, path)

@@ -18,7 +18,7 @@ import contextlib
 import functools
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Iterable, Iterator
+from typing import Iterator
 
 import numpy as np
 
@@ -29,7 +29,7 @@ from .carrier import coarse_offset, residual_offset
 from .correlate import correlate, tone_sums
 from .estimate import (EbN0Estimate, correct_leakage, estimate_blind, estimate_data_aided,
                        estimate_decision_directed)
-from .framing import FrameHit, bits_to_bytes, find_frames
+from .framing import bits_to_bytes, find_frames
 from .link import Link
 from .timing import SEGMENT_SYMBOLS, Timing, symbol_starts, symbol_timing
 from .tune import TunerPlan, plan_tuner, tune
@@ -267,7 +267,7 @@ def _demodulate(x: np.ndarray, plan: ReceiverPlan, delta_hz: float, timing: Timi
     is kept; otherwise it is estimated.
     """
     rate = plan.rate_hz
-    sums = tone_sums(x, rate, [f + delta_hz for f in plan.tones_hz])
+    sums = tone_sums(x, rate, plan.tones_hz, offset_hz=delta_hz)
     if timing is None:
         timing = symbol_timing(sums, plan.period)
     starts = symbol_starts(timing, len(x))

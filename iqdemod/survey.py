@@ -76,7 +76,6 @@ from scipy import fft as _fft
 from scipy import signal as _sig
 from scipy.ndimage import binary_closing, median_filter, uniform_filter1d
 
-from ._io import atomic_writer
 from .capture import Capture, DEFAULT_BLOCK_SAMPLES
 from .crc import CRC_CATALOGUE, CrcSpec
 from .errors import CaptureError, IqdemodError
@@ -1838,20 +1837,10 @@ def _characterise(capture: Capture, act: _Activity, fs: float, *, block_samples:
 
 
 def require_plotting() -> None:
-    """Check that matplotlib can be imported (with the Agg backend).
+    """Check that matplotlib is there (see :func:`iqdemod.plots.require_matplotlib`)."""
+    from .plots import require_matplotlib
 
-    Raises
-    ------
-    IqdemodError
-        When matplotlib is not installed.
-    """
-    try:
-        import matplotlib
-
-        matplotlib.use("Agg")
-        import matplotlib.figure  # noqa: F401
-    except ImportError:
-        raise IqdemodError("--plot needs matplotlib: pip install 'iqdemod[plot]'") from None
+    require_matplotlib()
 
 
 def plot_survey(result: SurveyResult, path: str | os.PathLike) -> None:
@@ -1865,10 +1854,9 @@ def plot_survey(result: SurveyResult, path: str | os.PathLike) -> None:
     IqdemodError
         When matplotlib is not installed.
     """
-    require_plotting()
-    from matplotlib.figure import Figure
+    from .plots import new_figure, save_figure
 
-    fig = Figure(figsize=(10, 7.5), layout="constrained")
+    fig = new_figure(figsize=(10, 7.5), layout="constrained")
     top, bottom = fig.subplots(2, 1, height_ratios=(1, 1.2))
     khz = result.spectrum_hz / 1e3
     if len(khz):
@@ -1917,5 +1905,4 @@ def plot_survey(result: SurveyResult, path: str | os.PathLike) -> None:
         bottom.set_title(f"one burst of signal #{result.signals.index(example) + 1}: offset "
                          f"{example.offset_hz / 1e3:.3f} kHz, {example.baud:.0f} Bd, "
                          f"shift {example.shift_hz:.0f} Hz{sync}", fontsize=10)
-    with atomic_writer(path, "wb") as fh:
-        fig.savefig(fh, format="png", dpi=110)
+    save_figure(fig, path)

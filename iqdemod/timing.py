@@ -22,9 +22,12 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import cmath
+import math
+
 import numpy as np
 
-from .correlate import phasor
+from .correlate import _cached_phasor
 
 
 __all__ = ["Timing", "symbol_timing", "symbol_starts", "SEGMENT_SYMBOLS"]
@@ -61,16 +64,18 @@ class Timing:
         return (nominal_period / self.period_samples - 1.0) * 1e6
 
 
-def _wrap(a: np.ndarray) -> np.ndarray:
+def _wrap(a):
+    """Angles folded into [−π, π) (float or array)."""
     return (a + np.pi) % (2 * np.pi) - np.pi
 
 
-def _line_fit(t: np.ndarray, y: np.ndarray, w: np.ndarray) -> tuple[float, float]:
-    sw = w.sum()
-    tm = (w * t).sum() / sw
-    ym = (w * y).sum() / sw
-    var = (w * (t - tm) ** 2).sum()
-    slope = (w * (t - tm) * (y - ym)).sum() / var if var > 0 else 0.0
+def _line_fit(t, y, w) -> tuple[float, float]:
+    """Weighted least-squares line y ≈ a + b·t over a few points (plain floats: no array overhead)."""
+    sw = sum(w)
+    tm = sum(wi * ti for wi, ti in zip(w, t)) / sw
+    ym = sum(wi * yi for wi, yi in zip(w, y)) / sw
+    var = sum(wi * (ti - tm) ** 2 for wi, ti in zip(w, t))
+    slope = sum(wi * (ti - tm) * (yi - ym) for wi, ti, yi in zip(w, t, y)) / var if var > 0 else 0.0
     return ym - slope * tm, slope
 
 
@@ -103,7 +108,7 @@ def symbol_timing(sums: np.ndarray, period_samples: float, *, max_ppm: float = 2
     z = ends - sums[:, :m]
     p = z.real**2 + z.imag**2
     e = (p[1] - p[0]) ** 2
-    rot = e * phasor(-1.0 / T, len(starts))  # starts are 0, 1, 2, …
+    rot = e * _cached_phasor(-1.0 / T, len(starts))  # starts are 0, 1, 2, …
     total = rot.sum()
     strength = float(abs(total) / max(e.sum(), 1e-300))
     phase0 = float(np.angle(total))
@@ -112,16 +117,17 @@ def symbol_timing(sums: np.ndarray, period_samples: float, *, max_ppm: float = 2
     intercept, slope = 0.0, 0.0
     breaks: tuple[int, ...] = ()
     if n_seg >= 3:
-        edges = np.round(np.arange(n_seg + 1) * seg_len).astype(int)
+        edges = [int(round(k * seg_len)) for k in range(n_seg + 1)]
         csum = np.concatenate([[0], np.cumsum(rot)])
-        seg = csum[edges[1:]] - csum[edges[:-1]]
-        centre = (edges[1:] + edges[:-1]) / 2.0
-        w = np.abs(seg)
-        if w.sum() > 0:
-            resid = _wrap(np.angle(seg * np.exp(-1j * phase0)))
+        seg = (csum[edges[1:]] - csum[edges[:-1]]).tolist()
+        centre = [(a + b) / 2.0 for a, b in zip(edges[:-1], edges[1:])]
+        w = [abs(c) for c in seg]
+        if sum(w) > 0:
+            ref = cmath.exp(-1j * phase0)
+            resid = [_wrap(cmath.phase(c * ref)) for c in seg]
             intercept, slope = _line_fit(centre, resid, w)
             # a second pass about the fitted line, so a drift near ±π does not wrap
-            resid2 = _wrap(resid - (intercept + slope * centre))
+            resid2 = [_wrap(r - (intercept + slope * c)) for r, c in zip(resid, centre)]
             i2, s2 = _line_fit(centre, resid2, w)
             intercept, slope = intercept + i2, slope + s2
             # slope = 2π(1/T' − 1/T)
@@ -134,7 +140,7 @@ def symbol_timing(sums: np.ndarray, period_samples: float, *, max_ppm: float = 2
     return Timing(float(first), float(period), strength, breaks)
 
 
-def _breaks(resid: np.ndarray, w: np.ndarray, edges: np.ndarray) -> tuple[int, ...]:
+def _breaks(resid: list[float], w: list[float], edges: list[int]) -> tuple[int, ...]:
     """Segment edges where the timing phase jumps by more than a quarter symbol and stays there.
 
     One clock drifts smoothly, by far less than that between segments; a jump
@@ -142,17 +148,19 @@ def _breaks(resid: np.ndarray, w: np.ndarray, edges: np.ndarray) -> tuple[int, .
     transmission. Weak segments (little transition energy) and overwhelming
     ones (a click of interference) are not trusted either way.
     """
-    med = np.median(w)
-    usable = (w >= 0.3 * med) & (w <= 5.0 * med)
+    med = sorted(w)[len(w) // 2]
+    usable = [0.3 * med <= wi <= 5.0 * med for wi in w]
     out = []
-    last = -2
+    last = -3
     for j in range(2, len(resid) - 1):
-        if j + 2 > len(resid) or j - last < 3 or not usable[j - 2 : j + 2].all():
+        if j - last < 3 or not all(usable[j - 2 : j + 2]):
             continue
-        before, after = resid[j - 2 : j], resid[j : j + 2]
-        if abs(_wrap(before[1] - before[0])) > np.pi / 4 or abs(_wrap(after[1] - after[0])) > np.pi / 4:
+        b0, b1, a0, a1 = resid[j - 2], resid[j - 1], resid[j], resid[j + 1]
+        if abs(_wrap(b1 - b0)) > math.pi / 4 or abs(_wrap(a1 - a0)) > math.pi / 4:
             continue
-        if abs(_wrap(np.angle(np.exp(1j * after).sum()) - np.angle(np.exp(1j * before).sum()))) > np.pi / 2:
+        before = cmath.phase(cmath.exp(1j * b0) + cmath.exp(1j * b1))
+        after = cmath.phase(cmath.exp(1j * a0) + cmath.exp(1j * a1))
+        if abs(_wrap(after - before)) > math.pi / 2:
             out.append(int(edges[j]))
             last = j
     return tuple(out)

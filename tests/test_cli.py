@@ -231,3 +231,24 @@ def test_sigterm_leaves_the_previous_output_intact(tmp_path):
         assert proc.returncode == 143 and "terminated" in err
         assert out.read_text() == "previous\n"
     assert not list(tmp_path.glob(".frames.jsonl.*"))
+
+
+@pytest.mark.parametrize(
+    "args,message",
+    [
+        (["survey", "{d}/nope.cu8", "--datatype", "cu8", "--rate", "1e6"], "no such file"),
+        (["survey", "{d}/folder"], "is a folder"),
+        (["survey", "{d}/empty.cu8", "--datatype", "cu8", "--rate", "1e6"], "empty capture"),
+        (["batch", "{d}/nope", "--baud", "9600", "--shift", "9600", "--output", "{d}/r.csv"], "no such file"),
+        (["synth", "{d}/s", "--baud", "9600", "--shift", "9600", "--ebn0", "10", "--frames", "2", "--rate", "-5"],
+         "-5 Hz: must be > 0"),
+        (["synth", "{d}/s", "--baud", "9600", "--shift", "9600", "--ebn0", "10", "--frames", "2", "--sync", "0xQQ"],
+         "not hex"),
+    ],
+)
+def test_other_commands_fail_cleanly_too(bad_inputs, args, message):
+    d, _ = bad_inputs
+    res = CliRunner().invoke(main, [a.format(d=d) for a in args] + ["-q"])
+    assert res.exit_code == 1, res.output
+    assert res.stderr.startswith("Error: ") and message in res.stderr and "Traceback" not in res.stderr
+    assert len(res.stderr.strip().splitlines()) == 1

@@ -344,7 +344,7 @@ def test_command_errors(tmp_path, monkeypatch, case_b):
     monkeypatch.setitem(sys.modules, "matplotlib", None)  # as if it were not installed
     meta, _ = case_b
     res = _run("survey", meta, "--plot", tmp_path / "p.png", "-q")
-    assert res.exit_code == 1 and "--plot needs matplotlib: pip install 'iqdemod[plot]'" in res.stderr
+    assert res.exit_code == 1 and "plots need matplotlib: pip install 'iqdemod[plot]'" in res.stderr
     assert not (tmp_path / "p.png").exists()
 
 
