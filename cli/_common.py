@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import contextlib
+import sys
 from pathlib import Path
 from typing import Any, Callable, Iterator, TextIO
 
@@ -59,7 +60,7 @@ def warn(message: str) -> None:
 def open_output(path: Path | None, *, mode: str = "w") -> Iterator[TextIO]:
     """stdout, or `path` written atomically (the old file stays if anything fails)."""
     if path is None:
-        yield click.get_text_stream("stdout")
+        yield sys.stdout
         return
     with atomic_writer(path, mode) as fh:
         yield fh

@@ -75,12 +75,16 @@ class _Group(click.Group):
 
 @contextlib.contextmanager
 def _warnings_to_stderr() -> Iterator[None]:
+    old = warnings.showwarning
+
     def show(message, category, filename, lineno, file=None, line=None):
-        warn(str(message))
+        if issubclass(category, iqdemod.capture.CaptureWarning):
+            warn(str(message))  # a capture defect: one plain line for the user
+        else:
+            old(message, category, filename, lineno, file, line)
 
     with warnings.catch_warnings():
         warnings.simplefilter("always", iqdemod.capture.CaptureWarning)
-        old = warnings.showwarning
         warnings.showwarning = show
         try:
             yield
