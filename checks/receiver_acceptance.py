@@ -16,7 +16,7 @@ import numpy as np
 from scipy import stats
 
 import iqdemod
-from iqdemod.synth import SynthConfig, synthesize
+from iqdemod.synth import SynthConfig, payload_bit_errors, synthesize
 
 
 def link_for(datatype="cf32_le", shift=9600):
@@ -53,23 +53,12 @@ def implementation_loss(workdir: Path) -> None:
         base = workdir / f"loss_{ebn0}"
         truth = synthesize(base, SynthConfig(link=link, ebn0_db=(ebn0,), n_frames=300, freq_error_hz=1500.0,
                                              clock_ppm=-60.0, seed=int(ebn0 * 100) + 7))
-        t_true = np.array([f["t_s"] for f in truth["frames"]])
-        errors = bits = 0
-        seen = set()
-        for f in iqdemod.decode(str(base) + ".sigmf-meta", link):
-            i = int(np.argmin(np.abs(t_true - f.t_s)))
-            if abs(t_true[i] - f.t_s) * 9600 > 1 or i in seen or f.truncated:
-                continue
-            seen.add(i)
-            a = np.unpackbits(np.frombuffer(bytes.fromhex(truth["frames"][i]["payload_hex"]), np.uint8))
-            b = np.unpackbits(np.frombuffer(f.payload, np.uint8))
-            errors += int((a != b).sum())
-            bits += len(a)
+        errors, bits, matched = payload_bit_errors(iqdemod.decode(str(base) + ".sigmf-meta", link), truth)
         ber = errors / bits
         lo, hi = stats.binomtest(errors, bits).proportion_ci(0.95, method="exact")
         theory = 0.5 * np.exp(-(10 ** (ebn0 / 10)) / 2)
         eff = 10 * np.log10(-2 * np.log(2 * ber))
-        print(f"  {ebn0:4.1f} dB: {errors} errors in {bits} payload bits ({len(seen)} frames), BER {ber:.3e} "
+        print(f"  {ebn0:4.1f} dB: {errors} errors in {bits} payload bits ({matched} frames), BER {ber:.3e} "
               f"[95 % {lo:.2e} … {hi:.2e}], theory {theory:.3e}, implementation loss {ebn0 - eff:+.2f} dB")
 
 

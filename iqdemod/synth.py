@@ -37,7 +37,7 @@ from .framing import PREAMBLE_BITS, frame_bits
 from .link import Link
 from ._io import atomic_writer
 
-__all__ = ["SynthConfig", "synthesize", "fsk_burst", "amplitude_for_ebn0", "sigmf_paths"]
+__all__ = ["SynthConfig", "synthesize", "fsk_burst", "amplitude_for_ebn0", "sigmf_paths", "payload_bit_errors"]
 
 TAIL_BITS = 8
 _BLOCK = 1 << 20
@@ -374,3 +374,32 @@ def synthesize(output: str | os.PathLike, cfg: SynthConfig, *, progress: bool = 
         json.dump(truth, fh, indent=1)
         fh.write("\n")
     return truth
+
+
+def payload_bit_errors(frames, truth: dict, *, tolerance_symbols: float = 1.0) -> tuple[int, int, int]:
+    """Count payload bit errors of decoded frames against a truth document from :func:`synthesize`.
+
+    Each frame is matched to the sent frame whose sync word starts nearest in
+    time (within `tolerance_symbols`); each sent frame is counted once, and a
+    truncated frame not at all.
+
+    Returns
+    -------
+    errors, bits, matched : int
+        Payload bit errors, payload bits compared, and frames matched.
+    """
+    t_true = np.array([f["t_s"] for f in truth["frames"]])
+    symbol_s = np.array([f["symbol_s"] for f in truth["frames"]])
+    errors = bits = 0
+    seen: set[int] = set()
+    for f in frames:
+        i = int(np.argmin(np.abs(t_true - f.t_s)))
+        if abs(t_true[i] - f.t_s) > tolerance_symbols * symbol_s[i] or i in seen or f.truncated:
+            continue
+        seen.add(i)
+        sent = np.unpackbits(np.frombuffer(bytes.fromhex(truth["frames"][i]["payload_hex"]), np.uint8))
+        got = np.unpackbits(np.frombuffer(f.payload, np.uint8))
+        n = min(len(sent), len(got))  # a wrong length byte: the bits it lost count as errors
+        errors += int(np.count_nonzero(sent[:n] != got[:n])) + len(sent) - n
+        bits += len(sent)
+    return errors, bits, len(seen)
