@@ -272,8 +272,3 @@ def detect(y: np.ndarray, plan: DetectorPlan, state: DetectorState) -> tuple[lis
 def flush(plan: DetectorPlan, state: DetectorState) -> tuple[list[RawBurst], DetectorState]:
     """End of stream: process the last partial block and hand out an open burst."""
     return _advance(state, np.zeros(0, np.complex64), plan, final=True)
-
-
-def noise_floor(state: DetectorState) -> float | None:
-    """The current noise-floor statistic (mean band power per sample), or None."""
-    return state.floor

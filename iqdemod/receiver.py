@@ -458,11 +458,6 @@ class Receiver:
         found, self._detector = _bursts.flush(self.plan.detector, self._detector)
         return [burst for raw in found for burst in self._finish(raw)]
 
-    @property
-    def noise_floor(self) -> float | None:
-        """The detector's noise-floor statistic (band power per decimated sample)."""
-        return self._detector.floor
-
     def _finish(self, raw: RawBurst) -> list[Burst]:
         out = []
         half = 0.5 * self.plan.sample_rate_hz / self.plan.link.signal.baud
