@@ -118,3 +118,17 @@ def test_bursts_almost_back_to_back(tmp_path):
                                freq_error_hz=300.0, clock_ppm=40.0, seed=4)
     good = sorted(f.payload.hex() for f in iqdemod.decode(meta, link) if f.crc_ok)
     assert good == sorted(truth_payloads(truth))
+
+
+@pytest.mark.parametrize("ppm", [200.0, -200.0])
+def test_clock_off_by_200_ppm_over_2000_symbols(tmp_path, ppm):
+    """Bursts of about 2 000 symbols with the symbol clock 200 ppm off: the timing line follows the drift
+    (0.4 symbol over the burst) and measures it."""
+    link = make_link(length=245, crc="CRC-32/ISO-HDLC")
+    meta, truth = make_capture(tmp_path / "long", link=link, ebn0=(14.0,), frames=8, freq_error_hz=-2000.0,
+                               clock_ppm=ppm, seed=12)
+    assert truth["frames"][0]["n_bits"] > 2000
+    with iqdemod.open_capture(meta) as cap:
+        bursts = [b for b in iqdemod.iter_bursts(cap, link) if b.frames]
+    assert sorted(f.payload.hex() for b in bursts for f in b.frames if f.crc_ok) == sorted(truth_payloads(truth))
+    assert np.mean([b.clock_error_ppm for b in bursts]) == pytest.approx(ppm, abs=10)
