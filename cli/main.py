@@ -41,9 +41,9 @@ class _Group(click.Group):
     def invoke(self, ctx: click.Context) -> Any:
         debug = bool(ctx.params.get("debug"))
         try:
-            signal.signal(signal.SIGTERM, _on_sigterm)
+            previous = signal.signal(signal.SIGTERM, _on_sigterm)
         except ValueError:  # not the main thread (e.g. inside a test runner's worker): leave it
-            pass
+            previous = None
         try:
             with _warnings_to_stderr():
                 return super().invoke(ctx)
@@ -71,6 +71,9 @@ class _Group(click.Group):
         except _Terminated:
             click.echo("Error: terminated; finished outputs are complete, unfinished ones were not written", err=True)
             ctx.exit(143)
+        finally:
+            if previous is not None:  # a library caller's own handler comes back
+                signal.signal(signal.SIGTERM, previous)
 
 
 @contextlib.contextmanager
