@@ -96,7 +96,8 @@ __all__ = [
 RAW_SUFFIXES = (".cu8", ".ci8", ".cs8", ".ci16", ".cs16", ".cf32", ".cfile", ".raw", ".iq", ".bin")
 AUDIO_SUFFIXES = (".wav", ".flac")
 SIGMF_SUFFIXES = (".sigmf-meta", ".sigmf-data")
-CAPTURE_SUFFIXES = SIGMF_SUFFIXES + AUDIO_SUFFIXES + RAW_SUFFIXES
+ARCHIVE_SUFFIXES = (".sigmf",)  # a SigMF archive: one recording in a tar
+CAPTURE_SUFFIXES = SIGMF_SUFFIXES + ARCHIVE_SUFFIXES + AUDIO_SUFFIXES + RAW_SUFFIXES
 FOLDER_LINK = "link.toml"
 N_WEAKEST = 5
 # Carrier errors of captures from one transmitter lie within this of each other (see label_transmitters).
@@ -191,7 +192,7 @@ def collect_captures(paths: Iterable[str | os.PathLike]) -> list[Path]:
     list of Path
         One entry per capture: a SigMF pair once (named by its ``.sigmf-meta``
         when it exists, so a lone ``.sigmf-data`` still counts, and then fails
-        with its reason), ``.wav``/``.flac``, and raw files with the suffixes of
+        with its reason), ``.sigmf`` archives, ``.wav``/``.flac``, and raw files with the suffixes of
         :data:`RAW_SUFFIXES`. Everything else (``*.truth.json``, reports, hidden
         files and folders) is skipped. Sorted by path; the same file reached
         twice counts once.

@@ -388,8 +388,10 @@ def _file_size(path: Path) -> int:
         raise CaptureError(f"{path}: cannot read ({exc.strerror})") from None
 
 
-def _raw_info(path: Path, data_path: Path, dt: Datatype, rate: float, *, kind: str, header: int = 0, **extra) -> CaptureInfo:
-    size = _file_size(data_path) - header
+def _raw_info(path: Path, data_path: Path, dt: Datatype, rate: float, *, kind: str, header: int = 0,
+              start: int = 0, size: int | None = None, **extra) -> CaptureInfo:
+    """Info of samples at byte `start` + `header` of `data_path`, `size` bytes long (default: to the end)."""
+    size = (_file_size(data_path) - start if size is None else size) - header
     if size < 0:
         raise CaptureError(f"{data_path}: shorter than its header_bytes ({header})")
     n = size // dt.sample_bytes
@@ -402,7 +404,7 @@ def _raw_info(path: Path, data_path: Path, dt: Datatype, rate: float, *, kind: s
         datatype=dt.name,
         sample_rate_hz=rate,
         n_samples=n,
-        header_bytes=header,
+        header_bytes=start + header,
         cut_bytes=size - n * dt.sample_bytes,
         **extra,
     )
@@ -441,6 +443,11 @@ def read_sigmf_meta(meta_path: Path) -> dict:
         raise CaptureError(f"{where}: SigMF metadata file missing") from None
     except (OSError, UnicodeDecodeError) as exc:
         raise CaptureError(f"{where}: cannot read SigMF metadata ({exc.__class__.__name__})") from None
+    return parse_sigmf_meta(text, where)
+
+
+def parse_sigmf_meta(text: str, where: str) -> dict:
+    """Check SigMF metadata text (see :func:`read_sigmf_meta`); `where` names it in errors."""
     try:
         meta = json.loads(text)
     except json.JSONDecodeError as exc:
@@ -473,23 +480,29 @@ def _open_sigmf(path: Path, meta_path: Path, data_path: Path, sample_rate: float
         raise CaptureError(f"{data_path}: SigMF data file missing (metadata {meta_path.name} has no data beside it)")
     if data_path.is_dir():
         raise CaptureError(f"{data_path}: is a folder, expected a SigMF data file")
+    return _sigmf_capture(path, meta, str(meta_path), data_path, sample_rate)
+
+
+def _sigmf_capture(path: Path, meta: dict, where: str, data_path: Path, sample_rate: float | None, *,
+                   start: int = 0, size: int | None = None) -> Capture:
+    """A capture from checked SigMF metadata and where its samples lie (a file, or a span of one)."""
     glob = meta["global"]
     try:
         dt = parse_datatype(glob["core:datatype"])
     except CaptureError as exc:
-        raise CaptureError(f"{meta_path}: {exc}") from None
+        raise CaptureError(f"{where}: {exc}") from None
     rate = glob.get("core:sample_rate", sample_rate)
     if rate is None:
-        raise CaptureError(f"{meta_path}: core:sample_rate missing: give the rate (--rate)")
-    rate = _check_rate(rate, str(meta_path))
+        raise CaptureError(f"{where}: core:sample_rate missing: give the rate (--rate)")
+    rate = _check_rate(rate, where)
     first = meta["captures"][0] if meta["captures"] else {}
     centre = first.get("core:frequency")
     if centre is not None and (isinstance(centre, bool) or not isinstance(centre, (int, float))):
-        raise CaptureError(f"{meta_path}: core:frequency {centre!r}: must be a number")
-    start = first.get("core:datetime")
+        raise CaptureError(f"{where}: core:frequency {centre!r}: must be a number")
+    start_time = first.get("core:datetime")
     header = first.get("core:header_bytes", 0)
     if not isinstance(header, int) or header < 0:
-        raise CaptureError(f"{meta_path}: core:header_bytes {header!r}: must be a whole number >= 0")
+        raise CaptureError(f"{where}: core:header_bytes {header!r}: must be a whole number >= 0")
     info = _raw_info(
         path,
         data_path,
@@ -497,11 +510,42 @@ def _open_sigmf(path: Path, meta_path: Path, data_path: Path, sample_rate: float
         rate,
         kind="sigmf",
         header=header,
+        start=start,
+        size=size,
         centre_hz=None if centre is None else float(centre),
-        start_time=start if isinstance(start, str) else None,
-        meta_path=str(meta_path),
+        start_time=start_time if isinstance(start_time, str) else None,
+        meta_path=where,
     )
     return Capture(info, _datatype=dt)
+
+
+def _open_sigmf_archive(path: Path, sample_rate: float | None) -> Capture:
+    """A ``.sigmf`` archive (SigMF: a tar of one recording's meta and data files), read in place.
+
+    The data member of an uncompressed tar is one contiguous span of the file,
+    so it streams like a raw file with a header; nothing is extracted.
+    """
+    import tarfile
+
+    try:
+        with tarfile.open(path, mode="r:") as tar:
+            members = [m for m in tar.getmembers() if m.isfile()]
+            metas = [m for m in members if m.name.endswith(_SIGMF_META)]
+            if len(metas) != 1:
+                raise CaptureError(f"{path}: SigMF archive holds {len(metas)} recordings: expected exactly 1")
+            base = metas[0].name[: -len(_SIGMF_META)]
+            datas = [m for m in members if m.name == base + _SIGMF_DATA]
+            if not datas:
+                raise CaptureError(f"{path}: SigMF archive has {metas[0].name} but no {base + _SIGMF_DATA}")
+            text = tar.extractfile(metas[0]).read().decode("utf-8")
+            data = datas[0]
+    except tarfile.ReadError as exc:
+        raise CaptureError(f"{path}: not an uncompressed SigMF archive (tar): {exc}") from None
+    except UnicodeDecodeError:
+        raise CaptureError(f"{path}: SigMF archive metadata is not UTF-8 text") from None
+    where = f"{path}:{metas[0].name}"
+    meta = parse_sigmf_meta(text, where)
+    return _sigmf_capture(path, meta, where, path, sample_rate, start=data.offset_data, size=data.size)
 
 
 def _open_audio(path: Path) -> Capture:
@@ -533,8 +577,9 @@ def open_capture(path: str | os.PathLike, *, datatype: str | None = None, sample
     ----------
     path : str or PathLike
         A SigMF ``.sigmf-meta`` or ``.sigmf-data`` file (either names the pair),
-        a ``.wav``/``.flac`` file with I in the left channel and Q in the right,
-        or a raw file of interleaved IQ.
+        a ``.sigmf`` archive (uncompressed tar of one pair), a ``.wav``/``.flac``
+        file with I in the left channel and Q in the right, or a raw file of
+        interleaved IQ.
     datatype : str, optional
         SigMF datatype of a raw file (required for raw files).
     sample_rate : float, optional
@@ -567,6 +612,8 @@ def open_capture(path: str | os.PathLike, *, datatype: str | None = None, sample
         raise CaptureError(f"{p}: is a folder, expected a capture file")
     if p.suffix.lower() in _AUDIO_SUFFIXES:
         return _open_audio(p)
+    if p.suffix.lower() == ".sigmf":
+        return _open_sigmf_archive(p, sample_rate)
     if datatype is None:
         raise CaptureError(f"{p}: raw capture without metadata: give its datatype (--datatype, e.g. cu8)")
     if sample_rate is None:

@@ -213,3 +213,22 @@ def test_reader_on_random_bytes(tmp_path_factory, data, name, block):
             got = read_all(cap, block)
     assert len(got) == len(data) // size
     assert np.all(np.isfinite(got)) and got.dtype == np.complex64
+
+
+def test_sigmf_archive_is_read_in_place(tmp_path):
+    """A .sigmf archive (SigMF spec: a tar of NAME.sigmf-meta and NAME.sigmf-data) streams like the pair."""
+    import tarfile
+
+    base = tmp_path / "rec"
+    data = np.arange(-50, 50, dtype="<i2")
+    write_sigmf(base, data, SIGMF_META)
+    archive = tmp_path / "rec.sigmf"
+    with tarfile.open(archive, "w") as tar:
+        tar.add(str(base) + ".sigmf-meta", arcname="rec/rec.sigmf-meta")
+        tar.add(str(base) + ".sigmf-data", arcname="rec/rec.sigmf-data")
+    with open_capture(archive) as cap, open_capture(str(base) + ".sigmf-meta") as pair:
+        assert cap.info.n_samples == pair.info.n_samples == 50 and cap.info.centre_hz == 433.92e6
+        np.testing.assert_array_equal(read_all(cap, 7), read_all(pair, 7))
+    (tmp_path / "bad.sigmf").write_bytes(b"not a tar at all" * 40)
+    with pytest.raises(CaptureError, match="not an uncompressed SigMF archive"):
+        open_capture(tmp_path / "bad.sigmf")
