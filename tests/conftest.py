@@ -3,10 +3,18 @@
 from __future__ import annotations
 
 import json
+import os
 from pathlib import Path
 
 import numpy as np
 import pytest
+from hypothesis import settings
+
+# CI (CI=true) runs the property-based tests with a fixed seed sequence, so a landing never hangs on
+# luck; locally every run explores new examples.
+settings.register_profile("ci", derandomize=True, print_blob=True)
+if os.environ.get("CI"):
+    settings.load_profile("ci")
 
 import iqdemod
 from iqdemod.synth import SynthConfig, synthesize
