@@ -633,6 +633,16 @@ def _rician_fisher(snr: float) -> np.ndarray:
     return np.array([[j_ss, j_sn], [j_sn, j_nn]])
 
 
+def _crb_arguments(ebn0, n_symbols) -> np.ndarray:
+    """The bounds' shared argument checks; returns Eb/N0 as a float array."""
+    g = np.asarray(ebn0, dtype=float)
+    if np.any(~(g > 0)) or np.any(~np.isfinite(g)):
+        raise LinkError(f"ebn0 {ebn0!r}: must be a finite linear Eb/N0 > 0")
+    if isinstance(n_symbols, bool) or int(n_symbols) != n_symbols or n_symbols < 1:
+        raise LinkError(f"n_symbols {n_symbols!r}: must be an integer >= 1")
+    return g
+
+
 def crb_normalised_variance_noncoherent_da(ebn0, n_symbols):
     """Cramér–Rao bound on ``var(rho_hat) / rho^2``, non-coherent BFSK, data-aided.
 
@@ -662,11 +672,7 @@ def crb_normalised_variance_noncoherent_da(ebn0, n_symbols):
     float or ndarray
         Normalised variance bound.
     """
-    g = np.asarray(ebn0, dtype=float)
-    if np.any(~(g > 0)) or np.any(~np.isfinite(g)):
-        raise LinkError(f"ebn0 {ebn0!r}: must be a finite linear Eb/N0 > 0")
-    if isinstance(n_symbols, bool) or int(n_symbols) != n_symbols or n_symbols < 1:
-        raise LinkError(f"n_symbols {n_symbols!r}: must be an integer >= 1")
+    g = _crb_arguments(ebn0, n_symbols)
 
     def one(s: float) -> float:
         j = _rician_fisher(s)
@@ -706,11 +712,7 @@ def crb_normalised_variance_coherent_da(ebn0, n_symbols):
     >>> round(crb_normalised_variance_coherent_da(1.0, 1000), 6)
     0.003
     """
-    g = np.asarray(ebn0, dtype=float)
-    if np.any(~(g > 0)) or np.any(~np.isfinite(g)):
-        raise LinkError(f"ebn0 {ebn0!r}: must be a finite linear Eb/N0 > 0")
-    if isinstance(n_symbols, bool) or int(n_symbols) != n_symbols or n_symbols < 1:
-        raise LinkError(f"n_symbols {n_symbols!r}: must be an integer >= 1")
+    g = _crb_arguments(ebn0, n_symbols)
     out = (2.0 * g + g * g) / (int(n_symbols) * g * g)
     return float(out) if g.ndim == 0 else out
 

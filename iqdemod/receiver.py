@@ -85,9 +85,8 @@ class ReceiverPlan:
         ratios = []
         for tone in self.tones_hz:
             omega = 2 * np.pi * tone / self.rate_hz
-            for a in np.arange(8) / 8:
-                m = np.arange(int(np.floor(a)), int(np.ceil(a + period)) + 1)
-                w = np.clip(np.minimum(m + 1, a + period) - np.maximum(m, a), 0, None)
+            for a in _WINDOW_STARTS:
+                m, w = _window_weights(a, period)
                 v = np.zeros(len(m) * d, np.complex128)
                 v[::d] = w * np.exp(-1j * omega * m)
                 c = np.convolve(v, h[::-1])
@@ -105,9 +104,8 @@ class ReceiverPlan:
         f0, f1 = self.tones_hz
         omega = 2 * np.pi * (f0 - f1) / self.rate_hz
         vals = []
-        for a in np.arange(8) / 8:
-            m = np.arange(int(np.floor(a)), int(np.ceil(a + period)) + 1)
-            w = np.clip(np.minimum(m + 1, a + period) - np.maximum(m, a), 0, None)
+        for a in _WINDOW_STARTS:
+            m, w = _window_weights(a, period)
             vals.append(abs(np.sum(w * np.exp(1j * omega * m)) / period) ** 2)
         leak = float(np.mean(vals))
         return 0.0 if leak < 1e-4 else leak
@@ -120,6 +118,18 @@ class ReceiverPlan:
     def input_sample(self, burst_start: int, position: float) -> float:
         """Input-sample index of a position in a burst buffer (cumulative-sum convention)."""
         return (burst_start + position - 0.5) * self.tuner.decimation - self.tuner.delay_samples
+
+
+_WINDOW_STARTS = np.arange(8) / 8  # fractional window starts the plan's figures are averaged over
+
+
+def _window_weights(start: float, length: float) -> tuple[np.ndarray, np.ndarray]:
+    """Samples m a correlator window [start, start + length) touches, and the share of each in it.
+
+    The same weights :func:`iqdemod.correlate.window_sums` applies through its running sums.
+    """
+    m = np.arange(int(np.floor(start)), int(np.ceil(start + length)) + 1)
+    return m, np.clip(np.minimum(m + 1, start + length) - np.maximum(m, start), 0, None)
 
 
 def plan_receiver(link: Link, sample_rate_hz: float, centre_hz: float | None = None) -> ReceiverPlan:
