@@ -64,7 +64,7 @@ def batch(ctx, paths, report, frames, jobs, resume, cluster, target_ber, plot, q
     """Assess every capture of an archive and write one CSV row per capture.
 
     PATH is a capture file, a folder (searched recursively) or a glob pattern
-    (quote it; ** reaches into subfolders). A SigMF pair counts once; WAV/FLAC
+    (quote it; ** reaches into subfolders). A SigMF pair counts once; .sigmf archives, WAV/FLAC
     and raw IQ files (.cu8 .ci8 .cs8 .ci16 .cs16 .cf32 .cfile .raw .iq .bin,
     which need --datatype and --rate or a profile's [capture] table) are
     taken too; anything else, *.truth.json included, is skipped.
