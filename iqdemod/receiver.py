@@ -15,6 +15,7 @@ decision statistics of each symbol for the link-health stage.
 from __future__ import annotations
 
 import contextlib
+import dataclasses
 import functools
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -340,12 +341,10 @@ def demodulate_burst(raw: RawBurst, plan: ReceiverPlan, *, capture: str = "", _d
     inside = (starts >= core0 - plan.period) & (starts + timing.period_samples <= core1 + plan.period)
     decided = np.argmax(np.abs(z[inside]), axis=1)
     delta += _residual(z[inside], decided, timing.period_samples, rate)
-    timing, starts, z, sums = _demodulate(x, plan, delta, timing)
-    inside = (starts >= core0 - plan.period) & (starts + timing.period_samples <= core1 + plan.period)
+    timing, starts, z, _ = _demodulate(x, plan, delta, timing)  # same timing, so same starts and `inside`
     zsq = z.real**2 + z.imag**2
-    decided = (zsq[:, 1] > zsq[:, 0]).astype(np.uint8)
+    decided = (zsq[:, 1] > zsq[:, 0]).astype(np.uint8)  # tone 1 is bit 1 (tones_hz honours `invert`)
     residual = _residual(z[inside], decided[inside], timing.period_samples, rate)
-    bits_all = decided  # tone index 1 is bit 1 (tones_hz already honours `invert`)
     keep = np.flatnonzero(inside)
     if keep.size == 0:
         keep = np.arange(len(starts))
@@ -360,12 +359,25 @@ def demodulate_burst(raw: RawBurst, plan: ReceiverPlan, *, capture: str = "", _d
         clock_error_ppm=timing.clock_error_ppm(plan.period),
         z0sq=zsq[k0:k1, 0].copy(),
         z1sq=zsq[k0:k1, 1].copy(),
-        bits=bits_all[k0:k1].copy(),
+        bits=decided[k0:k1].copy(),
         timing_strength=timing.strength,
         piece=raw.piece,
         symbol_s=period * plan.tuner.decimation / plan.sample_rate_hz,
     )
     return [_with_frames(burst, plan, raw_start, starts[k0:k1], capture)]
+
+
+def _drop_repeats(burst: Burst, last_sample: float, half_symbol: float) -> tuple[Burst, float]:
+    """`burst` without the frames that overlapping buffers already handed out (same sync position).
+
+    Returns the burst and the latest frame sample seen so far.
+    """
+    kept = tuple(f for f in burst.frames if f.sample > last_sample + half_symbol)
+    if len(kept) != len(burst.frames):
+        burst = dataclasses.replace(burst, frames=kept)
+    if kept:
+        last_sample = max(last_sample, max(f.sample for f in kept))
+    return burst, last_sample
 
 
 def _split(raw: RawBurst, lo: int, x: np.ndarray, breaks: tuple[int, ...], plan: ReceiverPlan, capture: str,
@@ -382,10 +394,8 @@ def _split(raw: RawBurst, lo: int, x: np.ndarray, breaks: tuple[int, ...], plan:
         part = RawBurst(raw.index, raw.start + lo + a0, raw.samples[lo + a0 : lo + b0], (0, b0 - a0),
                         raw.piece + i)
         for burst in demodulate_burst(part, plan, capture=capture, _depth=depth + 1):
-            kept = tuple(f for f in burst.frames if f.sample > last_sample + half)
-            if kept:
-                last_sample = max(f.sample for f in kept)
-            out.append(Burst(**{**burst.__dict__, "frames": kept, "piece": len(out) + raw.piece}))
+            burst, last_sample = _drop_repeats(burst, last_sample, half)
+            out.append(dataclasses.replace(burst, piece=len(out) + raw.piece))
     return out
 
 
@@ -430,7 +440,7 @@ def _with_frames(burst: Burst, plan: ReceiverPlan, raw_start: int, starts: np.nd
                       hit.sync_errors, burst.freq_error_hz, db, hit.truncated,
                       first_symbol=a, n_symbols=b - a, ebn0=est)
             )
-    return Burst(**{**burst.__dict__, "frames": tuple(frames)})
+    return dataclasses.replace(burst, frames=tuple(frames))
 
 
 class Receiver:
@@ -473,9 +483,8 @@ class Receiver:
         half = 0.5 * self.plan.sample_rate_hz / self.plan.link.signal.baud
         for burst in demodulate_burst(raw, self.plan, capture=self._name):
             if burst.piece:  # pieces of a long burst overlap: drop frames already handed out
-                kept = tuple(f for f in burst.frames if f.sample > self._last_frame_sample + half)
-                burst = Burst(**{**burst.__dict__, "frames": kept})
-            if burst.frames:
+                burst, self._last_frame_sample = _drop_repeats(burst, self._last_frame_sample, half)
+            elif burst.frames:
                 self._last_frame_sample = max(self._last_frame_sample, max(f.sample for f in burst.frames))
             out.append(burst)
         return out
