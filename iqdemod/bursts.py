@@ -24,6 +24,7 @@ out in pieces that overlap by ``overlap_frames``, so memory stays bounded.
 
 from __future__ import annotations
 
+import dataclasses
 import functools
 from dataclasses import dataclass, field
 
@@ -197,10 +198,13 @@ def _emit(found, st: dict, pending: np.ndarray, pending_start: int, bursts: list
             st["n_bursts"] += 1
 
 
+# the fields the hysteresis works on, carried through a dict while a block is processed
+_CARRIED = ("floor", "minima", "in_burst", "burst_start", "core_start", "quiet", "n_bursts", "piece")
+
+
 def _advance(state: DetectorState, y: np.ndarray, plan: DetectorPlan, *, final: bool) -> tuple[list[RawBurst], DetectorState]:
     pending = np.concatenate([state.pending, np.asarray(y, np.complex64)]) if len(y) else state.pending
-    st = {k: getattr(state, k)
-          for k in ("floor", "minima", "in_burst", "burst_start", "core_start", "quiet", "n_bursts", "piece")}
+    st = {k: getattr(state, k) for k in _CARRIED}
     n_bins = int(plan.band_bins.sum())
     fl = plan.frame_len
     block = BLOCK_FRAMES * fl
@@ -236,19 +240,7 @@ def _advance(state: DetectorState, y: np.ndarray, plan: DetectorPlan, *, final: 
     keep = st["burst_start"] if st["in_burst"] else max(0, (next_frame - PRE_FRAMES) * fl)
     keep = max(keep, state.pending_start)
     pending = pending[keep - state.pending_start :].copy()
-    return bursts, DetectorState(
-        pending=pending,
-        pending_start=keep,
-        next_frame=next_frame,
-        floor=st["floor"],
-        minima=st["minima"],
-        in_burst=st["in_burst"],
-        burst_start=st["burst_start"],
-        core_start=st["core_start"],
-        quiet=st["quiet"],
-        n_bursts=st["n_bursts"],
-        piece=st["piece"],
-    )
+    return bursts, dataclasses.replace(state, pending=pending, pending_start=keep, next_frame=next_frame, **st)
 
 
 def detect(y: np.ndarray, plan: DetectorPlan, state: DetectorState) -> tuple[list[RawBurst], DetectorState]:
