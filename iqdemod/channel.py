@@ -1,0 +1,433 @@
+"""The receiver's front end: DC removal, IQ-imbalance correction and the channel filter, in one FFT pass.
+
+Cheap receivers add their own defects to every recording: a DC offset on the
+centre, and an IQ imbalance that mirrors every strong signal onto the other
+side of the centre. Neighbours share the band. This stage removes all three
+before anything else looks at the samples, and hands out the signal's channel
+mixed to 0 Hz and decimated to a few samples per symbol.
+
+It works by *overlap-save fast convolution* (Stockham, "High-speed
+convolution and correlation", AFIPS 1966; Oppenheim & Schafer,
+*Discrete-Time Signal Processing*, the section on block convolution). The
+input is cut into blocks of N samples on a fixed grid of the global sample
+index, each overlapping the one before by the filter's length. One FFT per
+block gives, for the price of that FFT:
+
+- **DC removal**: bin 0 holds the block's mean, and is set to zero. This is a
+  block-mean DC blocker (common practice; shared/REFERENCE.md §11 names the
+  usual models) with its state, the unfinished block, carried across reads.
+- **Mixing**: the signal's centre is a whole bin c; taking the K bins around
+  it is the mix to 0 Hz. The remainder below half a bin is removed after
+  decimation, where samples are few.
+- **IQ-imbalance correction**: an imbalance turns the ideal, circular signal
+  s into x = K1·s + K2·s*; the image is undone by y = x − w·x*, with w chosen
+  so that y is circular again (E[y²] = 0). That is the circularity-based
+  compensator of Anttila, Valkama & Renfors ("Circularity-based I/Q imbalance
+  compensation in wideband direct-conversion receivers", IEEE Trans. Veh.
+  Technol. 57(4), 2008, cited from memory). The moments E[x²] and E[|x|²] are
+  summed over every block so far, including the current one, so the first
+  block is corrected too. In the FFT, x* is the conjugate of the mirrored
+  bins, so the correction costs O(K) per block.
+- **Channel filter and decimation**: the K bins are weighted by the response
+  of a linear-phase Kaiser-window FIR (Kaiser, 1974) whose pass band holds the
+  signal (Carson's rule, shift + 2·baud, widened by the carrier pull-in) and
+  whose stop band, at least ``STOPBAND_DB`` down, starts half a baud further
+  out. A K-point inverse FFT of them is the filtered signal decimated by
+  D = N / K. The filter can be as sharp as the overlap allows, at no extra
+  cost per sample.
+
+The output equals, up to the filter's stop-band level, the linear convolution
+of the corrected input with ``taps`` sampled every D input samples: output m
+is centred on input sample m·D − ``delay_samples``, as the receiver expects.
+The state (:class:`ChannelState`) goes in and comes back, as scipy.signal's
+``zi``/``zf`` do; the caller's state is never changed, and the output does not
+depend on how the input was cut into reads.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import functools
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from .link import SignalSpec
+
+__all__ = ["ChannelPlan", "ChannelState", "FrontEndMoments", "FrontEndReport", "plan_channel", "channelize",
+           "flush_channel", "STOPBAND_DB"]
+
+STOPBAND_DB = 70.0
+MIN_FFT = 1 << 14  # smallest block: keeps the per-block overhead small against the FFT itself
+
+
+@dataclass(frozen=True, eq=False)
+class ChannelPlan:
+    """Everything fixed about the front end for one capture.
+
+    Attributes
+    ----------
+    sample_rate_hz : float
+        Input rate.
+    offset_hz : float
+        The frequency mixed to 0 Hz (the signal centre relative to the capture centre).
+    decimation : int
+        D, input samples per output sample.
+    taps : numpy.ndarray
+        float64 linear-phase low-pass FIR at the input rate, unit gain at 0 Hz:
+        the filter the FFT applies (also used for the receiver's noise-bandwidth figure).
+    passband_hz, stopband_hz : float
+        Edges of the flat band and of the stop band, Hz from the signal centre.
+    fft_size : int
+        N, samples per FFT block, a multiple of D.
+    """
+
+    sample_rate_hz: float
+    offset_hz: float
+    decimation: int
+    taps: np.ndarray
+    passband_hz: float
+    stopband_hz: float
+    fft_size: int
+
+    def __post_init__(self) -> None:
+        if self.fft_size % self.decimation:
+            raise ValueError(f"FFT size {self.fft_size} is not a multiple of the decimation {self.decimation}")
+        if len(self.taps) > self.fft_size // 2:
+            raise ValueError(f"filter of {len(self.taps)} taps is too long for FFT blocks of {self.fft_size}")
+
+    @property
+    def output_rate_hz(self) -> float:
+        return self.sample_rate_hz / self.decimation
+
+    @property
+    def delay_samples(self) -> float:
+        """Group delay of the filter, input samples."""
+        return (len(self.taps) - 1) / 2
+
+    @property
+    def n_bins(self) -> int:
+        """K, the bins kept per block (the inverse FFT's size)."""
+        return self.fft_size // self.decimation
+
+    @property
+    def lead_outputs(self) -> int:
+        """Outputs at the start of each block spoilt by the circular wrap, discarded."""
+        return -(-(len(self.taps) - 1) // self.decimation)
+
+    @property
+    def hop(self) -> int:
+        """New input samples per block (a multiple of D)."""
+        return self.fft_size - self.lead_outputs * self.decimation
+
+    @property
+    def centre_bin(self) -> int:
+        return int(round(self.offset_hz * self.fft_size / self.sample_rate_hz))
+
+    @property
+    def coarse_hz(self) -> float:
+        return self.centre_bin * self.sample_rate_hz / self.fft_size
+
+    @property
+    def fine_hz(self) -> float:
+        return self.offset_hz - self.coarse_hz
+
+    @functools.cached_property
+    def bins(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(kept bins, their mirror bins −k, filter response on them), in the inverse FFT's order."""
+        n, k = self.fft_size, self.n_bins
+        rel = np.fft.fftfreq(k, 1.0 / k).astype(np.int64)  # 0, 1, …, K/2−1, −K/2, …, −1
+        sel = (self.centre_bin + rel) % n
+        mirror = (-sel) % n
+        # the FIR's N-point DFT at the kept offsets; 1/D folds in the inverse FFT's scaling
+        m = np.arange(len(self.taps))
+        resp = np.exp(-2j * np.pi * np.outer(rel, m) / n) @ self.taps / self.decimation
+        return sel, mirror, resp.astype(np.complex64)
+
+    def initial_state(self) -> "ChannelState":
+        """The state before the first sample: the lead of the first block is zeros."""
+        lead = self.lead_outputs * self.decimation
+        return ChannelState(pending=np.zeros(lead, np.complex64), n_in=0, n_out=0, moments=FrontEndMoments())
+
+
+@dataclass(frozen=True)
+class FrontEndMoments:
+    """Running sums over the input, for the DC level and the IQ imbalance.
+
+    Attributes
+    ----------
+    n : int
+        Input samples summed.
+    dc_sum : complex
+        Σ of each block's mean times its new samples (for the mean DC level).
+    power : float
+        Σ|x − m|² (C), the block means m removed.
+    pseudo : complex
+        Σ(x − m)² (P), the non-circular part an imbalance leaves.
+    pseudo_after : complex
+        The same sum for the corrected samples (what the correction left).
+    power_after : float
+    """
+
+    n: int = 0
+    dc_sum: complex = 0j
+    power: float = 0.0
+    pseudo: complex = 0j
+    pseudo_after: complex = 0j
+    power_after: float = 0.0
+
+
+@dataclass(frozen=True, eq=False)
+class ChannelState:
+    """What the front end carries between reads.
+
+    Attributes
+    ----------
+    pending : numpy.ndarray
+        complex64 input samples not yet consumed, from the next block's first sample on
+        (the lead of zeros before the first sample included).
+    n_in : int
+        Input samples fed so far.
+    n_out : int
+        Output samples handed out so far (the index of the next one).
+    moments : FrontEndMoments
+    """
+
+    pending: np.ndarray
+    n_in: int
+    n_out: int
+    moments: FrontEndMoments
+
+
+@dataclass(frozen=True)
+class FrontEndReport:
+    """What the front end measured about the receiver that made the capture.
+
+    Attributes
+    ----------
+    dc_dbfs : float or None
+        The DC offset's level, dB re full scale (1.0); None before any sample.
+    iq_gain_db : float or None
+        Q-branch gain relative to I, dB (shared/REFERENCE.md §11: g).
+    iq_phase_deg : float or None
+        Q-branch phase error φ, degrees.
+    image_rejection_db : float or None
+        Image rejection of the capture as recorded, dB (capped at ``MAX_IRR_DB``).
+    image_rejection_after_db : float or None
+        What is left after the correction, dB (capped likewise).
+    """
+
+    dc_dbfs: float | None = None
+    iq_gain_db: float | None = None
+    iq_phase_deg: float | None = None
+    image_rejection_db: float | None = None
+    image_rejection_after_db: float | None = None
+
+
+MAX_IRR_DB = 80.0
+
+
+def image_rejection_db(power: float, pseudo: complex) -> float:
+    """Image rejection from the moments: x = K1·s + K2·s* gives |E x²|/E|x|² = 2r/(1 + r²), r = |K2/K1|.
+
+    Returns −20·log10 r, at most ``MAX_IRR_DB``.
+    """
+    if power <= 0:
+        return MAX_IRR_DB
+    rho = min(abs(pseudo) / power, 1.0)
+    if rho <= 0:
+        return MAX_IRR_DB
+    r = (1.0 - math.sqrt(max(0.0, 1.0 - rho * rho))) / rho
+    return min(MAX_IRR_DB, -20.0 * math.log10(r)) if r > 0 else MAX_IRR_DB
+
+
+def front_end_report(moments: FrontEndMoments) -> FrontEndReport:
+    """The DC level and IQ imbalance behind a run's moments (shared/REFERENCE.md §11)."""
+    if moments.n == 0:
+        return FrontEndReport()
+    dc = abs(moments.dc_sum) / moments.n
+    dc_dbfs = 20 * math.log10(dc) if dc > 0 else -math.inf
+    c, p = moments.power / moments.n, moments.pseudo / moments.n
+    ii, qq, iq = (c + p.real) / 2, (c - p.real) / 2, p.imag / 2
+    if ii <= 0 or qq <= 0:
+        return FrontEndReport(dc_dbfs=dc_dbfs)
+    g = math.sqrt(qq / ii)
+    phi = math.asin(max(-1.0, min(1.0, iq / math.sqrt(ii * qq))))
+    return FrontEndReport(
+        dc_dbfs=dc_dbfs,
+        iq_gain_db=20 * math.log10(g),
+        iq_phase_deg=math.degrees(phi),
+        image_rejection_db=image_rejection_db(moments.power, moments.pseudo),
+        image_rejection_after_db=image_rejection_db(moments.power_after, moments.pseudo_after),
+    )
+
+
+def _compensator(power: float, pseudo: complex) -> complex:
+    """w such that y = x − w·x* is circular: w²·P* − 2w·C + P = 0, the small root."""
+    if power <= 0 or pseudo == 0:
+        return 0j
+    disc = math.sqrt(max(0.0, power * power - abs(pseudo) ** 2))
+    return (power - disc) / pseudo.conjugate()
+
+
+def plan_channel(sample_rate_hz: float, signal: SignalSpec, offset_hz: float) -> ChannelPlan:
+    """Choose the decimation, design the channel filter and size the FFT blocks for a signal.
+
+    The pass band is ±(shift/2 + baud + pull-in) around the signal centre:
+    Carson's bandwidth, shift + 2·baud, widened by the largest carrier error
+    searched for. The stop band starts half a baud further out. The output
+    rate is at least eight samples per symbol and holds the whole stop-band
+    edge.
+    """
+    fs = float(sample_rate_hz)
+    passband = min(signal.shift_hz / 2 + signal.baud + signal.pull_in_hz, 0.45 * fs)
+    stopband = min(passband + signal.baud / 2, 0.5 * fs)
+    decimation = max(1, int(fs // max(2.0 * stopband, 8.0 * signal.baud)))
+    out_rate = fs / decimation
+    stopband = min(stopband, out_rate / 2)
+    if stopband - passband < 1e-3 * fs:  # no room for a transition: the capture band is the channel
+        passband = max(stopband - 1e-3 * fs, 0.0)
+    width = (stopband - passband) / (fs / 2)
+    n_taps, beta = _kaiser(STOPBAND_DB, width)
+    from scipy import signal as _sig  # filter design only
+
+    taps = _sig.firwin(n_taps, (passband + stopband) / 2, window=("kaiser", beta), fs=fs)
+    taps = taps / taps.sum()
+    target = max(MIN_FFT, 8 * n_taps)
+    bins = 1 << max(1, math.ceil(math.log2(target / decimation)))
+    return ChannelPlan(fs, float(offset_hz), decimation, taps, passband, stopband, bins * decimation)
+
+
+def _kaiser(ripple_db: float, width: float) -> tuple[int, float]:
+    """Kaiser's formulas for the length and β of a window design (odd length: integer delay)."""
+    from scipy import signal as _sig
+
+    n, beta = _sig.kaiserord(ripple_db, width)
+    return n | 1, beta
+
+
+def _block(plan: ChannelPlan, xb: np.ndarray, new: int, moments: FrontEndMoments,
+           block_start: int) -> tuple[np.ndarray, FrontEndMoments]:
+    """One overlap-save block.
+
+    `xb` holds N samples from global index `block_start` on; the `new` samples
+    after the lead are fresh. Samples before index 0 (the first block) and
+    after the input's end (the last one) are zeros that must stay zeros.
+    """
+    from scipy import fft as _fft
+
+    n = plan.fft_size
+    lo = max(0, -block_start)
+    hi = n - plan.hop + new
+    if lo == 0 and hi == n:  # a whole block of input: its mean is bin 0, removed for free
+        spec = _fft.fft(xb)
+        mean = centre = complex(spec[0]) / n
+        spec[0] = 0
+    else:  # a partial block: remove the mean of the real samples only
+        xb = xb.copy()
+        mean = complex(xb[lo:hi].mean()) if hi > lo else 0j
+        xb[lo:hi] -= np.complex64(mean)
+        centre = 0j  # already removed
+        spec = _fft.fft(xb)
+    # moments of the new samples, the block mean removed (E x² and E|x|² need no DC)
+    fresh = xb[n - plan.hop : n - plan.hop + new]
+    power = float(np.vdot(fresh, fresh).real) - new * abs(centre) ** 2
+    pseudo = complex(np.dot(fresh, fresh)) - new * centre * centre
+    c_tot, p_tot = moments.power + power, moments.pseudo + pseudo
+    w = _compensator(c_tot, p_tot)
+    sel, mirror, resp = plan.bins
+    y_spec = spec[sel]
+    if abs(w) > 1e-9:
+        y_spec = y_spec - np.complex64(w) * np.conj(spec[mirror])
+    y = _fft.ifft(y_spec * resp)[plan.lead_outputs :]
+    # the mix was relative to the block start: bring it to the global sample index
+    turn = (plan.centre_bin * block_start) % n
+    y *= np.complex64(np.exp(-2j * np.pi * turn / n))
+    # what the correction leaves: y = x − w·x* has E y² = P − 2wC + w²P*, E|y|² = (1 + |w|²)C − 2Re(w*P)...
+    p_after = pseudo - 2 * w * power + w * w * pseudo.conjugate()
+    c_after = (1 + abs(w) ** 2) * power - 2 * (w.conjugate() * pseudo).real
+    moments = FrontEndMoments(
+        n=moments.n + new,
+        dc_sum=moments.dc_sum + mean * new,
+        power=c_tot,
+        pseudo=p_tot,
+        pseudo_after=moments.pseudo_after + p_after,
+        power_after=moments.power_after + c_after,
+    )
+    return y, moments
+
+
+def channelize(x: np.ndarray, plan: ChannelPlan, state: ChannelState) -> tuple[np.ndarray, ChannelState]:
+    """Run the front end over one read.
+
+    Parameters
+    ----------
+    x : numpy.ndarray
+        complex64 input samples following those already fed.
+    plan : ChannelPlan
+    state : ChannelState
+        From :meth:`ChannelPlan.initial_state` or the previous call.
+
+    Returns
+    -------
+    y : numpy.ndarray
+        complex64 channel samples at ``plan.output_rate_hz``, centred on the
+        signal; output m is centred on input sample m·D − ``delay_samples``.
+        Outputs lag the input by up to one block; :func:`flush_channel` hands
+        out the rest.
+    state : ChannelState
+    """
+    return _advance(np.asarray(x, dtype=np.complex64), plan, state, final=False)
+
+
+def flush_channel(plan: ChannelPlan, state: ChannelState) -> tuple[np.ndarray, ChannelState]:
+    """End of input: the outputs for the samples still held (zeros after the last sample)."""
+    return _advance(np.zeros(0, np.complex64), plan, state, final=True)
+
+
+def _advance(x: np.ndarray, plan: ChannelPlan, state: ChannelState, *, final: bool
+             ) -> tuple[np.ndarray, ChannelState]:
+    n, hop, d = plan.fft_size, plan.hop, plan.decimation
+    lead = n - hop
+    held = state.pending
+    total = len(held) + len(x)  # samples available from the next block's start
+
+    def take(a: int, b: int) -> np.ndarray:
+        """Samples a … b − 1 of held + x, copying only when the range straddles the two."""
+        if a >= len(held):
+            return x[a - len(held) : b - len(held)]
+        if b <= len(held):
+            return held[a:b]
+        return np.concatenate([held[a:], x[: b - len(held)]])
+
+    moments = state.moments
+    n_out = state.n_out
+    out: list[np.ndarray] = []
+    pos = 0
+    while True:
+        avail = total - pos
+        if avail >= n:
+            xb, new = take(pos, pos + n), hop
+        elif final and avail > lead:
+            xb = np.zeros(n, np.complex64)
+            xb[:avail] = take(pos, total)
+            new = avail - lead
+        else:
+            break
+        block_start = n_out * d - lead  # global index of xb[0]
+        y, moments = _block(plan, xb, new, moments, block_start)
+        if new < hop:  # the last block: outputs m with m·D inside the input only
+            y = y[: -(-new // d)]
+        out.append(y)
+        n_out += len(y)
+        pos += hop
+    # keep what the next block needs, as a copy: never a view of the caller's block
+    rest = np.zeros(0, np.complex64) if final or pos >= total else np.array(take(pos, total), np.complex64)
+    y = np.concatenate(out) if len(out) > 1 else (out[0] if out else np.zeros(0, np.complex64))
+    if plan.fine_hz and len(y):
+        from .tune import fine_rotation
+
+        y = y * fine_rotation(plan, state.n_out, len(y))
+    y = y.astype(np.complex64, copy=False)
+    return y, dataclasses.replace(state, pending=rest, n_in=state.n_in + len(x), n_out=n_out, moments=moments)
