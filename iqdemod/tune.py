@@ -28,7 +28,7 @@ from scipy import signal as _sig  # filter design only
 
 from .link import SignalSpec
 
-__all__ = ["TunerPlan", "TunerState", "plan_tuner", "tune", "TABLE_LEN"]
+__all__ = ["TunerPlan", "TunerState", "plan_tuner", "tune", "fine_rotation", "TABLE_LEN"]
 
 TABLE_LEN = 1 << 13
 STOPBAND_DB = 60.0
@@ -243,12 +243,16 @@ def tune(
     keep_from = count * d  # buffer index of sample n_out·D − prefix
     new_state = TunerState(n_in, n_out, buf[keep_from:].copy())
     if plan.fine_hz:
-        y *= _fine_rotation(plan, state.n_out, count)
+        y *= fine_rotation(plan, state.n_out, count)
     return y, new_state
 
 
-def _fine_rotation(plan: TunerPlan, n_out: int, count: int) -> np.ndarray:
-    """exp(−j2π·fine·t) at outputs n_out … n_out + count − 1 (t at each output's centre)."""
+def fine_rotation(plan, n_out: int, count: int) -> np.ndarray:
+    """exp(−j2π·fine·t) at outputs n_out … n_out + count − 1 (t at each output's centre).
+
+    `plan` is any tuner plan with ``fine_hz``, ``decimation``, ``sample_rate_hz`` and
+    ``delay_samples`` (this module's and :class:`iqdemod.channel.ChannelPlan`).
+    """
     d = plan.decimation
     step = plan.fine_hz * d / plan.sample_rate_hz  # cycles per output sample
     base = _steps(step, count)
