@@ -10,7 +10,9 @@ Defects are measured on the way, never fatal when they can be tolerated:
 - a cut final sample (a file size that is not a whole number of samples) is
   dropped, with a warning;
 - NaN and Inf samples (float formats) are set to zero and counted;
-- samples at full scale (either component) are counted as clipped.
+- samples at full scale (either component) are counted as clipped; a float
+  format has no full scale, so there only a pile-up of samples at one extreme
+  value counts (:func:`pile_up`).
 
 The SigMF layout follows the SigMF specification v1.2: ``NAME.sigmf-meta``
 (JSON with ``global``, ``captures`` and ``annotations``) beside
@@ -195,6 +197,41 @@ class CaptureStats:
         return out
 
 
+PILE_UP_STRIDE = 64  # the look for a pile-up reads one component in this many
+PILE_UP_HITS = 2  # a pile-up: this many of the components looked at sit exactly at one extreme
+
+
+def pile_up(comp: np.ndarray, lo: float, hi: float) -> int:
+    """Samples clipped in a float block: those at an extreme value that many samples share.
+
+    A float capture has no full scale, so clipping shows only as a pile-up:
+    many samples exactly at the block's largest (or smallest) value, where
+    continuous data reaches its extreme once. A strided look (every component
+    of a small block, one in ``PILE_UP_STRIDE`` of a large one) decides whether
+    to count: a pile-up of about 0.1 % of the samples or more is seen. Then
+    every sample with a component at the piled-up extreme is counted.
+
+    Parameters
+    ----------
+    comp : numpy.ndarray
+        float32 components, interleaved I, Q.
+    lo, hi : float
+        The block's smallest and largest component.
+    """
+    if not lo < hi:  # a constant block (or an empty one) is no clipping
+        return 0
+    # every component of a small block, one in PILE_UP_STRIDE of a large one (at least ~2000 looked at)
+    look = comp[:: min(PILE_UP_STRIDE, max(1, comp.size // 2048))]
+    at = [v for v in (hi, lo) if v != 0 and np.count_nonzero(look == v) >= PILE_UP_HITS]
+    if not at:
+        return 0
+    pairs = comp.reshape(-1, 2)
+    mask = np.zeros(len(pairs), bool)
+    for v in at:
+        mask |= (pairs == v).any(axis=1)
+    return int(mask.sum())
+
+
 class _Converter:
     """Raw bytes to complex64, counting clipping and non-finite values."""
 
@@ -208,26 +245,29 @@ class _Converter:
     def __call__(self, buf: np.ndarray) -> tuple[np.ndarray, int, int]:
         """Convert components `buf` (raw dtype); return (complex64, nonfinite, clipped).
 
-        The common case (all finite, nothing at full scale) costs two reductions
-        (min and max); the counting runs only when they say it is needed.
+        The common case costs two reductions (min and max) and, for floats, a
+        strided look for a pile-up; the counting runs only when they say it is
+        needed. Integer formats clip at their full scale; floats have none (see
+        :func:`pile_up`).
         """
         dt = self.dt
         if dt.is_float:
             with np.errstate(over="ignore", invalid="ignore"):  # out-of-range float64 becomes inf, then 0
                 comp = buf.astype(np.float32, copy=False)  # native cf32: no copy at all
-            lo, hi = comp.min(initial=0.0), comp.max(initial=0.0)
-            if lo > -1.0 and hi < 1.0:  # NaN fails both comparisons, inf fails one
+            if comp.size == 0:
                 return comp.view(np.complex64), 0, 0
-            if not comp.flags.writeable:
-                comp = comp.copy()
+            # floats have no full scale: min and max only look for NaN/Inf (both propagate),
+            # whatever the capture's scale
+            lo, hi = comp.min(), comp.max()
             bad = 0
-            finite = np.isfinite(comp)
-            if not finite.all():
+            if not (np.isfinite(lo) and np.isfinite(hi)):
+                comp = comp.copy()
+                finite = np.isfinite(comp)
                 bad_pairs = ~finite.reshape(-1, 2).all(axis=1)
                 bad = int(bad_pairs.sum())
                 comp.reshape(-1, 2)[bad_pairs] = 0.0
-            clipped = int((np.abs(comp).reshape(-1, 2) >= 1.0).any(axis=1).sum())
-            return comp.view(np.complex64), bad, clipped
+                lo, hi = comp.min(), comp.max()
+            return comp.view(np.complex64), bad, pile_up(comp, lo, hi)
         lo, hi = dt.full_scale
         clipped = 0
         if buf.size and (buf.min() <= lo or buf.max() >= hi):
@@ -371,7 +411,11 @@ class Capture:
             bad = int((~finite).sum())
             if bad:
                 comp[~finite] = 0.0
-            clipped = int((np.abs(comp) >= top).any(axis=1).sum())
+            if bits:
+                clipped = int((np.abs(comp) >= top).any(axis=1).sum())
+            else:  # a float subtype has no full scale either
+                flat = comp.reshape(-1)
+                clipped = pile_up(flat, flat.min(), flat.max()) if flat.size else 0
             self._count(comp.shape[0], bad, clipped)
             yield comp.view(np.complex64).reshape(-1)
 

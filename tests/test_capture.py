@@ -232,3 +232,44 @@ def test_sigmf_archive_is_read_in_place(tmp_path):
     (tmp_path / "bad.sigmf").write_bytes(b"not a tar at all" * 40)
     with pytest.raises(CaptureError, match="not an uncompressed SigMF archive"):
         open_capture(tmp_path / "bad.sigmf")
+
+
+def test_floats_have_no_full_scale(tmp_path):
+    """A cf32 capture at any scale reads without a copy and reports no clipping (issue: float scale)."""
+    rng = np.random.default_rng(3)
+    x = (1000 * (rng.standard_normal(5000) + 1j * rng.standard_normal(5000))).astype(np.complex64)
+    p = tmp_path / "big.cf32"
+    x.tofile(p)
+    with open_capture(p, datatype="cf32_le", sample_rate=1000) as cap:
+        blocks = list(cap.blocks(4096))
+        assert cap.stats.clipped == 0 and cap.stats.nonfinite == 0
+        assert not blocks[0].flags.writeable  # the zero-copy path, whatever the scale
+    np.testing.assert_array_equal(np.concatenate(blocks), x)
+
+
+def test_float_clipping_is_a_pile_up_at_one_extreme(tmp_path):
+    """A float capture clipped by its recorder piles samples up at one value: those are counted."""
+    rng = np.random.default_rng(4)
+    x = 3.0 * (rng.standard_normal(20000) + 1j * rng.standard_normal(20000))
+    # a recorder that clips does so at one full scale on both branches: ±4.5 here (about 13 %)
+    re, im = np.clip(x.real, -4.5, 4.5), np.clip(x.imag, -4.5, 4.5)
+    y = (re + 1j * im).astype(np.complex64)
+    p = tmp_path / "clip.cf32"
+    y.tofile(p)
+    expected = int(np.sum((np.abs(re) >= 4.5) | (np.abs(im) >= 4.5)))
+    with open_capture(p, datatype="cf32_le", sample_rate=1000) as cap:
+        with pytest.warns(CaptureWarning, match="clipped"):
+            read_all(cap)
+        assert cap.stats.clipped == expected
+
+
+def test_nan_is_counted_at_any_float_scale(tmp_path):
+    x = (5000 * np.exp(1j * np.arange(100))).astype(np.complex64)
+    x[7] = complex(np.nan, 0)
+    p = tmp_path / "nan.cf32"
+    x.tofile(p)
+    with open_capture(p, datatype="cf32_le", sample_rate=1000) as cap:
+        with pytest.warns(CaptureWarning, match="1 NaN/Inf"):
+            got = read_all(cap)
+        assert cap.stats.nonfinite == 1 and cap.stats.clipped == 0
+    assert got[7] == 0
