@@ -66,6 +66,12 @@ def health_text(r) -> str:
     rows.append(("decision gain", f"{r.decision_gain_db:+.2f} dB",
                  "the receiver's filter: its decisions see Eb/N0 plus this (predictions include it)"))
     rows.append(("clipped", _pct(r.clipped_fraction), "samples at full scale"))
+    if r.dc_dbfs is not None:
+        rows.append(("DC offset", f"{r.dc_dbfs:.1f} dBFS", "the recording receiver's own; removed before tuning"))
+    if r.iq_gain_db is not None:
+        rows.append(("IQ imbalance", f"{r.iq_gain_db:+.2f} dB, {r.iq_phase_deg:+.2f}°",
+                     f"image rejection {r.image_rejection_db:.1f} dB as recorded, "
+                     f"{r.image_rejection_after_db:.1f} dB after correction"))
     width = max(len(a) for a, _, _ in rows)
     vwidth = max(len(b) for _, b, c in rows if c) if any(c for _, _, c in rows) else 0
     lines = [head]

@@ -13,7 +13,8 @@ A channel that is busy most of the time still shows its floor in the gaps.
 That estimate is a guard: the frames of a block below ``ON_RATIO`` × the guard
 are the quiet ones, and their mean, smoothed over blocks, is the floor. A burst starts when a frame exceeds ``ON_RATIO`` × the
 floor and ends after ``HANG_FRAMES`` frames in a row below ``OFF_RATIO`` × the
-floor (hysteresis, as in a classic squelch).
+floor (hysteresis, as in a classic squelch). A burst whose only loud frame is
+its first (``MIN_CORE_FRAMES``) is the noise's own peak and is dropped.
 
 Because frames and floor blocks sit on a fixed grid of the global sample index,
 the bursts found do not depend on how the input was cut into blocks. A burst
@@ -39,6 +40,7 @@ PRE_FRAMES = 2
 BLOCK_FRAMES = 32
 HISTORY_BLOCKS = 8
 FRAME_SYMBOLS = 16
+MIN_CORE_FRAMES = 2  # a burst must stay over the off-threshold this long (M-of-N logic, common practice)
 
 
 @dataclass(frozen=True, eq=False)
@@ -172,7 +174,11 @@ def _run_block(power: np.ndarray, first_frame: int, st: dict, plan: DetectorPlan
         st["quiet"] = st["quiet"] + 1 if p < off else 0
         if st["quiet"] >= HANG_FRAMES:
             end = (f + 1) * fl
-            out.append((st["burst_start"], st["core_start"], end - HANG_FRAMES * fl, end, st["piece"], True))
+            core_end = end - HANG_FRAMES * fl
+            # One frame over the threshold and then quiet is the noise's own peak, not a
+            # transmission (every frame layout spans several detector frames): dropped.
+            if st["piece"] or core_end - st["core_start"] >= MIN_CORE_FRAMES * fl:
+                out.append((st["burst_start"], st["core_start"], core_end, end, st["piece"], True))
             st.update(in_burst=False, quiet=0)
         elif (f + 1) * fl - st["burst_start"] >= plan.max_frames * fl:
             end = (f + 1) * fl

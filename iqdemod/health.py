@@ -23,6 +23,7 @@ the predicted error rate, and when they differ each keeps its own.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -35,7 +36,8 @@ from .capture import Capture, DEFAULT_BLOCK_SAMPLES, open_capture
 from .errors import IqdemodError
 from .estimate import EbN0Estimate, correct_leakage, pool
 from .link import Link
-from .receiver import Burst, ReceiverPlan, iter_bursts
+from .channel import FrontEndReport
+from .receiver import Burst, Receiver, ReceiverPlan, drive
 
 __all__ = ["HealthReport", "HealthAccumulator", "assess", "HIST_EDGES_DB"]
 
@@ -90,6 +92,11 @@ class HealthReport:
     decision_gain_db: float
     warnings: tuple[str, ...] = ()
     start_time: str | None = None
+    dc_dbfs: float | None = None
+    iq_gain_db: float | None = None
+    iq_phase_deg: float | None = None
+    image_rejection_db: float | None = None
+    image_rejection_after_db: float | None = None
     histogram_edges_db: tuple[float, ...] = field(default=(), repr=False)
     histogram_right: tuple[int, ...] = field(default=(), repr=False)
     histogram_wrong: tuple[int, ...] = field(default=(), repr=False)
@@ -182,8 +189,13 @@ class HealthAccumulator:
             self.hist_wrong += np.histogram(10 * np.log10(lose), HIST_EDGES_DB)[0]
 
     def report(self, *, capture: str, duration_s: float, clipped_fraction: float, target_ber: float = 1e-5,
-               warnings: Iterable[str] = (), start_time: str | None = None) -> HealthReport:
-        """The health report from everything added so far."""
+               warnings: Iterable[str] = (), start_time: str | None = None,
+               front_end: FrontEndReport | None = None) -> HealthReport:
+        """The health report from everything added so far.
+
+        `front_end` carries the receiver's own measurements of the recording
+        (DC level, IQ imbalance; :attr:`iqdemod.receiver.Receiver.front_end`).
+        """
         if not 0 < target_ber < 0.5:
             raise IqdemodError(f"target BER {target_ber:g}: must be within (0, 0.5)")
         plan = self.plan
@@ -258,6 +270,7 @@ class HealthAccumulator:
             ebn0_needed_db=needed, coherent_ebn0_needed_db=coherent, noncoherent_penalty_db=penalty,
             mismatch_loss_db=mismatch, clipped_fraction=float(clipped_fraction), h=sig.h, baud=sig.baud, frame_bits=frame_bits,
             decision_gain_db=-corr, warnings=tuple(warnings), start_time=start_time,
+            **_front_end_fields(front_end),
             histogram_edges_db=tuple(float(v) for v in HIST_EDGES_DB),
             histogram_right=tuple(int(v) for v in self.hist_right),
             histogram_wrong=tuple(int(v) for v in self.hist_wrong),
@@ -352,15 +365,12 @@ def assess(
         cap = capture if isinstance(capture, Capture) else stack.enter_context(
             open_capture(capture, datatype=link.capture.datatype, sample_rate=link.capture.sample_rate)
         )
-        acc = None
-        for burst in iter_bursts(cap, link, block_samples=block_samples, progress=progress):
-            if acc is None:
-                acc = HealthAccumulator(_plan_of(cap, link))
+        rx = Receiver(link, cap.info)
+        acc = HealthAccumulator(rx.plan)
+        for burst in drive(rx, cap, block_samples=block_samples, progress=progress):
             acc.add(burst)
             if frames_out is not None:
                 frames_out.extend(burst.frames)
-        if acc is None:
-            acc = HealthAccumulator(_plan_of(cap, link))
         return acc.report(
             capture=Path(cap.info.path).name,
             duration_s=cap.info.duration_s,
@@ -368,10 +378,11 @@ def assess(
             target_ber=target_ber,
             warnings=cap.stats.warnings(),
             start_time=cap.info.start_time,
+            front_end=rx.front_end,
         )
 
 
-def _plan_of(cap: Capture, link: Link) -> ReceiverPlan:
-    from .receiver import plan_receiver
-
-    return plan_receiver(link, cap.info.sample_rate_hz, cap.info.centre_hz)
+def _front_end_fields(fe: FrontEndReport | None) -> dict:
+    if fe is None:
+        return {}
+    return {k: _finite(v) if v is not None else None for k, v in dataclasses.asdict(fe).items()}

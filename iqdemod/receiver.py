@@ -2,7 +2,7 @@
 
 Data path (each stage in its own module)::
 
-    capture blocks ─ tune (mix + decimate) ─ bursts (energy detector)
+    capture blocks ─ channel (DC, IQ image, filter, decimate) ─ bursts (energy detector)
       └─ per burst: carrier (coarse) ─ timing ─ correlate ─ carrier (phase step)
          ─ correlate ─ square-law bits ─ framing ─ frames
 
@@ -33,11 +33,14 @@ from .estimate import (EbN0Estimate, correct_leakage, estimate_blind, estimate_d
 from .framing import bits_to_bytes, find_frames
 from .link import Link
 from .timing import SEGMENT_SYMBOLS, Timing, symbol_starts, symbol_timing
-from .tune import TunerPlan, plan_tuner, tune
+from .channel import ChannelPlan, FrontEndReport, channelize, flush_channel, front_end_report, plan_channel
 
-__all__ = ["ReceiverPlan", "Burst", "Frame", "Receiver", "DecodeSummary", "plan_receiver", "iter_bursts", "decode"]
+__all__ = ["ReceiverPlan", "Burst", "Frame", "Receiver", "DecodeSummary", "plan_receiver", "iter_bursts", "drive",
+           "decode", "sync_candidates"]
 
 MAX_BURST_SYMBOLS = 1 << 15
+SYNC_THRESHOLD = 0.5  # normalised sync-word score a candidate needs (1 = noise-free); a candidate costs only a look
+PREAMBLE_SYMBOLS = 24  # symbols before a sync word a transmission's own synchronisation may use
 
 
 @dataclass(frozen=True, eq=False)
@@ -48,7 +51,7 @@ class ReceiverPlan:
     sample_rate_hz: float
     offset_hz: float
     centre_hz: float | None
-    tuner: TunerPlan
+    tuner: ChannelPlan
     detector: _bursts.DetectorPlan
 
     @property
@@ -143,7 +146,7 @@ def plan_receiver(link: Link, sample_rate_hz: float, centre_hz: float | None = N
     """
     offset = link.check_rate(sample_rate_hz, centre_hz)
     sig = link.signal
-    tuner = plan_tuner(sample_rate_hz, sig, offset)
+    tuner = plan_channel(sample_rate_hz, sig, offset)
     overlap = link.frame.max_bits + 64 if not link.frame.raw else 64
     detector = _bursts.plan_detector(
         tuner.output_rate_hz,
@@ -270,22 +273,6 @@ class Burst:
     symbol_s: float = 0.0
 
 
-def _demodulate(x: np.ndarray, plan: ReceiverPlan, delta_hz: float, timing: Timing | None = None
-                ) -> tuple[Timing, np.ndarray, np.ndarray, np.ndarray]:
-    """Timing, starts, correlator outputs and running sums of `x` with the carrier error `delta_hz` removed.
-
-    The carrier error is folded into the tone frequencies. A `timing` passed in
-    is kept; otherwise it is estimated.
-    """
-    rate = plan.rate_hz
-    sums = tone_sums(x, rate, plan.tones_hz, offset_hz=delta_hz)
-    if timing is None:
-        timing = symbol_timing(sums, plan.period)
-    starts = symbol_starts(timing, len(x))
-    z = correlate(sums, starts, timing.period_samples)
-    return timing, starts, z, sums
-
-
 def _residual(z: np.ndarray, decided: np.ndarray, period: float, rate: float) -> float:
     """Residual carrier error from the phase step between consecutive symbols of the same tone, Hz.
 
@@ -298,13 +285,18 @@ def _residual(z: np.ndarray, decided: np.ndarray, period: float, rate: float) ->
     return residual_offset(zw, decided, period, rate)
 
 
-def demodulate_burst(raw: RawBurst, plan: ReceiverPlan, *, capture: str = "", _depth: int = 0) -> list[Burst]:
-    """Carrier, timing, correlation, decisions and framing for one burst.
+def demodulate_burst(raw: RawBurst, plan: ReceiverPlan, *, capture: str = "") -> list[Burst]:
+    """Carrier, timing, correlation, decisions and framing for one detector buffer.
 
-    When the timing shows that the detector joined two transmissions (a jump
-    of the symbol phase, see :class:`iqdemod.timing.Timing`), each part is
-    demodulated on its own, with its own carrier and clock, and handed out as
-    a burst of its own (the same index, the next piece numbers).
+    A transmission is the unit, not the buffer. With a sync word, every place
+    where it starts is found first without any symbol clock (see
+    :func:`sync_candidates`), and each transmission is then synchronised on its
+    own symbols only: its carrier error, its symbol timing and clock, its
+    decisions and its Eb/N0. Frames back to back, or repeated with no gap at
+    all, therefore never share a carrier, a timing or an SNR. Without a sync
+    word (raw mode), or where none is found, the buffer is demodulated as one
+    transmission; a lasting jump of the symbol phase (see
+    :class:`iqdemod.timing.Timing`) still parts two transmissions there.
 
     Parameters
     ----------
@@ -317,23 +309,164 @@ def demodulate_burst(raw: RawBurst, plan: ReceiverPlan, *, capture: str = "", _d
     Returns
     -------
     list of Burst
-        One, or one per transmission found in the buffer.
+        One per transmission, in time order (the same index, pieces numbered on).
     """
     sig = plan.link.signal
     rate = plan.rate_hz
     # Keep the detector's core with a detector frame of margin each side: the first frame
-    # above the threshold may start up to a frame late; beyond that is only noise.
+    # above the threshold may start up to a frame late, and the last one holding signal may
+    # already count as quiet; beyond that is only noise.
     margin = int(plan.detector.frame_len)
     lo = max(0, raw.core[0] - margin)
-    hi = min(len(raw.samples), raw.core[1] + margin // 2)
+    hi = min(len(raw.samples), raw.core[1] + margin)
     x = raw.samples[lo:hi].astype(np.complex128)
     raw_start = raw.start + lo
     core0, core1 = raw.core[0] - lo, raw.core[1] - lo
     core = x[core0:core1] if core1 - core0 > 4 * plan.period else x
     delta = coarse_offset(core, rate, baud=sig.baud, shift_hz=sig.shift_hz, pull_in_hz=sig.pull_in_hz)
-    timing, starts, z, sums = _demodulate(x, plan, delta)
-    if timing.breaks and _depth < 3:
-        return _split(raw, lo, x, timing.breaks, plan, capture, _depth)
+    sums = tone_sums(x, rate, plan.tones_hz, offset_hz=delta)
+    if not plan.link.frame.raw:
+        found = sync_candidates(sums, plan)
+        if found:
+            bursts = _transmissions(raw, x, raw_start, found, plan, capture, delta, sums)
+            if bursts:
+                return bursts
+    return _whole(raw, x, raw_start, (core0, core1), plan, capture, delta, sums, 0)
+
+
+def sync_candidates(sums: np.ndarray, plan: ReceiverPlan, *, threshold: float = SYNC_THRESHOLD) -> list[tuple[float, float]]:
+    """Where the sync word starts in a buffer, found without a symbol clock.
+
+    The soft decision d(t) = |z1(t)|² − |z0(t)|² of a one-symbol correlator
+    window starting at every sample t is correlated with the sync word's
+    pattern at its symbol spacing: score(t) = Σ_i s_i·d(t + i·T), s_i = ±1,
+    normalised by Σ_i (|z0|² + |z1|²), so a noise-free sync word scores 1 at
+    its start whatever its level. Local maxima above `threshold`, at least
+    half a sync word apart, are the candidates. This is a matched filter for
+    the sync word on the square-law statistics (the frame-synchronisation
+    correlator of Massey, "Optimum frame synchronization", IEEE Trans. Commun.
+    20(2), 1972, cited from memory, in its hard-limited large-SNR form).
+
+    Returns
+    -------
+    list of (position, score)
+        Sample positions (cumulative-sum convention) of the sync word's first
+        symbol, strongest first.
+    """
+    spec = plan.link.frame
+    T = plan.period
+    n_sync = spec.sync_bits
+    n = sums.shape[1] - 1
+    whole = int(np.floor(T))
+    m = n - whole - 1
+    span = int(round((n_sync - 1) * T))
+    if m - span < 1:
+        return []
+    frac = T - whole
+    z = (1.0 - frac) * sums[:, whole : whole + m] + frac * sums[:, whole + 1 : whole + 1 + m] - sums[:, :m]
+    p = z.real**2 + z.imag**2
+    d = p[1] - p[0]
+    e = p[1] + p[0]
+    pattern = np.array([(spec.sync_word >> (n_sync - 1 - i)) & 1 for i in range(n_sync)], np.float64) * 2 - 1
+    offsets = np.round(np.arange(n_sync) * T).astype(np.intp)
+    width = m - span
+    score = np.zeros(width)
+    energy = np.zeros(width)
+    for s_i, o in zip(pattern, offsets):
+        score += s_i * d[o : o + width]
+        energy += e[o : o + width]
+    norm = score / np.maximum(energy, 1e-300)
+    above = np.flatnonzero(norm >= threshold)
+    if above.size == 0:
+        return []
+    radius = max(1, int(n_sync * T / 2))
+    out: list[tuple[float, float]] = []
+    order = above[np.argsort(-norm[above], kind="stable")]
+    taken = np.zeros(width, bool)
+    for t in order:
+        if taken[t]:
+            continue
+        taken[max(0, t - radius) : t + radius + 1] = True
+        out.append((float(t), float(norm[t])))
+    return out
+
+
+def _transmissions(raw: RawBurst, x: np.ndarray, raw_start: int, found: list[tuple[float, float]],
+                   plan: ReceiverPlan, capture: str, delta0: float, sums0: np.ndarray) -> list[Burst]:
+    """Demodulate each sync candidate's transmission on its own; best candidates first, no frame twice."""
+    T = plan.period
+    spec = plan.link.frame
+    taken: list[tuple[float, float]] = []  # spans of good frames already handed out
+    out: list[Burst] = []
+    for pos, _score in found:
+        if any(a - T <= pos < b - T for a, b in taken):
+            continue  # a sync-like pattern inside a frame already decoded
+        a = max(0, int(np.floor(pos - PREAMBLE_SYMBOLS * T)))
+        b = min(len(x), int(np.ceil(pos + (spec.max_bits + 2) * T)))
+        burst = _one_transmission(raw, x, raw_start, a, b, pos, plan, capture, delta0, sums0)
+        if burst is None:
+            continue
+        if spec.length == "prefix8" and burst.frames and burst.frames[0].crc_ok:
+            # the frame is shorter than the longest one: synchronise again on its own span
+            f = burst.frames[0]
+            b2 = min(len(x), int(np.ceil(pos + (f.n_symbols + 2) * T)))
+            if b2 < b - 8 * T:
+                burst = _one_transmission(raw, x, raw_start, a, b2, pos, plan, capture, delta0, sums0) or burst
+        good = [f for f in burst.frames if f.crc_ok]
+        if good:
+            f = good[0]
+            taken.append((pos, pos + f.n_symbols * T))
+        out.append(burst)
+    # keep each frame once: two candidates may land on one sync word (different spans)
+    out.sort(key=lambda bu: bu.sample)
+    kept: list[Burst] = []
+    seen: list[int] = []
+    half = 0.5 * plan.sample_rate_hz / plan.link.signal.baud
+    for burst in out:
+        frames = tuple(f for f in burst.frames if all(abs(f.sample - s) > half for s in seen))
+        if not frames:
+            continue
+        seen.extend(f.sample for f in frames)
+        kept.append(dataclasses.replace(burst, frames=frames))
+    return [dataclasses.replace(bu, piece=raw.piece + i) for i, bu in enumerate(kept)]
+
+
+def _one_transmission(raw: RawBurst, x: np.ndarray, raw_start: int, a: int, b: int, sync_pos: float,
+                      plan: ReceiverPlan, capture: str, delta0: float, sums0: np.ndarray) -> Burst | None:
+    """Carrier, timing and frame of the transmission whose sync word starts at `sync_pos` in x[a:b]."""
+    sig = plan.link.signal
+    rate = plan.rate_hz
+    seg = x[a:b]
+    if len(seg) < 4 * plan.period:
+        return None
+    delta = coarse_offset(seg, rate, baud=sig.baud, shift_hz=sig.shift_hz, pull_in_hz=sig.pull_in_hz)
+    if abs(delta - delta0) < sig.baud / 1024:  # the buffer's own estimate: reuse its running sums
+        sums = sums0[:, a : b + 1] - sums0[:, a : a + 1]
+    else:
+        sums = tone_sums(seg, rate, plan.tones_hz, offset_hz=delta)
+    sub = RawBurst(raw.index, raw.start, seg, (0, len(seg)), raw.piece)
+    burst, starts, _ = _synchronise(sub, seg, raw_start + a, (0, len(seg)), plan, delta, sums)
+    # the frame whose sync word starts where the candidate said (within two symbols)
+    want = sync_pos - a
+    frames = []
+    for f in _frames_of(burst, plan, raw_start + a, starts, capture):
+        if abs(starts[f.first_symbol] - want) <= 2 * plan.period:
+            frames.append(f)
+            break
+    return dataclasses.replace(burst, frames=tuple(frames))
+
+
+def _synchronise(raw: RawBurst, x: np.ndarray, x_start: int, core: tuple[int, int], plan: ReceiverPlan,
+                 delta: float, sums: np.ndarray) -> tuple[Burst, np.ndarray, Timing]:
+    """Timing, decisions and the refined carrier of one transmission in `x` (coarse carrier `delta`).
+
+    Returns the burst (without frames), the symbol starts of its arrays and the timing.
+    """
+    rate = plan.rate_hz
+    core0, core1 = core
+    timing = symbol_timing(sums, plan.period)
+    starts = symbol_starts(timing, len(x))
+    z = correlate(sums, starts, timing.period_samples)
     # Decision-directed refinement of the carrier on the symbols the detector saw; the coarse
     # estimate is within a few hundredths of the baud, well inside this estimator's ±baud/2.
     # The timing found with the coarse carrier is kept: estimating it again after this step
@@ -341,18 +474,19 @@ def demodulate_burst(raw: RawBurst, plan: ReceiverPlan, *, capture: str = "", _d
     inside = (starts >= core0 - plan.period) & (starts + timing.period_samples <= core1 + plan.period)
     decided = np.argmax(np.abs(z[inside]), axis=1)
     delta += _residual(z[inside], decided, timing.period_samples, rate)
-    timing, starts, z, _ = _demodulate(x, plan, delta, timing)  # same timing, so same starts and `inside`
+    sums = tone_sums(x, rate, plan.tones_hz, offset_hz=delta)
+    z = correlate(sums, starts, timing.period_samples)
     zsq = z.real**2 + z.imag**2
     decided = (zsq[:, 1] > zsq[:, 0]).astype(np.uint8)  # tone 1 is bit 1 (tones_hz honours `invert`)
     residual = _residual(z[inside], decided[inside], timing.period_samples, rate)
     keep = np.flatnonzero(inside)
     if keep.size == 0:
         keep = np.arange(len(starts))
-    k0, k1 = int(keep[0]), int(keep[-1]) + 1
+    k0, k1 = (int(keep[0]), int(keep[-1]) + 1) if keep.size else (0, 0)
     period = timing.period_samples
     burst = Burst(
         index=raw.index,
-        sample=int(round(plan.input_sample(raw_start, starts[k0]))) if len(starts) else int(plan.input_sample(raw_start, 0)),
+        sample=int(round(plan.input_sample(x_start, starts[k0]))) if len(starts) else int(plan.input_sample(x_start, 0)),
         n_symbols=k1 - k0,
         freq_error_hz=float(delta),
         residual_hz=float(residual),
@@ -364,7 +498,17 @@ def demodulate_burst(raw: RawBurst, plan: ReceiverPlan, *, capture: str = "", _d
         piece=raw.piece,
         symbol_s=period * plan.tuner.decimation / plan.sample_rate_hz,
     )
-    return [_with_frames(burst, plan, raw_start, starts[k0:k1], capture)]
+    return burst, starts[k0:k1], timing
+
+
+def _whole(raw: RawBurst, x: np.ndarray, raw_start: int, core: tuple[int, int], plan: ReceiverPlan,
+           capture: str, delta: float, sums: np.ndarray, depth: int) -> list[Burst]:
+    """The buffer as one transmission, or parted where its symbol phase jumps."""
+    timing = symbol_timing(sums, plan.period)
+    if timing.breaks and depth < 3:
+        return _split(raw, raw_start - raw.start, x, timing.breaks, plan, capture, depth)
+    burst, starts, _ = _synchronise(raw, x, raw_start, core, plan, delta, sums)
+    return [dataclasses.replace(burst, frames=tuple(_frames_of(burst, plan, raw_start, starts, capture)))]
 
 
 def _drop_repeats(burst: Burst, last_sample: float, half_symbol: float) -> tuple[Burst, float]:
@@ -383,17 +527,21 @@ def _drop_repeats(burst: Burst, last_sample: float, half_symbol: float) -> tuple
 def _split(raw: RawBurst, lo: int, x: np.ndarray, breaks: tuple[int, ...], plan: ReceiverPlan, capture: str,
            depth: int) -> list[Burst]:
     """Demodulate the parts of a buffer that holds several transmissions; drop frames seen twice."""
+    sig = plan.link.signal
     seg = int(SEGMENT_SYMBOLS * plan.period)
     cuts = [0, *breaks, len(x)]
     out: list[Burst] = []
     last_sample = -np.inf
-    half = 0.5 * plan.sample_rate_hz / plan.link.signal.baud
+    half = 0.5 * plan.sample_rate_hz / sig.baud
     for i, (a, b) in enumerate(zip(cuts[:-1], cuts[1:])):
         # overlap the neighbours by a segment: the phase jump is only known to a segment
         a0, b0 = max(0, a - seg), min(len(x), b + seg)
         part = RawBurst(raw.index, raw.start + lo + a0, raw.samples[lo + a0 : lo + b0], (0, b0 - a0),
                         raw.piece + i)
-        for burst in demodulate_burst(part, plan, capture=capture, _depth=depth + 1):
+        px = x[a0:b0]
+        delta = coarse_offset(px, plan.rate_hz, baud=sig.baud, shift_hz=sig.shift_hz, pull_in_hz=sig.pull_in_hz)
+        sums = tone_sums(px, plan.rate_hz, plan.tones_hz, offset_hz=delta)
+        for burst in _whole(part, px, part.start, (0, b0 - a0), plan, capture, delta, sums, depth + 1):
             burst, last_sample = _drop_repeats(burst, last_sample, half)
             out.append(dataclasses.replace(burst, piece=len(out) + raw.piece))
     return out
@@ -414,7 +562,8 @@ def _estimate(z0: np.ndarray, z1: np.ndarray, bits: np.ndarray | None, leakage: 
     return estimate_blind(z0, z1)
 
 
-def _with_frames(burst: Burst, plan: ReceiverPlan, raw_start: int, starts: np.ndarray, capture: str) -> Burst:
+def _frames_of(burst: Burst, plan: ReceiverPlan, raw_start: int, starts: np.ndarray, capture: str) -> list[Frame]:
+    """The frames (or, in raw mode, the one record of bits) of a synchronised burst."""
     fs = plan.sample_rate_hz
     spec = plan.link.frame
     corr = plan.ebn0_correction_db
@@ -440,7 +589,7 @@ def _with_frames(burst: Burst, plan: ReceiverPlan, raw_start: int, starts: np.nd
                       hit.sync_errors, burst.freq_error_hz, db, hit.truncated,
                       first_symbol=a, n_symbols=b - a, ebn0=est)
             )
-    return dataclasses.replace(burst, frames=tuple(frames))
+    return frames
 
 
 class Receiver:
@@ -459,8 +608,6 @@ class Receiver:
     def __init__(self, link: Link, info: CaptureInfo):
         self.plan = plan_receiver(link, info.sample_rate_hz, info.centre_hz)
         self.info = info
-        self._table = self.plan.tuner.table()
-        self._polyphase = self.plan.tuner.polyphase()
         self._tuner = self.plan.tuner.initial_state()
         self._detector = self.plan.detector.initial_state()
         self._last_frame_sample = -np.inf
@@ -468,15 +615,22 @@ class Receiver:
 
     def feed(self, block: np.ndarray) -> list[Burst]:
         """Process one block of input samples; return the bursts it completed."""
-        y, self._tuner = tune(block, self.plan.tuner, self._tuner, table=self._table,
-                                polyphase=self._polyphase)
+        y, self._tuner = channelize(block, self.plan.tuner, self._tuner)
         found, self._detector = _bursts.detect(y, self.plan.detector, self._detector)
         return [burst for raw in found for burst in self._finish(raw)]
 
     def flush(self) -> list[Burst]:
         """End of input: hand out the bursts still open."""
+        y, self._tuner = flush_channel(self.plan.tuner, self._tuner)
+        found, self._detector = _bursts.detect(y, self.plan.detector, self._detector)
+        bursts = [burst for raw in found for burst in self._finish(raw)]
         found, self._detector = _bursts.flush(self.plan.detector, self._detector)
-        return [burst for raw in found for burst in self._finish(raw)]
+        return bursts + [burst for raw in found for burst in self._finish(raw)]
+
+    @property
+    def front_end(self) -> FrontEndReport:
+        """DC level and IQ imbalance measured on the samples fed so far."""
+        return front_end_report(self._tuner.moments)
 
     def _finish(self, raw: RawBurst) -> list[Burst]:
         out = []
@@ -536,7 +690,16 @@ def iter_bursts(
     ------
     Burst
     """
-    rx = Receiver(link, capture.info)
+    yield from drive(Receiver(link, capture.info), capture, block_samples=block_samples, progress=progress)
+
+
+def drive(rx: "Receiver", capture: Capture, *, block_samples: int = DEFAULT_BLOCK_SAMPLES,
+          progress: bool = False) -> Iterator[Burst]:
+    """Feed a whole capture through `rx` and yield its bursts; `rx` keeps its measurements.
+
+    For a caller that needs the receiver's own figures afterwards (such as
+    :attr:`Receiver.front_end`); :func:`iter_bursts` is the usual way in.
+    """
     bar = None
     if progress:
         from tqdm import tqdm

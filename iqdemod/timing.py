@@ -103,7 +103,8 @@ def symbol_timing(sums: np.ndarray, period_samples: float, *, max_ppm: float = 2
     # Windows start on whole samples, so their ends all share one fractional part:
     # the interpolation is two shifted slices, no gather.
     whole, frac = int(np.floor(T)), T - np.floor(T)
-    m = len(starts)
+    m = min(len(starts), n - whole)  # a whole-number period must not read past the last sum
+    starts = starts[:m]
     ends = (1.0 - frac) * sums[:, whole : whole + m] + frac * sums[:, whole + 1 : whole + 1 + m]
     z = ends - sums[:, :m]
     p = z.real**2 + z.imag**2

@@ -149,3 +149,20 @@ def test_two_channel_audio_decodes_like_the_sigmf_pair(tmp_path, fmt):
     from_audio = [f.as_record() for f in iqdemod.decode(audio, link)]
     assert [r["payload_hex"] for r in from_audio if r["crc_ok"]] == truth_payloads(truth)
     assert [(r["payload_hex"], r["sample"]) for r in from_audio] == [(r["payload_hex"], r["sample"]) for r in from_pair]
+
+
+def test_timing_with_a_whole_number_period():
+    """Exactly 8 samples a symbol once crashed the timing stage (a slice one sample too long)."""
+    from fsk_modulator import cpfsk
+    from iqdemod.correlate import tone_sums
+    from iqdemod.timing import symbol_timing
+
+    rng = np.random.default_rng(2)
+    x = cpfsk(rng.integers(0, 2, 400), sps=8.0, h=1.0)  # symbol k spans samples [8k, 8k + 8)
+    rate, baud = 76_800.0, 9_600.0
+    t = symbol_timing(tone_sums(x, rate, (-baud / 2, baud / 2)), 8.0)
+    assert t.period_samples == pytest.approx(8.0, abs=1e-3)
+    # the modulator's sample n is the signal at time n; in the receiver's cumulative-sum convention
+    # it covers [n, n + 1), centred on n + ½, so the boundaries 8k sit at positions 8k + ½
+    off = (t.first_s - 0.5) % 8.0
+    assert min(off, 8.0 - off) < 0.1
