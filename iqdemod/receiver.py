@@ -429,7 +429,7 @@ def _with_frames(burst: Burst, plan: ReceiverPlan, raw_start: int, starts: np.nd
                       db, bits=burst.bits, first_symbol=0, n_symbols=burst.n_symbols, ebn0=est)
             )
     else:
-        for hit in find_frames(burst.bits, spec):
+        for hit in find_frames(burst.bits, spec, stats=(burst.z0sq, burst.z1sq)):
             a, b = hit.bit_index, min(hit.bit_index + hit.n_bits, burst.n_symbols)
             est = _estimate(burst.z0sq[a:b], burst.z1sq[a:b], burst.bits[a:b] if hit.crc_ok else None,
                             plan.tone_leakage)

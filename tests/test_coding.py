@@ -234,3 +234,31 @@ def test_profile_and_flags(tmp_path):
     q = tmp_path / "back.toml"
     q.write_text(link_to_toml(link))
     assert load_link(q) == link
+
+
+# --------------------------------------------------------------------------- REFERENCE §10 formula
+
+
+@pytest.mark.parametrize("ebn0_db, manchester, nrz", [
+    (8, 3.8142e-02, 2.1324e-02), (10, 7.5802e-03, 3.3690e-03), (12, 5.3926e-04, 1.8089e-04),
+    (14, 7.2688e-06, 1.7558e-06),
+])
+def test_manchester_pb_matches_the_reference_table(ebn0_db, manchester, nrz):
+    # REFERENCE §10 table (Proakis, square-law combining of L = 2 branches [book])
+    from iqdemod import predict as P
+
+    g = P.from_db(ebn0_db)
+    assert P.pb_manchester(g) == pytest.approx(manchester, rel=1e-4)
+    assert P.pb_square_law_combining(g, 1) == pytest.approx(nrz, rel=1e-4)  # L = 1 is REFERENCE §1
+    assert P.pb_square_law_combining(g, 2) == pytest.approx(0.125 * np.exp(-g / 2) * (4 + g / 2), rel=1e-12)
+
+
+def test_manchester_inverse_and_scheme_name():
+    from iqdemod import predict as P
+
+    need = P.ebn0_db_for_pb(7.5802e-03, "manchester")
+    assert need == pytest.approx(10.0, abs=1e-3)  # REFERENCE §10 table, read backwards
+    with pytest.raises(LinkError, match="options"):
+        P.ebn0_db_for_pb(1e-5, "manchester", h=1.0)
+    with pytest.raises(LinkError, match="n_branches"):
+        P.pb_square_law_combining(1.0, 0)
