@@ -167,7 +167,7 @@ class SignalSpec:
 
 @dataclass(frozen=True)
 class FrameSpec:
-    """Frame layout: sync word, payload length, CRC. Bits are sent MSB first.
+    """Frame layout: sync word, payload length, CRC, and how they are coded on the air.
 
     Attributes
     ----------
@@ -176,7 +176,7 @@ class FrameSpec:
     sync_bits : int
         How many bits of `sync_word` are sent (1–64).
     sync_tolerance : int
-        Bit errors accepted in the sync word.
+        Bit errors accepted in the sync word (with Manchester, twice as many chip errors).
     length : int or "prefix8"
         Payload bytes (1–4096), or "prefix8": the first byte after the sync word
         is the payload length, and the CRC covers that byte and the payload.
