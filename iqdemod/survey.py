@@ -52,7 +52,8 @@ always in blocks, and only short excerpts of a few bursts are ever kept:
    pairs 0,0 or 1,1, in the better of the two pairings), the bursts are also
    read as Manchester in both conventions, whose bits are complements, so
    only the CRC tells them apart; each reading is searched plain and
-   de-whitened with PN9 from each candidate payload start, and a length
+   de-whitened with PN9 from each candidate payload start, with bytes MSB
+   and LSB first; the CRC may be sent big- or little-endian, and a length
    byte may count the payload, the payload and the CRC, or the whole frame.
    The layout whose frames check on most bursts wins (the plainer one on a
    tie), and the receiver's own :func:`~iqdemod.framing.find_frames`
@@ -77,6 +78,7 @@ match places the payload exactly.
 from __future__ import annotations
 
 import dataclasses
+import itertools
 import math
 import os
 from dataclasses import dataclass, field
@@ -231,10 +233,11 @@ class SignalFound:
         Payload bytes (from the CRC search, or a guess from the burst lengths).
     crc : str or None
         The catalogue CRC that checks on the bursts, or None.
-    coding, whitening, length_counts : str
+    coding, whitening, length_counts, bit_order, crc_order : str
         The line coding ("nrz", "manchester", "manchester-inverted"), the
-        whitening ("none", "pn9") and what a "prefix8" length byte counts,
-        as the framing search found them (see :class:`~iqdemod.link.FrameSpec`).
+        whitening ("none", "pn9"), what a "prefix8" length byte counts, the
+        bit order of the bytes and the CRC's byte order, as the framing
+        search found them (see :class:`~iqdemod.link.FrameSpec`).
         With Manchester, `baud` is the chip rate and `sync_guess` is in bits.
     bursts_checked, frames_crc_ok : int
         Bursts demodulated for the framing search, and how many of them carry a
@@ -262,6 +265,8 @@ class SignalFound:
     coding: str = "nrz"
     whitening: str = "none"
     length_counts: str = "payload"
+    bit_order: str = "msb"
+    crc_order: str = "big"
 
     def __post_init__(self) -> None:
         if not self.baud > 0:
@@ -282,7 +287,7 @@ class SignalFound:
             raise IqdemodError(f"crc {self.crc!r}: not a catalogue name")
         try:
             FrameSpec(sync_word=None, length="prefix8", coding=self.coding, whitening=self.whitening,
-                      length_counts=self.length_counts)
+                      length_counts=self.length_counts, bit_order=self.bit_order, crc_order=self.crc_order)
         except IqdemodError as exc:
             raise IqdemodError(f"signal found: {exc}") from None
 
@@ -330,7 +335,7 @@ class SignalFound:
             tol = min(3, bits // 8) if sync_tolerance is None else int(sync_tolerance)
             frame = FrameSpec(sync_word=int(self.sync_guess, 16), sync_bits=bits, sync_tolerance=tol,
                               length=self.length, crc=self.crc or "none", coding=self.coding,
-                              whitening=self.whitening,
+                              whitening=self.whitening, bit_order=self.bit_order, crc_order=self.crc_order,
                               length_counts=self.length_counts if self.length == "prefix8" else "payload")
         return Link(signal=sig, frame=frame, capture=capture or CaptureFormat())
 
@@ -1437,15 +1442,16 @@ def _table_array(spec: CrcSpec) -> np.ndarray:
     return np.array(crc_table(spec), dtype=np.int64)
 
 
-def _crc_hits(bits: np.ndarray, starts: np.ndarray, max_bytes: int, *, whitening: str = "none"
-              ) -> list[tuple[int, int, str, int]]:
-    """Every (start, n_bytes, CRC name, first byte) where the CRC of the bytes from `start` equals the bytes that follow.
+def _crc_hits(bits: np.ndarray, starts: np.ndarray, max_bytes: int, *, whitening: str = "none",
+              bit_order: str = "msb") -> list[tuple[int, int, str, int, str]]:
+    """Every (start, n_bytes, CRC name, first byte, CRC byte order) where the CRC of the bytes from `start`
+    equals the bytes that follow, read big- or little-endian.
 
-    The bytes from each start are read MSB first and, with ``whitening =
+    The bytes from each start are read in `bit_order` and, with ``whitening =
     "pn9"``, de-whitened from that start on (whitening begins right after
-    the sync word, which is where the CRC's coverage begins). The CRC value
-    is read big-endian. All starts are computed together, one byte step at a
-    time, with the CRC register of :mod:`iqdemod.crc`.
+    the sync word, which is where the CRC's coverage begins). All starts are
+    computed together, one byte step at a time, with the CRC register of
+    :mod:`iqdemod.crc`.
     """
     bits = np.asarray(bits, dtype=np.uint8)
     starts = starts[starts + 8 + 8 <= len(bits)]
@@ -1457,8 +1463,9 @@ def _crc_hits(bits: np.ndarray, starts: np.ndarray, max_bytes: int, *, whitening
     padded = np.concatenate([bits, np.zeros(8 * total + 64, np.uint8)])
     rows = padded[starts[:, None] + np.arange(8 * total)[None, :]]
     if whitening != "none":
-        rows = rows ^ bytes_to_bits(whiten(bytes(total), whitening))[None, :]
-    data = np.packbits(rows.reshape(len(starts), total, 8), axis=2)[:, :, 0].astype(np.int64)
+        rows = rows ^ bytes_to_bits(whiten(bytes(total), whitening), bit_order)[None, :]
+    order = "big" if bit_order == "msb" else "little"
+    data = np.packbits(rows.reshape(len(starts), total, 8), axis=2, bitorder=order)[:, :, 0].astype(np.int64)
     hits = []
     for spec in CRC_CATALOGUE.values():
         w = spec.width
@@ -1467,8 +1474,10 @@ def _crc_hits(bits: np.ndarray, starts: np.ndarray, max_bytes: int, *, whitening
         table = _table_array(spec)
         wb = w // 8
         sent = np.zeros((len(starts), total - wb + 1), dtype=np.int64)  # big-endian value from each byte on
+        sent_le = np.zeros_like(sent)  # and little-endian
         for j in range(wb):
             sent = (sent << 8) | data[:, j : j + total - wb + 1]
+            sent_le |= data[:, j : j + total - wb + 1] << (8 * j)
         reg = np.full(len(starts), crc_init(spec), dtype=np.int64)
         for k in range(n_bytes):
             reg = crc_update(spec, reg, data[:, k], table)
@@ -1476,9 +1485,11 @@ def _crc_hits(bits: np.ndarray, starts: np.ndarray, max_bytes: int, *, whitening
             ok = pos + w <= len(bits)
             if not ok.any():
                 break
-            match = ok & (sent[:, k + 1] == crc_final(spec, reg))
-            for i in np.flatnonzero(match):
-                hits.append((int(starts[i]), k + 1, spec.name, int(data[i, 0])))
+            value = crc_final(spec, reg)
+            for crc_order, table_sent in (("big", sent), ("little", sent_le)):
+                match = ok & (table_sent[:, k + 1] == value)
+                for i in np.flatnonzero(match):
+                    hits.append((int(starts[i]), k + 1, spec.name, int(data[i, 0]), crc_order))
     return hits
 
 
@@ -1509,6 +1520,8 @@ class _Layout:
     coding: str = "nrz"
     whitening: str = "none"
     length_counts: str = "payload"
+    bit_order: str = "msb"
+    crc_order: str = "big"
 
 
 def _majority(rows: list[np.ndarray]) -> np.ndarray:
@@ -1543,7 +1556,7 @@ def _common_bits(aligned: list[np.ndarray], *, agree: float = 0.9) -> int:
 
 
 def _crc_layout(usable: list[tuple[np.ndarray, tuple[int, int]]], common: int, *, raw: list[np.ndarray] | None = None,
-                coding: str = "nrz", whitening: str = "none") -> _Layout | None:
+                coding: str = "nrz", whitening: str = "none", bit_order: str = "msb") -> _Layout | None:
     """The CRC search (see the module notes); None when no layout checks on enough bursts.
 
     A layout must check on at least 30 % of the bursts, and on at least 2 (a
@@ -1565,16 +1578,17 @@ def _crc_layout(usable: list[tuple[np.ndarray, tuple[int, int]]], common: int, *
         # payload starts from 48 bits after the alternation back to where the sync word would have only
         # MIN_SYNC_BITS bits of its own (its first bit may continue the alternation: p1 - 1)
         starts = np.arange(max(p0 + MIN_SYNC_BITS, p1 - 1 + MIN_SYNC_BITS - 2), min(len(b), p1 + 48))
-        for start, n_bytes, crc, first in _crc_hits(b, starts, max_bytes=min(MAX_SEARCH_BYTES, (len(b) - p1) // 8),
-                                                    whitening=whitening):
+        for start, n_bytes, crc, first, crc_order in _crc_hits(
+                b, starts, max_bytes=min(MAX_SEARCH_BYTES, (len(b) - p1) // 8), whitening=whitening,
+                bit_order=bit_order):
             if start + 8 * n_bytes + widths[crc] <= p1 + common:
                 continue
             rel = start - p1
-            keys = [(rel, "fixed", n_bytes, crc)]
+            keys = [(rel, "fixed", n_bytes, crc, crc_order)]
             # a length byte counting the payload, the payload and the CRC, or the whole frame
             for counts, extra in (("payload", 0), ("payload+crc", widths[crc] // 8), ("frame", 1 + widths[crc] // 8)):
                 if n_bytes >= 2 and first == n_bytes - 1 + extra:
-                    keys.append((rel, "prefix8", counts, crc))
+                    keys.append((rel, "prefix8", counts, crc, crc_order))
             for key in keys:
                 votes.setdefault(key, {})[i] = start
                 votes_len.setdefault(key, {})[i] = n_bytes
@@ -1584,7 +1598,7 @@ def _crc_layout(usable: list[tuple[np.ndarray, tuple[int, int]]], common: int, *
         if len(votes[key]) < max(floor, math.ceil(0.3 * len(usable))):
             return False
         # bits that are the same in every burst (preamble, sync word) pass any CRC found in them every time
-        rel, kind, n_bytes, crc = key
+        crc = key[3]
         seen = set()
         for i, start in votes[key].items():
             b = usable[i][0]
@@ -1600,18 +1614,19 @@ def _crc_layout(usable: list[tuple[np.ndarray, tuple[int, int]]], common: int, *
     # shortest frame, then the latest start, is the frame.
     counts_rank = {"payload": 0, "payload+crc": 1, "frame": 2}
     key = max(ranked, key=lambda k: (len(votes[k]), widths[k[3]], -(k[2] if k[1] == "fixed" else 0), k[0],
-                                     -counts_rank.get(k[2], 0)))
-    _, kind, n_bytes, crc = key
+                                     -counts_rank.get(k[2], 0), k[4] == "big"))
+    _, kind, n_bytes, crc, crc_order = key
     members = sorted(votes[key])
     word, n, preamble = _sync_from([usable[i][0] for i in members], [usable[i][1] for i in members],
                                    [votes[key][i] for i in members])
     length = "prefix8" if kind == "prefix8" else n_bytes
     counts = n_bytes if kind == "prefix8" else "payload"
     spec = FrameSpec(sync_word=word, sync_bits=n, sync_tolerance=min(3, n // 8), length=length, crc=crc,
-                     coding=coding, whitening=whitening, length_counts=counts)
+                     coding=coding, whitening=whitening, length_counts=counts, bit_order=bit_order,
+                     crc_order=crc_order)
     streams = raw if raw is not None else [b for b, _ in usable]
     good = sum(any(h.crc_ok for h in find_frames(b, spec)) for b in streams)
-    return _Layout(word, n, preamble, length, crc, good, coding, whitening, counts)
+    return _Layout(word, n, preamble, length, crc, good, coding, whitening, counts, bit_order, crc_order)
 
 
 def _alternations(bits: np.ndarray) -> int:
@@ -1679,6 +1694,7 @@ def _shared_word(usable: list[tuple[np.ndarray, tuple[int, int]]]) -> tuple[int,
 
 MAX_INVALID_PAIRS = 0.2  # Manchester chip pairs that are no symbol, most in a burst of Manchester chips
 WHITENINGS_TRIED = ("none", "pn9")
+BIT_ORDERS_TRIED = ("msb", "lsb")
 
 
 def _manchester_pairs(chips: np.ndarray, pre: tuple[int, int], coding: str) -> tuple[np.ndarray, tuple[int, int], float]:
@@ -1731,8 +1747,10 @@ def _frame_layout(burst_bits: list[np.ndarray]) -> _Layout:
             fallback = (coding, raw, usable)
         # The bits after the alternation that every burst shares: sync word (and any fixed header).
         common = _common_bits([b[p1:] for b, (_, p1) in usable])
-        for whitening in WHITENINGS_TRIED:
-            found = _crc_layout(usable, common, raw=raw, coding=coding, whitening=whitening)
+        for whitening, bit_order in itertools.product(WHITENINGS_TRIED, BIT_ORDERS_TRIED):
+            if best is not None and best.frames_crc_ok == len(usable):
+                break  # every burst checks: a less plain layout cannot do better
+            found = _crc_layout(usable, common, raw=raw, coding=coding, whitening=whitening, bit_order=bit_order)
             if found is not None and (best is None or found.frames_crc_ok > best.frames_crc_ok):
                 best = found
     if best is not None:
@@ -1933,6 +1951,8 @@ def _characterise(capture: Capture, act: _Activity, fs: float, *, block_samples:
         coding=layout.coding,
         whitening=layout.whitening,
         length_counts=layout.length_counts,
+        bit_order=layout.bit_order,
+        crc_order=layout.crc_order,
     )
 
 

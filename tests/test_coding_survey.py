@@ -50,3 +50,12 @@ def test_survey_finds_what_the_length_byte_counts(tmp_path):
         (sig,) = survey(cap).signals
     assert (sig.coding, sig.whitening, sig.length, sig.length_counts) == ("nrz", "none", "prefix8", "payload+crc")
     assert [f.payload for f in iqdemod.decode(meta, sig.to_link()) if f.crc_ok] == payloads
+
+
+def test_survey_finds_lsb_first_bytes_and_a_little_endian_crc(tmp_path):
+    layout = dict(bit_order="lsb", crc_order="little")
+    meta, payloads = modulated_capture(tmp_path / "lsb", layout, ebn0_db=16.0, frames=10, seed=9)
+    with iqdemod.open_capture(meta) as cap:
+        (sig,) = survey(cap).signals
+    assert (sig.coding, sig.whitening, sig.bit_order, sig.crc_order) == ("nrz", "none", "lsb", "little")
+    assert [f.payload for f in iqdemod.decode(meta, sig.to_link()) if f.crc_ok] == payloads
