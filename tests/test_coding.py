@@ -262,3 +262,17 @@ def test_manchester_inverse_and_scheme_name():
         P.ebn0_db_for_pb(1e-5, "manchester", h=1.0)
     with pytest.raises(LinkError, match="n_branches"):
         P.pb_square_law_combining(1.0, 0)
+
+
+@settings(max_examples=80, deadline=None)
+@given(data=st.data(), layout=st.sampled_from(LAYOUTS), n=st.integers(0, 700), soft=st.booleans())
+def test_find_frames_on_noise_stays_in_bounds(data, layout, n, soft):
+    spec = FrameSpec(sync_word=0x2DD4, sync_bits=16, sync_tolerance=3, length="prefix8", crc="CRC-8/SMBUS", **layout)
+    seed = data.draw(st.integers(0, 2**32 - 1))
+    rng = np.random.default_rng(seed)
+    symbols = rng.integers(0, 2, n).astype(np.uint8)
+    stats_ = (rng.exponential(size=n), rng.exponential(size=n)) if soft else None
+    for hit in find_frames(symbols, spec, stats=stats_):
+        assert 0 <= hit.bit_index < n and 0 < hit.n_bits <= n - hit.bit_index
+        assert 0 <= hit.coding_errors <= hit.n_bits // 2 and hit.sync_errors <= 2 * spec.sync_tolerance
+        assert len(hit.payload) <= hit.length or hit.length == 0
