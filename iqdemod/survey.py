@@ -1697,7 +1697,8 @@ WHITENINGS_TRIED = ("none", "pn9")
 BIT_ORDERS_TRIED = ("msb", "lsb")
 
 
-def _manchester_pairs(chips: np.ndarray, pre: tuple[int, int], coding: str) -> tuple[np.ndarray, tuple[int, int], float]:
+def _manchester_pairs(chips: np.ndarray, pre: tuple[int, int], coding: str
+                      ) -> tuple[np.ndarray, tuple[int, int], float]:
     """A burst's chips paired into bits, from the pairing that leaves fewest invalid pairs after the preamble.
 
     Returns the bits, the preamble in bits, and the share of invalid pairs
@@ -1713,7 +1714,10 @@ def _manchester_pairs(chips: np.ndarray, pre: tuple[int, int], coding: str) -> t
     return best
 
 
-def _candidate_streams(burst_bits: list[np.ndarray]) -> list[tuple[str, list[np.ndarray], list[tuple[np.ndarray, tuple[int, int]]]]]:
+_Streams = list[tuple[np.ndarray, tuple[int, int]]]  # decoded bits of each burst, with its preamble (first, after)
+
+
+def _candidate_streams(burst_bits: list[np.ndarray]) -> list[tuple[str, list[np.ndarray], _Streams]]:
     """(coding, the bursts' symbols, the decoded bits with their preambles) for each coding worth trying."""
     raw = [(b, _preamble(b)) for b in burst_bits]
     raw = [(b, p) for b, p in raw if p is not None]

@@ -16,7 +16,6 @@ from hypothesis import given, settings, strategies as st
 from scipy import stats
 
 import fsk_modulator as ref
-import iqdemod
 from iqdemod import coding, framing
 from iqdemod.errors import LinkError
 from iqdemod.framing import body_bytes, find_frames, frame_bits, frame_symbols

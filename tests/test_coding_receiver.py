@@ -12,7 +12,6 @@ import math
 
 import numpy as np
 import pytest
-from scipy import stats
 
 import fsk_modulator as ref
 import iqdemod
