@@ -187,10 +187,6 @@ def frame_bits(
 # CPFSK
 # --------------------------------------------------------------------------------------------
 
-def _norm_cdf(x):
-    return 0.5 * (1.0 + np.vectorize(math.erf, otypes=[float])(x / math.sqrt(2.0)))
-
-
 def _phase_pulse(pulse: str, bt: float, span: float):
     """(q, half_support) for a pulse centred on its symbol's middle; q rises from 0 to ½.
 
@@ -229,13 +225,13 @@ def _phase_pulse(pulse: str, bt: float, span: float):
     return q, half
 
 
+_ERFC = np.frompyfunc(math.erfc, 1, 1)
+
+
 def _erf_cdf(x):
-    # Φ(x) from the complementary error function, vectorised without scipy (which this module
-    # avoids so that it stays a plain-numpy reference). Abramowitz & Stegun 7.1.26 is too coarse
-    # (1.5e-7); math.erfc is exact to double precision, applied element-wise.
-    x = np.asarray(x, dtype=float)
-    flat = np.fromiter((0.5 * math.erfc(-v / math.sqrt(2.0)) for v in x.reshape(-1)), float, x.size)
-    return flat.reshape(x.shape)
+    # Φ(x) = erfc(−x/√2)/2. math.erfc is accurate to double precision; the module keeps to numpy
+    # and the stdlib so that it stays a reference independent of the libraries under test.
+    return 0.5 * np.asarray(_ERFC(-np.asarray(x, dtype=float) / math.sqrt(2.0)), dtype=float)
 
 
 def _cpfsk_phase(bits, t_sym, *, h, pulse="rect", bt=0.5, span=4):
@@ -280,7 +276,8 @@ def cpfsk(bits, *, sps: float, h: float, pulse: str = "rect", bt: float = 0.5, s
     span : float
         Total length of the truncated Gaussian pulse, symbols (±span/2 about the symbol's middle).
     phase0 : float
-        Phase (rad) the modulation phase starts from.
+        φ0 (rad) in φ(t) = φ0 + 2π·h·Σ a_i·q(t − i·T). With the rect pulse it is the phase of the
+        first sample; a Gaussian pulse has already turned the phase a little by then.
 
     Returns
     -------
@@ -376,7 +373,8 @@ class Neighbour:
     offset_hz : float
         Its centre relative to the capture centre.
     level_db : float
-        Its amplitude relative to the first wanted transmission's, dB (20·log10 of the ratio).
+        Its amplitude relative to the first transmission's in `render` (1.0 full scale when there
+        is none), dB: 20·log10 of the amplitude ratio.
     on_s, off_s : float or None
         None: always on. Otherwise it is keyed on for `on_s` and off for `off_s`, repeatedly, from
         a random point of the cycle.
