@@ -80,3 +80,19 @@ def test_generator_eb_is_the_energy_of_a_bit(tmp_path):
                          for f in truth["frames"]])
         a2 = power - 0.05**2
         assert a2 == pytest.approx(10 ** 2.0 * 0.05**2 * rb / 256_000, rel=0.03)
+
+
+def test_survey_writes_a_profile_with_the_coding_that_decode_accepts(tmp_path):
+    meta, payloads = modulated_capture(tmp_path / "m", dict(coding="manchester", whitening="pn9"), ebn0_db=16.0,
+                                       frames=8, seed=4)
+    profile = tmp_path / "buoy.toml"
+    res = run("survey", meta, "--write-link", profile, "-q", "--json")
+    assert res.exit_code == 0, res.stderr
+    (sig,) = json.loads(res.stdout)["signals"]
+    assert (sig["coding"], sig["whitening"]) == ("manchester", "pn9")
+    text = profile.read_text()
+    assert 'coding = "manchester"' in text and 'whitening = "pn9"' in text
+    res = run("decode", meta, "--link", profile)
+    assert res.exit_code == 0, res.stderr
+    good = [bytes.fromhex(r["payload_hex"]) for r in map(json.loads, res.stdout.splitlines()) if r["crc_ok"]]
+    assert good == payloads
