@@ -30,6 +30,17 @@ _LINK_OPTIONS = [
     click.option("--sync-tolerance", type=int, help="Bit errors accepted in the sync word [default: 3]."),
     click.option("--length", help="Payload bytes (1–4096), or prefix8: the first byte is the length [default: 24]."),
     click.option("--crc", help="CRC catalogue name, e.g. CRC-16/IBM-3740, or none [default: CRC-16/IBM-3740]."),
+    click.option("--coding", type=click.Choice(["nrz", "manchester", "manchester-inverted"], case_sensitive=False),
+                 help="Line coding after the preamble; with Manchester --baud is the chip rate [default: nrz]."),
+    click.option("--whitening", type=click.Choice(["none", "pn9"], case_sensitive=False),
+                 help="Whitening XORed over everything after the sync word [default: none]."),
+    click.option("--bit-order", type=click.Choice(["msb", "lsb"], case_sensitive=False),
+                 help="Bit order of the bytes after the sync word [default: msb]."),
+    click.option("--crc-order", type=click.Choice(["big", "little"], case_sensitive=False),
+                 help="Byte order of the CRC on the air [default: big]."),
+    click.option("--length-counts", type=click.Choice(["payload", "payload+crc", "frame"], case_sensitive=False),
+                 help="What a prefix8 length byte counts; frame = length byte, payload and CRC [default: payload]."),
+    click.option("--length-offset", type=int, help="Added to the counted bytes in a prefix8 length byte [default: 0]."),
 ]
 
 

@@ -57,12 +57,17 @@ class DetectorPlan:
         Longest burst piece handed out, in frames.
     overlap_frames : int
         Overlap between the pieces of a long burst, in frames.
+    settle_frames : int
+        Frames at the start of the stream that hold the front end's start-up
+        (its filter over the zeros before the first sample); they take no part
+        in the noise floor.
     """
 
     frame_len: int
     band_bins: np.ndarray
     max_frames: int
     overlap_frames: int
+    settle_frames: int = 0
 
     def initial_state(self) -> "DetectorState":
         return DetectorState()
@@ -111,7 +116,8 @@ class RawBurst:
     piece: int = 0
 
 
-def plan_detector(rate_hz: float, *, baud: float, band_hz: float, max_symbols: int, overlap_symbols: int) -> DetectorPlan:
+def plan_detector(rate_hz: float, *, baud: float, band_hz: float, max_symbols: int, overlap_symbols: int,
+                  settle_samples: int = 0) -> DetectorPlan:
     """Detector settings for a decimated stream at `rate_hz`.
 
     Parameters
@@ -120,6 +126,8 @@ def plan_detector(rate_hz: float, *, baud: float, band_hz: float, max_symbols: i
         Half-width of the signal band the statistic sums over.
     max_symbols, overlap_symbols : int
         Longest burst piece and the overlap between pieces, in symbols.
+    settle_samples : int
+        Samples at the start spoilt by the front end's start-up.
     """
     sps = rate_hz / baud
     frame_len = int(2 ** round(np.log2(max(32.0, FRAME_SYMBOLS * sps))))
@@ -133,6 +141,7 @@ def plan_detector(rate_hz: float, *, baud: float, band_hz: float, max_symbols: i
         band_bins=band,
         max_frames=max(8, int(np.ceil(max_symbols / frame_sym))),
         overlap_frames=int(np.ceil(overlap_symbols / frame_sym)) + PRE_FRAMES,
+        settle_frames=-(-int(settle_samples) // frame_len),
     )
 
 
@@ -229,9 +238,11 @@ def _advance(state: DetectorState, y: np.ndarray, plan: DetectorPlan, *, final: 
         # Minimum statistics find the floor even on a busy channel; the quiet frames under
         # that guard then give the precise value. The block's own frames count, so the
         # first block is judged too.
-        st["minima"] = (st["minima"] + (float(power.min()),))[-HISTORY_BLOCKS:]
-        guard = _floor_from(st["minima"], n_bins)
-        quiet = power[power < ON_RATIO * guard]
+        settled = power[max(0, plan.settle_frames - next_frame) :]
+        if len(settled):
+            st["minima"] = (st["minima"] + (float(settled.min()),))[-HISTORY_BLOCKS:]
+        guard = _floor_from(st["minima"], n_bins) if st["minima"] else float(np.median(power))
+        quiet = settled[settled < ON_RATIO * guard]
         level = float(quiet.mean()) if len(quiet) >= 8 else guard
         st["floor"] = level if st["floor"] is None else 0.7 * st["floor"] + 0.3 * level
         found: list = []

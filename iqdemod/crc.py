@@ -13,7 +13,7 @@ from functools import lru_cache
 
 from .errors import LinkError
 
-__all__ = ["CrcSpec", "CRC_CATALOGUE", "crc_spec", "crc_compute"]
+__all__ = ["CrcSpec", "CRC_CATALOGUE", "crc_spec", "crc_compute", "crc_table", "crc_init", "crc_update", "crc_final"]
 
 
 @dataclass(frozen=True)
@@ -63,8 +63,12 @@ def crc_spec(name: str) -> CrcSpec:
     raise LinkError(f"CRC {name!r}: unknown (known: {', '.join(CRC_CATALOGUE)}, or \"none\")")
 
 
-def _reflect(value: int, width: int) -> int:
-    return int(f"{value:0{width}b}"[::-1], 2)
+def _reflect(value, width: int):
+    """`value` with its low `width` bits reversed; an int, or an integer numpy array element-wise."""
+    out = value & 0
+    for i in range(width):
+        out |= ((value >> i) & 1) << (width - 1 - i)
+    return out
 
 
 @lru_cache(maxsize=None)
@@ -89,22 +93,44 @@ def _table(spec: CrcSpec) -> tuple[int, ...]:
     return tuple(table)
 
 
+def crc_table(spec: CrcSpec) -> tuple[int, ...]:
+    """The byte-wise table of `spec`'s register (reflected when ``refin``)."""
+    if spec.width < 8:
+        raise LinkError(f"CRC {spec.name}: widths below 8 bits are not supported")
+    return _table(spec)
+
+
+def crc_init(spec: CrcSpec) -> int:
+    """The register before the first byte (the catalogue's init, reflected when ``refin``)."""
+    return _reflect(spec.init, spec.width) if spec.refin else spec.init
+
+
+def crc_update(spec: CrcSpec, reg, byte, table):
+    """The register after one more byte.
+
+    Works on Python ints and, element-wise, on int64 numpy arrays of
+    registers and bytes (the survey steps many candidate frames at once);
+    `table` is :func:`crc_table` as a tuple or as a numpy array.
+    """
+    if spec.refin:
+        return (reg >> 8) ^ table[(reg ^ byte) & 0xFF]
+    mask = (1 << spec.width) - 1
+    return ((reg << 8) & mask) ^ table[((reg >> (spec.width - 8)) ^ byte) & 0xFF]
+
+
+def crc_final(spec: CrcSpec, reg):
+    """The CRC value from the register (reflection of the output, xorout); ints or int64 arrays."""
+    if spec.refin != spec.refout:
+        reg = _reflect(reg, spec.width)
+    return (reg ^ spec.xorout) & ((1 << spec.width) - 1)
+
+
 def crc_compute(spec: CrcSpec | str, data: bytes) -> int:
     """The CRC of `data` as the catalogue defines it (final value, after xorout)."""
     if isinstance(spec, str):
         spec = crc_spec(spec)
-    if spec.width < 8:
-        raise LinkError(f"CRC {spec.name}: widths below 8 bits are not supported")
-    table = _table(spec)
-    mask = (1 << spec.width) - 1
-    reg = _reflect(spec.init, spec.width) if spec.refin else spec.init
-    if spec.refin:
-        for byte in data:
-            reg = (reg >> 8) ^ table[(reg ^ byte) & 0xFF]
-    else:
-        shift = spec.width - 8
-        for byte in data:
-            reg = ((reg << 8) & mask) ^ table[((reg >> shift) ^ byte) & 0xFF]
-    if spec.refin != spec.refout:
-        reg = _reflect(reg, spec.width)
-    return (reg ^ spec.xorout) & mask
+    table = crc_table(spec)
+    reg = crc_init(spec)
+    for byte in data:
+        reg = crc_update(spec, reg, byte, table)
+    return crc_final(spec, reg)

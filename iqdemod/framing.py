@@ -1,12 +1,21 @@
-"""Framing: find sync words in hard bits, read the length, check the CRC.
+"""Framing: find sync words in hard decisions, read the length, check the CRC.
 
-Frame layout on the air (bits MSB first)::
+Frame layout on the air::
 
     [preamble 1010…]  sync word  [length byte if "prefix8"]  payload  CRC
 
-With ``length = "prefix8"`` the CRC covers the length byte and the payload;
-with a fixed length it covers the payload. The CRC register value is sent MSB
-first, whatever the CRC's own bit reflection.
+The link's :class:`~iqdemod.link.FrameSpec` says how the frame is coded
+(the coding functions are in :mod:`iqdemod.coding`):
+
+- the sync word is sent MSB first; every byte after it in ``bit_order``;
+- the CRC covers the length byte (if any) and the payload, and its value is
+  sent in ``crc_order`` (big-endian: most significant byte first);
+- ``whitening = "pn9"`` XORs PN9 over everything after the sync word
+  (length, payload and CRC), applied after the CRC is computed;
+- a "prefix8" length byte counts the payload, the payload and the CRC, or
+  the whole frame after the sync word, plus ``length_offset``;
+- ``coding = "manchester"`` (or "manchester-inverted") sends every bit from
+  the sync word on as two chips; the preamble stays alternating symbols.
 """
 
 from __future__ import annotations
@@ -16,10 +25,12 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
 
+from .coding import bits_to_bytes as _pack, bytes_to_bits, manchester_decode, manchester_encode, manchester_soft, whiten
 from .crc import crc_compute, crc_spec
 from .link import FrameSpec
 
-__all__ = ["FrameHit", "find_frames", "frame_bits", "int_to_bits", "bits_to_bytes", "PREAMBLE_BITS"]
+__all__ = ["FrameHit", "find_frames", "frame_bits", "frame_symbols", "body_bytes", "int_to_bits", "bits_to_bytes",
+           "PREAMBLE_BITS"]
 
 PREAMBLE_BITS = 32  # the generator's default preamble length (alternating 1010…)
 
@@ -30,19 +41,26 @@ class FrameHit:
 
     Attributes
     ----------
+    Positions and lengths count symbols on the air: bits, or with Manchester
+    coding chips (two per bit).
+
+    Attributes
+    ----------
     bit_index : int
-        Index of the sync word's first bit in the stream.
+        Index of the sync word's first symbol in the stream.
     sync_errors : int
-        Bit errors in the sync word.
+        Symbol errors in the sync word (bit errors; chip errors with Manchester).
     length : int
         Payload bytes (declared by the length byte for "prefix8").
     payload : bytes
         The payload as read (possibly shorter when `truncated`).
     crc_ok : bool
     n_bits : int
-        Bits of the frame from the sync word's first bit to the CRC's last.
+        Symbols of the frame from the sync word's first to the CRC's last.
     truncated : bool
         The stream ended before the frame did.
+    coding_errors : int
+        Manchester chip pairs in the frame that are no symbol (0,0 or 1,1).
     """
 
     bit_index: int
@@ -52,6 +70,7 @@ class FrameHit:
     crc_ok: bool
     n_bits: int
     truncated: bool = False
+    coding_errors: int = 0
 
 
 def int_to_bits(value: int, n: int) -> np.ndarray:
@@ -59,17 +78,66 @@ def int_to_bits(value: int, n: int) -> np.ndarray:
     return np.array([(value >> (n - 1 - i)) & 1 for i in range(n)], dtype=np.uint8)
 
 
-def bits_to_bytes(bits: np.ndarray) -> bytes:
-    """Pack bits (MSB first) into bytes; a short last byte is padded with zeros."""
-    return np.packbits(np.asarray(bits, dtype=np.uint8)).tobytes()
+def bits_to_bytes(bits: np.ndarray, order: str = "msb") -> bytes:
+    """Pack bits (MSB first, or `order`) into bytes; a short last byte is padded with zeros."""
+    return _pack(bits, order)
 
 
 def _bytes_to_bits(data: bytes) -> np.ndarray:
     return np.unpackbits(np.frombuffer(data, dtype=np.uint8))
 
 
+def _crc_bytes(spec: FrameSpec) -> int:
+    return spec.crc_bits // 8
+
+
+def _length_extra(spec: FrameSpec) -> int:
+    """Bytes a "prefix8" length byte counts beyond the payload, `length_offset` included."""
+    extra = {"payload": 0, "payload+crc": _crc_bytes(spec), "frame": 1 + _crc_bytes(spec)}[spec.length_counts]
+    return extra + spec.length_offset
+
+
+def body_bytes(payload: bytes, spec: FrameSpec) -> bytes:
+    """What follows the sync word, before whitening: [length byte] payload CRC.
+
+    The CRC covers the length byte (if any) and the payload; it is sent in
+    ``spec.crc_order``.
+
+    Raises
+    ------
+    ValueError
+        When the payload does not fit the spec's length.
+
+    Examples
+    --------
+    >>> spec = FrameSpec(sync_word=0x2DD4, sync_bits=16, length=9, crc="CRC-16/IBM-3740", crc_order="little")
+    >>> body_bytes(b"123456789", spec)[-2:].hex()  # REFERENCE §9: the check value 0x29B1, low byte first
+    'b129'
+    """
+    payload = bytes(payload)
+    if spec.length == "prefix8":
+        if not 1 <= len(payload) <= 255:
+            raise ValueError(f"payload of {len(payload)} bytes: prefix8 takes 1–255")
+        value = len(payload) + _length_extra(spec)
+        if not 0 <= value <= 255:
+            raise ValueError(f"payload of {len(payload)} bytes: the length byte would be {value}, outside 0–255")
+        body = bytes([value]) + payload
+    else:
+        if len(payload) != spec.length:
+            raise ValueError(f"payload of {len(payload)} bytes: the link says {spec.length}")
+        body = payload
+    if spec.crc != "none":
+        c = crc_spec(spec.crc)
+        body += crc_compute(c, body).to_bytes(c.width // 8, spec.crc_order)
+    return body
+
+
 def frame_bits(payload: bytes, spec: FrameSpec) -> np.ndarray:
-    """The bits of one frame from the sync word on: sync, [length], payload, CRC.
+    """The bits of one frame from the sync word on: sync, then the (whitened) body.
+
+    The sync word is sent MSB first; the body bytes (:func:`body_bytes`,
+    whitened as ``spec.whitening`` says) in ``spec.bit_order``. These are
+    data bits: with Manchester, :func:`frame_symbols` gives the chips.
 
     Raises
     ------
@@ -78,51 +146,50 @@ def frame_bits(payload: bytes, spec: FrameSpec) -> np.ndarray:
     """
     if spec.sync_word is None:
         raise ValueError("frame_bits needs a sync word (raw mode has no frames)")
-    if spec.length == "prefix8":
-        if not 1 <= len(payload) <= 255:
-            raise ValueError(f"payload of {len(payload)} bytes: prefix8 takes 1–255")
-        body = bytes([len(payload)]) + payload
-    else:
-        if len(payload) != spec.length:
-            raise ValueError(f"payload of {len(payload)} bytes: the link says {spec.length}")
-        body = payload
-    parts = [int_to_bits(spec.sync_word, spec.sync_bits), _bytes_to_bits(body)]
-    if spec.crc != "none":
-        c = crc_spec(spec.crc)
-        parts.append(int_to_bits(crc_compute(c, body), c.width))
-    return np.concatenate(parts)
+    body = whiten(body_bytes(payload, spec), spec.whitening)
+    return np.concatenate([int_to_bits(spec.sync_word, spec.sync_bits), bytes_to_bits(body, spec.bit_order)])
 
 
-def _read_frame(bits: np.ndarray, start: int, errors: int, spec: FrameSpec) -> FrameHit:
-    pos = start + spec.sync_bits
+def frame_symbols(payload: bytes, spec: FrameSpec) -> np.ndarray:
+    """The symbols of one frame on the air from the sync word on (Manchester chips, or the bits)."""
+    bits = frame_bits(payload, spec)
+    return bits if spec.coding == "nrz" else manchester_encode(bits, spec.coding)
+
+
+def _read_body(bits: np.ndarray, pos: int, spec: FrameSpec) -> tuple[int, bytes, bool, int, bool]:
+    """Read the body starting at bit `pos`: (payload length, payload, CRC good, end bit, truncated)."""
     n_total = len(bits)
-    crc_w = spec.crc_bits
+    crc_n = _crc_bytes(spec)
+    head = 0
     if spec.length == "prefix8":
         if pos + 8 > n_total:
-            return FrameHit(start, errors, 0, b"", False, n_total - start, True)
-        length = int(bits_to_bytes(bits[pos : pos + 8])[0])
-        head = bits[pos : pos + 8]
-        pos += 8
-        if length == 0:  # not a frame this layout can carry
-            return FrameHit(start, errors, 0, b"", False, pos - start, False)
+            return 0, b"", False, n_total, True
+        value = whiten(bits_to_bytes(bits[pos : pos + 8], spec.bit_order), spec.whitening)[0]
+        length = value - _length_extra(spec)
+        if not 1 <= length <= 255:  # not a frame this layout can carry
+            return 0, b"", False, pos + 8, False
+        head = 1
     else:
         length = int(spec.length)
-        head = bits[pos:pos]
-    end_payload = pos + 8 * length
-    end = end_payload + crc_w
+    end = pos + 8 * (head + length + crc_n)
     if end > n_total:
-        avail = bits[pos : min(end_payload, n_total)]
-        avail = avail[: len(avail) // 8 * 8]
-        return FrameHit(start, errors, length, bits_to_bytes(avail), False, n_total - start, True)
-    payload = bits_to_bytes(bits[pos:end_payload])
+        avail = bits[pos : min(end, n_total)]
+        data = whiten(bits_to_bytes(avail[: len(avail) // 8 * 8], spec.bit_order), spec.whitening)
+        return length, data[head : head + length], False, n_total, True
+    data = whiten(bits_to_bytes(bits[pos:end], spec.bit_order), spec.whitening)
+    covered, sent = data[: head + length], data[head + length :]
+    payload = covered[head:]
     if spec.crc == "none":
         ok = True
     else:
-        c = crc_spec(spec.crc)
-        body = bits_to_bytes(np.concatenate([head, bits[pos:end_payload]]))
-        sent = int("".join("1" if b else "0" for b in bits[end_payload:end]), 2)
-        ok = crc_compute(c, body) == sent
-    return FrameHit(start, errors, length, payload, ok, end - start, False)
+        ok = crc_compute(crc_spec(spec.crc), covered) == int.from_bytes(sent, spec.crc_order)
+    return length, payload, ok, end, False
+
+
+def sync_symbols(spec: FrameSpec) -> np.ndarray:
+    """The sync word as it goes on the air: its bits, or their Manchester chips (uint8)."""
+    bits = int_to_bits(spec.sync_word, spec.sync_bits)
+    return bits if spec.coding == "nrz" else manchester_encode(bits, spec.coding)
 
 
 def sync_errors(bits: np.ndarray, spec: FrameSpec) -> np.ndarray:
@@ -135,39 +202,91 @@ def sync_errors(bits: np.ndarray, spec: FrameSpec) -> np.ndarray:
     return np.count_nonzero(windows != pattern, axis=1)
 
 
-def find_frames(bits: np.ndarray, spec: FrameSpec) -> list[FrameHit]:
-    """Find every frame in a burst's hard bits.
+def _candidates(dist: np.ndarray, tolerance: int, n: int):
+    """Sync positions within `tolerance`; among candidates within half a word, the best match."""
+    candidates = np.flatnonzero(dist <= tolerance)
+    for idx in candidates:
+        near = candidates[(candidates >= idx) & (candidates < idx + max(1, n // 2))]
+        yield int(idx), int(near[np.argmin(dist[near])])
+
+
+def find_frames(bits: np.ndarray, spec: FrameSpec, *, stats: tuple[np.ndarray, np.ndarray] | None = None
+                ) -> list[FrameHit]:
+    """Find every frame in a burst's hard decisions.
 
     A sync word is accepted with up to ``spec.sync_tolerance`` bit errors; where
     several nearby positions qualify, the one with fewest errors wins. After a
     frame whose CRC is good the search resumes past its end, otherwise just past
     its sync word (a bad length byte must not hide the next frame).
 
+    With Manchester coding, `bits` are the chips' hard decisions: the coded
+    sync word is found in the chip stream (up to twice the tolerance in chip
+    errors), the chips are paired from there, and each pair is decided from
+    the chips' square-law statistics when `stats` are given
+    (:func:`iqdemod.coding.manchester_soft`), otherwise from the hard chips.
+
     Parameters
     ----------
     bits : numpy.ndarray
-        Hard bits (0/1) in time order.
+        Hard decisions (0/1) of the symbols in time order: bits, or chips.
     spec : FrameSpec
+    stats : (z0sq, z1sq), optional
+        Square-law statistics of every symbol (used with Manchester only; NRZ
+        frames are read from the hard bits as before).
 
     Returns
     -------
     list of FrameHit
+        Positions and lengths in symbols on the air.
     """
     if spec.sync_word is None:
         raise ValueError("find_frames needs a sync word (raw mode has no frames)")
     bits = np.asarray(bits, dtype=np.uint8)
+    if spec.coding != "nrz":
+        return _find_coded(bits, spec, stats)
     dist = sync_errors(bits, spec)
-    candidates = np.flatnonzero(dist <= spec.sync_tolerance)
     hits: list[FrameHit] = []
     resume = 0
     n = spec.sync_bits
-    for idx in candidates:
+    for idx, best in _candidates(dist, spec.sync_tolerance, n):
         if idx < resume:
             continue
-        # Among candidates within half a sync word, take the best match.
-        near = candidates[(candidates >= idx) & (candidates < idx + max(1, n // 2))]
-        best = int(near[np.argmin(dist[near])])
-        hit = _read_frame(bits, best, int(dist[best]), spec)
+        length, payload, ok, end, truncated = _read_body(bits, best + n, spec)
+        hit = FrameHit(best, int(dist[best]), length, payload, ok, end - best, truncated)
+        hits.append(hit)
+        resume = best + (hit.n_bits if hit.crc_ok else n)
+    return hits
+
+
+def _find_coded(chips: np.ndarray, spec: FrameSpec, stats) -> list[FrameHit]:
+    pattern = sync_symbols(spec).astype(np.int8)
+    n = len(pattern)
+    if len(chips) < n:
+        return []
+    dist = np.count_nonzero(sliding_window_view(chips.astype(np.int8), n) != pattern, axis=1)
+    if stats is not None:
+        z0, z1 = (np.asarray(z, dtype=np.float64) for z in stats)
+        if z0.shape != chips.shape or z1.shape != chips.shape:
+            raise ValueError(f"stats of {z0.shape}/{z1.shape} for {chips.shape} symbols: must match")
+    # both pairings of the stream, decoded once
+    phases = []
+    for p in (0, 1):
+        if stats is not None:
+            b, invalid, _ = manchester_soft(z0[p:], z1[p:], spec.coding)
+        else:
+            b, invalid = manchester_decode(chips[p:], spec.coding)
+        phases.append((b, np.concatenate([[0], np.cumsum(invalid)])))
+    hits: list[FrameHit] = []
+    resume = 0
+    for idx, best in _candidates(dist, 2 * spec.sync_tolerance, n):
+        if idx < resume:
+            continue
+        b, invalid_sum = phases[best % 2]
+        k = best // 2
+        length, payload, ok, end, truncated = _read_body(b, k + spec.sync_bits, spec)
+        coding_errors = int(invalid_sum[min(end, len(b))] - invalid_sum[k])
+        n_chips = min(2 * (end - k), len(chips) - best)
+        hit = FrameHit(best, int(dist[best]), length, payload, ok, n_chips, truncated, coding_errors)
         hits.append(hit)
         resume = best + (hit.n_bits if hit.crc_ok else n)
     return hits

@@ -34,9 +34,10 @@ import numpy as np
 from . import predict as P
 from .capture import Capture, DEFAULT_BLOCK_SAMPLES, open_capture
 from .errors import IqdemodError
-from .estimate import EbN0Estimate, correct_leakage, pool
-from .link import Link
 from .channel import FrontEndReport
+from .estimate import EbN0Estimate, correct_leakage, estimate_data_aided, pool
+from .framing import frame_symbols
+from .link import FrameSpec, Link
 from .receiver import Burst, Receiver, ReceiverPlan, drive
 
 __all__ = ["HealthReport", "HealthAccumulator", "assess", "HIST_EDGES_DB"]
@@ -97,6 +98,7 @@ class HealthReport:
     iq_phase_deg: float | None = None
     image_rejection_db: float | None = None
     image_rejection_after_db: float | None = None
+    pb_model: str = "noncoherent-fsk"
     histogram_edges_db: tuple[float, ...] = field(default=(), repr=False)
     histogram_right: tuple[int, ...] = field(default=(), repr=False)
     histogram_wrong: tuple[int, ...] = field(default=(), repr=False)
@@ -160,7 +162,7 @@ class HealthAccumulator:
         self._resid += (n, n * burst.residual_hz**2)
         # Good frames: data-aided on their known bits. The others: blind on their own symbols,
         # so the noise at a burst's edges does not dilute the estimate.
-        da = [f.ebn0 for f in good]
+        da = [_frame_estimate(burst, f, self.plan.link.frame) for f in good]
         blind = [f.ebn0 for f in frames if f not in good]
         self._da.extend(da)
         self._blind.extend(blind)
@@ -170,8 +172,8 @@ class HealthAccumulator:
         lo, hi = est.ci90_db
         var = ((hi - lo) / (2 * 1.645)) ** 2 if math.isfinite(lo) and math.isfinite(hi) else math.inf
         bad = sum(not f.crc_ok for f in frames)
-        bits = float(np.mean([f.n_symbols - self.plan.link.frame.sync_bits for f in frames]))
-        self._per_burst.append((est.ebn0_db, var, len(frames), bad, bits))
+        bits = float(np.mean([_frame_data_bits(f, self.plan.link.frame) for f in frames]))
+        self._per_burst.append((est.ebn0_db + _bit_gain_db(self.plan.link.frame), var, len(frames), bad, bits))
         self._bits_sum += bits * len(frames)
         self._bits_n += len(frames)
         self._histogram(burst, est)
@@ -218,6 +220,8 @@ class HealthAccumulator:
             lo_lin, hi_lin = np.dot(w, los) / w.sum(), np.dot(w, his) / w.sum()
             snr_ci = (10 * math.log10(lo_lin) if lo_lin > 0 else -math.inf,
                       10 * math.log10(hi_lin) if math.isfinite(hi_lin) else math.inf)
+        if snr_db is not None:  # per symbol -> per bit (a Manchester bit is two chips)
+            snr_db, snr_ci = _per_bit(snr_db, snr_ci, plan.link.frame)
         ebn0_db = None if snr_db is None else snr_db + corr
         ebn0_ci = None if snr_ci is None else (snr_ci[0] + corr, snr_ci[1] + corr)
         # -- frequency and clock
@@ -251,7 +255,7 @@ class HealthAccumulator:
         # -- margin
         needed = coherent = penalty = margin = None
         try:
-            needed = float(P.ebn0_db_for_pb(target_ber, "mismatched", **kw)) + corr
+            needed = _ebn0_db_needed(target_ber, kw, plan.link.frame) + corr
             coherent = float(P.ebn0_db_for_pb(target_ber, "coherent_orthogonal"))
             penalty = float(P.ebn0_db_for_pb(target_ber, "noncoherent")) - coherent
         except IqdemodError:
@@ -271,6 +275,7 @@ class HealthAccumulator:
             mismatch_loss_db=mismatch, clipped_fraction=float(clipped_fraction), h=sig.h, baud=sig.baud, frame_bits=frame_bits,
             decision_gain_db=-corr, warnings=tuple(warnings), start_time=start_time,
             **_front_end_fields(front_end),
+            pb_model=_pb_model(plan.link.frame),
             histogram_edges_db=tuple(float(v) for v in HIST_EDGES_DB),
             histogram_right=tuple(int(v) for v in self.hist_right),
             histogram_wrong=tuple(int(v) for v in self.hist_wrong),
@@ -293,7 +298,7 @@ class HealthAccumulator:
 
         def rates(offset_db: float) -> tuple[float, float]:
             g = P.from_db(shrunk + offset_db)
-            pb = np.asarray(P.pb_mismatched(g, **kw), float)
+            pb = np.asarray(_pb(g, kw, self.plan.link.frame), float)
             per = np.asarray(P.per_from_ber(pb, np.maximum(bits, 1)), float)
             return float(np.average(pb, weights=nfr * bits)), float(np.average(per, weights=nfr))
 
@@ -331,6 +336,57 @@ class HealthAccumulator:
             "a symbol clock drifting faster than the per-burst timing fit follows",
         ]
         return "worse than theory predicts", causes
+
+
+# ---- line codings (issue 14): the bit is the unit of Eb, predictions and margin
+
+
+def _bit_gain_db(spec: FrameSpec) -> float:
+    """dB from a symbol's decision SNR to a bit's: a Manchester bit carries two chips' energy."""
+    return 10 * math.log10(spec.symbols_per_bit)
+
+
+def _per_bit(snr_db: float, snr_ci, spec: FrameSpec) -> tuple[float, tuple[float, float] | None]:
+    gain = _bit_gain_db(spec)
+    return snr_db + gain, None if snr_ci is None else (snr_ci[0] + gain, snr_ci[1] + gain)
+
+
+def _frame_data_bits(frame, spec: FrameSpec) -> float:
+    """Data bits of a frame after its sync word (its symbols per bit taken out)."""
+    return frame.n_symbols / spec.symbols_per_bit - spec.sync_bits
+
+
+def _frame_estimate(burst: Burst, frame, spec: FrameSpec) -> EbN0Estimate:
+    """The per-symbol decision SNR of a frame whose CRC passed.
+
+    NRZ: the receiver's own data-aided estimate. Manchester: the receiver's
+    chip decisions are not the chips sent where the soft pair decision
+    overruled a wrong chip, so the estimate is made again on the chips sent,
+    which a good CRC gives back exactly (the frame re-encoded).
+    """
+    if spec.coding == "nrz":
+        return frame.ebn0
+    chips = frame_symbols(frame.payload, spec)
+    a = frame.first_symbol
+    n = min(len(chips), frame.n_symbols, burst.n_symbols - a)
+    return estimate_data_aided(burst.z0sq[a : a + n], burst.z1sq[a : a + n], chips[:n], exact_interval=False)
+
+
+def _pb_model(spec: FrameSpec) -> str:
+    """The Pb model of the predictions, as the JSON names it."""
+    if spec.coding == "nrz":
+        return "noncoherent-fsk"  # P.pb_mismatched: tone spacing and residual frequency error
+    return "manchester-square-law-combining-L2"  # P.pb_manchester, REFERENCE §10: orthogonal tones
+
+
+def _pb(g, kw: dict, spec: FrameSpec):
+    return P.pb_mismatched(g, **kw) if spec.coding == "nrz" else P.pb_manchester(g)
+
+
+def _ebn0_db_needed(target_ber: float, kw: dict, spec: FrameSpec) -> float:
+    if spec.coding == "nrz":
+        return float(P.ebn0_db_for_pb(target_ber, "mismatched", **kw))
+    return float(P.ebn0_db_for_pb(target_ber, "manchester"))
 
 
 def assess(

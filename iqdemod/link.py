@@ -18,6 +18,9 @@ line's flags). The profile has three tables::
     sync_tolerance = 3
     length = 24               # payload bytes, or "prefix8"
     crc = "CRC-16/IBM-3740"
+    # coding = "nrz"          # or "manchester", "manchester-inverted" (baud = chip rate)
+    # whitening = "none"      # or "pn9"
+    # bit_order = "msb"       # crc_order = "big"; length_counts = "payload"; length_offset = 0
 
 Everything here is validated when it is built (``__post_init__``); checks that
 need the capture's sample rate are in :meth:`Link.check_rate`.
@@ -32,6 +35,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Mapping
 
+from .coding import BIT_ORDERS, CODINGS, WHITENINGS, symbols_per_bit
 from .crc import crc_spec
 from .errors import LinkError
 
@@ -39,6 +43,8 @@ __all__ = ["CaptureFormat", "SignalSpec", "FrameSpec", "Link", "load_link", "lin
 
 MAX_LENGTH_BYTES = 4096
 MAX_SYNC_BITS = 64
+CRC_ORDERS = ("big", "little")
+LENGTH_COUNTS = ("payload", "payload+crc", "frame")
 
 
 def _number(name: str, value: Any) -> float:
@@ -161,7 +167,7 @@ class SignalSpec:
 
 @dataclass(frozen=True)
 class FrameSpec:
-    """Frame layout: sync word, payload length, CRC. Bits are sent MSB first.
+    """Frame layout: sync word, payload length, CRC, and how they are coded on the air.
 
     Attributes
     ----------
@@ -170,12 +176,26 @@ class FrameSpec:
     sync_bits : int
         How many bits of `sync_word` are sent (1–64).
     sync_tolerance : int
-        Bit errors accepted in the sync word.
+        Bit errors accepted in the sync word (with Manchester, twice as many chip errors).
     length : int or "prefix8"
         Payload bytes (1–4096), or "prefix8": the first byte after the sync word
         is the payload length, and the CRC covers that byte and the payload.
     crc : str
-        A name from the CRC catalogue, or "none". Sent MSB first after the payload.
+        A name from the CRC catalogue, or "none". Sent after the payload.
+    coding : {"nrz", "manchester", "manchester-inverted"}
+        Line coding of everything after the preamble (sync word, length,
+        payload, CRC). Manchester: IEEE 802.3 (0 → chips 1,0; 1 → 0,1), or the
+        inverse (G. E. Thomas); the signal's baud is then the chip rate.
+    whitening : {"none", "pn9"}
+        PN9 XORed over everything after the sync word (REFERENCE §9).
+    bit_order : {"msb", "lsb"}
+        Bit order of every byte after the sync word (the sync word is MSB first).
+    crc_order : {"big", "little"}
+        Byte order of the CRC value on the air.
+    length_counts : {"payload", "payload+crc", "frame"}
+        What a "prefix8" length byte counts ("frame": length byte, payload and CRC).
+    length_offset : int
+        Added to the counted bytes to give the length byte ("prefix8" only).
     """
 
     sync_word: int | None = None
@@ -183,6 +203,12 @@ class FrameSpec:
     sync_tolerance: int = 3
     length: int | str = 24
     crc: str = "CRC-16/IBM-3740"
+    coding: str = "nrz"
+    whitening: str = "none"
+    bit_order: str = "msb"
+    crc_order: str = "big"
+    length_counts: str = "payload"
+    length_offset: int = 0
 
     def __post_init__(self) -> None:
         bits = _integer("sync_bits", self.sync_bits)
@@ -209,6 +235,25 @@ class FrameSpec:
         if not isinstance(self.crc, str):
             raise LinkError(f"crc {self.crc!r}: must be a CRC catalogue name such as \"CRC-16/IBM-3740\", or \"none\"")
         object.__setattr__(self, "crc", "none" if self.crc.lower() == "none" else crc_spec(self.crc).name)
+        self._check_codings()
+
+    def _check_codings(self) -> None:
+        for key, allowed in (("coding", CODINGS), ("whitening", WHITENINGS), ("bit_order", BIT_ORDERS),
+                             ("crc_order", CRC_ORDERS), ("length_counts", LENGTH_COUNTS)):
+            value = getattr(self, key)
+            text = value.strip().lower() if isinstance(value, str) else None
+            if text not in allowed:
+                raise LinkError(f"{key} {value!r}: must be one of " + ", ".join(f'"{a}"' for a in allowed))
+            object.__setattr__(self, key, text)
+        offset = _integer("length_offset", self.length_offset)
+        if not -255 <= offset <= 255:
+            raise LinkError(f"length_offset {offset}: must be within -255–255")
+        object.__setattr__(self, "length_offset", offset)
+        if self.length != "prefix8" and (self.length_counts != "payload" or offset != 0):
+            raise LinkError(
+                f"length_counts {self.length_counts!r} / length_offset {offset}: only for length = \"prefix8\" "
+                "(a fixed length has no length byte)"
+            )
 
     @property
     def raw(self) -> bool:
@@ -220,10 +265,15 @@ class FrameSpec:
         return 0 if self.crc == "none" else crc_spec(self.crc).width
 
     @property
+    def symbols_per_bit(self) -> int:
+        """Symbols on the air per bit: 1, or 2 chips with Manchester."""
+        return symbols_per_bit(self.coding)
+
+    @property
     def max_bits(self) -> int:
-        """The longest frame, sync word included, in bits."""
+        """The longest frame, sync word included, in symbols on the air (bits, or Manchester chips)."""
         payload = 256 if self.length == "prefix8" else int(self.length)
-        return self.sync_bits + 8 * (payload + (self.length == "prefix8")) + self.crc_bits
+        return (self.sync_bits + 8 * (payload + (self.length == "prefix8")) + self.crc_bits) * self.symbols_per_bit
 
 
 @dataclass(frozen=True)
@@ -292,6 +342,12 @@ OVERRIDES: dict[str, tuple[str, str]] = {
     "sync_tolerance": ("frame", "sync_tolerance"),
     "length": ("frame", "length"),
     "crc": ("frame", "crc"),
+    "coding": ("frame", "coding"),
+    "whitening": ("frame", "whitening"),
+    "bit_order": ("frame", "bit_order"),
+    "crc_order": ("frame", "crc_order"),
+    "length_counts": ("frame", "length_counts"),
+    "length_offset": ("frame", "length_offset"),
 }
 
 _KEYS = {
@@ -373,8 +429,9 @@ def load_link(path: str | Path | None = None, **overrides: Any) -> Link:
     **overrides
         Values that replace the profile's: ``datatype``, ``rate``, ``offset``,
         ``frequency``, ``baud``, ``shift``, ``invert``, ``max_freq_error``,
-        ``sync``, ``sync_bits``, ``sync_tolerance``, ``length``, ``crc``. None
-        means "not given".
+        ``sync``, ``sync_bits``, ``sync_tolerance``, ``length``, ``crc``,
+        ``coding``, ``whitening``, ``bit_order``, ``crc_order``,
+        ``length_counts``, ``length_offset``. None means "not given".
 
     Raises
     ------

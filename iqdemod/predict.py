@@ -38,6 +38,8 @@ __all__ = [
     "pb_noncoherent",
     "pb_coherent_orthogonal",
     "pb_antipodal",
+    "pb_square_law_combining",
+    "pb_manchester",
     "tone_correlation",
     "pb_noncoherent_correlated",
     "pb_square_law",
@@ -50,7 +52,7 @@ __all__ = [
     "binomial_p_value",
 ]
 
-_SCHEMES = ("noncoherent", "coherent_orthogonal", "antipodal", "correlated", "mismatched")
+_SCHEMES = ("noncoherent", "coherent_orthogonal", "antipodal", "correlated", "mismatched", "manchester")
 
 
 # --------------------------------------------------------------------------- helpers
@@ -146,6 +148,61 @@ def pb_noncoherent(ebn0):
     """
     g, scalar = _ebn0_array(ebn0)
     return _out(0.5 * np.exp(-0.5 * g), scalar)
+
+
+def pb_square_law_combining(ebn0, n_branches):
+    """Pb of binary orthogonal FSK with square-law combining of L independent branches.
+
+    Proakis, *Digital Communications*, the chapter on diversity: binary
+    orthogonal signals, non-coherent detection, square-law combining of L
+    branches of equal strength (REFERENCE §10), with γ = Eb/N0 the energy of
+    the whole bit over all branches::
+
+        Pb = 2^(1−2L)·e^(−γ/2)·Σ_{n=0}^{L−1} c_n·(γ/2)^n,
+        c_n = (1/n!)·Σ_{k=0}^{L−1−n} C(2L−1, k).
+
+    L = 1 is :func:`pb_noncoherent`.
+
+    Parameters
+    ----------
+    ebn0 : float or array_like
+        Linear Eb/N0 of the whole bit (>= 0).
+    n_branches : int
+        L >= 1.
+
+    Returns
+    -------
+    float or ndarray
+
+    Examples
+    --------
+    >>> round(pb_square_law_combining(10.0, 1), 7) == round(pb_noncoherent(10.0), 7)
+    True
+    """
+    g, scalar = _ebn0_array(ebn0)
+    L = _positive_int(n_branches, "n_branches")
+    half = 0.5 * g
+    total = np.zeros_like(half)
+    for n in range(L):
+        c = sum(math.comb(2 * L - 1, k) for k in range(L - n)) / math.factorial(n)
+        total = total + c * half**n
+    return _out(2.0 ** (1 - 2 * L) * np.exp(-half) * total, scalar)
+
+
+def pb_manchester(ebn0):
+    """Pb of Manchester-coded non-coherent FSK with soft chip combining (REFERENCE §10).
+
+    A Manchester bit is two chips on opposite tones; summing each
+    hypothesis's two square-law chip statistics is square-law combining of
+    L = 2 branches: ``Pb = (1/8)·e^(−γ/2)·(4 + γ/2)``, γ = Eb/N0 with Eb the
+    energy of both chips.
+
+    Examples
+    --------
+    >>> f"{pb_manchester(10.0):.4e}"  # REFERENCE §10 table: 7.5802e-03 at 10 dB
+    '7.5802e-03'
+    """
+    return pb_square_law_combining(ebn0, 2)
 
 
 def pb_coherent_orthogonal(ebn0):
@@ -476,6 +533,7 @@ def _pb_function(scheme: str, kw: dict):
         "antipodal": set(),
         "correlated": {"rho"},
         "mismatched": {"h", "freq_error_T", "samples_per_symbol"},
+        "manchester": set(),
     }
     if scheme not in allowed:
         raise LinkError(f"scheme {scheme!r}: must be one of {', '.join(_SCHEMES)}")
@@ -495,6 +553,8 @@ def _pb_function(scheme: str, kw: dict):
     if scheme == "mismatched":
         pb_mismatched(1.0, **kw)  # validates the options
         return lambda g: pb_mismatched(g, **kw)
+    if scheme == "manchester":
+        return pb_manchester
     return None
 
 
@@ -523,9 +583,10 @@ def ebn0_for_pb(pb, scheme="noncoherent", **options):
     * ``"antipodal"``: exact, ``Q^-1(pb)^2 / 2``;
     * ``"correlated"`` (option ``rho``): :func:`pb_noncoherent_correlated`;
     * ``"mismatched"`` (options ``h``, ``freq_error_T``,
-      ``samples_per_symbol``): :func:`pb_mismatched`.
+      ``samples_per_symbol``): :func:`pb_mismatched`;
+    * ``"manchester"``: :func:`pb_manchester`.
 
-    The last two are solved with ``scipy.optimize.brentq`` on log Pb against
+    The last three are solved with ``scipy.optimize.brentq`` on log Pb against
     Eb/N0 in dB (Pb is monotone in Eb/N0 for these schemes).
 
     Parameters

@@ -30,7 +30,7 @@ from .carrier import coarse_offset, residual_offset
 from .correlate import correlate, tone_sums
 from .estimate import (EbN0Estimate, correct_leakage, estimate_blind, estimate_data_aided,
                        estimate_decision_directed)
-from .framing import bits_to_bytes, find_frames
+from .framing import bits_to_bytes, find_frames, sync_symbols
 from .link import Link
 from .timing import SEGMENT_SYMBOLS, Timing, symbol_starts, symbol_timing
 from .channel import ChannelPlan, FrontEndReport, channelize, flush_channel, front_end_report, plan_channel
@@ -154,6 +154,7 @@ def plan_receiver(link: Link, sample_rate_hz: float, centre_hz: float | None = N
         band_hz=sig.shift_hz / 2 + sig.pull_in_hz + sig.baud / 2,
         max_symbols=max(MAX_BURST_SYMBOLS, 4 * overlap),
         overlap_symbols=overlap,
+        settle_samples=-(-len(tuner.taps) // tuner.decimation),
     )
     return ReceiverPlan(link, float(sample_rate_hz), offset, centre_hz, tuner, detector)
 
@@ -355,7 +356,8 @@ def sync_candidates(sums: np.ndarray, plan: ReceiverPlan, *, threshold: float = 
     """
     spec = plan.link.frame
     T = plan.period
-    n_sync = spec.sync_bits
+    pattern = sync_symbols(spec).astype(np.float64) * 2 - 1
+    n_sync = len(pattern)
     n = sums.shape[1] - 1
     whole = int(np.floor(T))
     m = n - whole - 1
@@ -367,7 +369,6 @@ def sync_candidates(sums: np.ndarray, plan: ReceiverPlan, *, threshold: float = 
     p = z.real**2 + z.imag**2
     d = p[1] - p[0]
     e = p[1] + p[0]
-    pattern = np.array([(spec.sync_word >> (n_sync - 1 - i)) & 1 for i in range(n_sync)], np.float64) * 2 - 1
     offsets = np.round(np.arange(n_sync) * T).astype(np.intp)
     width = m - span
     score = np.zeros(width)
@@ -578,7 +579,7 @@ def _frames_of(burst: Burst, plan: ReceiverPlan, raw_start: int, starts: np.ndar
                       db, bits=burst.bits, first_symbol=0, n_symbols=burst.n_symbols, ebn0=est)
             )
     else:
-        for hit in find_frames(burst.bits, spec):
+        for hit in find_frames(burst.bits, spec, stats=(burst.z0sq, burst.z1sq)):
             a, b = hit.bit_index, min(hit.bit_index + hit.n_bits, burst.n_symbols)
             est = _estimate(burst.z0sq[a:b], burst.z1sq[a:b], burst.bits[a:b] if hit.crc_ok else None,
                             plan.tone_leakage)

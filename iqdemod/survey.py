@@ -47,6 +47,21 @@ always in blocks, and only short excerpts of a few bursts are ever kept:
    common to nearly every burst after the preamble, the length what the
    shortest burst holds after it, and the CRC "none".
 
+   The codings of :mod:`iqdemod.coding` are tried the same way. When the
+   symbols after the preamble pair into valid Manchester symbols (few chip
+   pairs 0,0 or 1,1, in the better of the two pairings), the bursts are also
+   read as Manchester in both conventions, whose bits are complements, so
+   only the CRC tells them apart; each reading is searched plain and
+   de-whitened with PN9 from each candidate payload start, with bytes MSB
+   and LSB first; the CRC may be sent big- or little-endian, and a length
+   byte may count the payload, the payload and the CRC, or the whole frame.
+   The layout whose frames check on most bursts wins (the plainer one on a
+   tie), and the receiver's own :func:`~iqdemod.framing.find_frames`
+   confirms it on the symbols as demodulated. Manchester chips put the
+   strongest line of the transition train at the bit rate (a change in the
+   middle of every bit), so a line whose changes fall on two phases half a
+   period apart is taken for half the symbol period.
+
 The result, :class:`SurveyResult`, lists the signals strongest first; each
 :class:`SignalFound` turns into a :class:`~iqdemod.link.Link` that
 :func:`iqdemod.decode` accepts.
@@ -63,6 +78,7 @@ match places the payload exactly.
 from __future__ import annotations
 
 import dataclasses
+import itertools
 import math
 import os
 from dataclasses import dataclass, field
@@ -77,7 +93,8 @@ from scipy import signal as _sig
 from scipy.ndimage import binary_closing, median_filter, uniform_filter1d
 
 from .capture import Capture, DEFAULT_BLOCK_SAMPLES
-from .crc import CRC_CATALOGUE, CrcSpec
+from .coding import bytes_to_bits, manchester_decode, whiten
+from .crc import CRC_CATALOGUE, CrcSpec, crc_final, crc_init, crc_table, crc_update
 from .errors import CaptureError, IqdemodError
 from .framing import find_frames
 from .link import CaptureFormat, FrameSpec, Link, SignalSpec
@@ -216,6 +233,12 @@ class SignalFound:
         Payload bytes (from the CRC search, or a guess from the burst lengths).
     crc : str or None
         The catalogue CRC that checks on the bursts, or None.
+    coding, whitening, length_counts, bit_order, crc_order : str
+        The line coding ("nrz", "manchester", "manchester-inverted"), the
+        whitening ("none", "pn9"), what a "prefix8" length byte counts, the
+        bit order of the bytes and the CRC's byte order, as the framing
+        search found them (see :class:`~iqdemod.link.FrameSpec`).
+        With Manchester, `baud` is the chip rate and `sync_guess` is in bits.
     bursts_checked, frames_crc_ok : int
         Bursts demodulated for the framing search, and how many of them carry a
         frame with a good CRC under the layout found.
@@ -239,6 +262,11 @@ class SignalFound:
     bursts_checked: int = 0
     frames_crc_ok: int = 0
     example: Excerpt | None = field(default=None, repr=False)
+    coding: str = "nrz"
+    whitening: str = "none"
+    length_counts: str = "payload"
+    bit_order: str = "msb"
+    crc_order: str = "big"
 
     def __post_init__(self) -> None:
         if not self.baud > 0:
@@ -257,6 +285,11 @@ class SignalFound:
             raise IqdemodError(f"sync_bits {self.sync_bits}: must be within 1–64")
         if self.crc is not None and self.crc not in CRC_CATALOGUE:
             raise IqdemodError(f"crc {self.crc!r}: not a catalogue name")
+        try:
+            FrameSpec(sync_word=None, length="prefix8", coding=self.coding, whitening=self.whitening,
+                      length_counts=self.length_counts, bit_order=self.bit_order, crc_order=self.crc_order)
+        except IqdemodError as exc:
+            raise IqdemodError(f"signal found: {exc}") from None
 
     @property
     def shift_hz(self) -> float:
@@ -301,7 +334,9 @@ class SignalFound:
             bits = int(self.sync_bits)
             tol = min(3, bits // 8) if sync_tolerance is None else int(sync_tolerance)
             frame = FrameSpec(sync_word=int(self.sync_guess, 16), sync_bits=bits, sync_tolerance=tol,
-                              length=self.length, crc=self.crc or "none")
+                              length=self.length, crc=self.crc or "none", coding=self.coding,
+                              whitening=self.whitening, bit_order=self.bit_order, crc_order=self.crc_order,
+                              length_counts=self.length_counts if self.length == "prefix8" else "payload")
         return Link(signal=sig, frame=frame, capture=capture or CaptureFormat())
 
 
@@ -1180,6 +1215,25 @@ def _line_rate(trains: list[np.ndarray], rate_hz: float, lo_hz: float, hi_hz: fl
     return float(freqs[best])
 
 
+def _two_phases(times: list[np.ndarray], period: float) -> bool:
+    """True when the tone changes fall on two phases half a `period` apart, not one.
+
+    The transition line of Manchester chips is strongest at half the chip
+    rate (a change in the middle of every bit, at bit boundaries only
+    between equal bits), so :func:`_line_rate` takes the bit rate for the
+    fundamental. Folded on the bit period, the changes then sit at two
+    phases, a third of them opposite the rest: the first circular moment
+    |E exp(j2πt/T)| is about ⅓ while the second, |E exp(j4πt/T)|, stays near
+    1. On a true symbol grid both moments are alike.
+    """
+    t = np.concatenate([np.asarray(x, float) for x in times]) if times else np.zeros(0)
+    if t.size < 16:
+        return False
+    first = abs(np.mean(np.exp(1j * _TWO_PI * t / period)))
+    second = abs(np.mean(np.exp(2j * _TWO_PI * t / period)))
+    return bool(first < 0.6 * second)
+
+
 def _refine_period(times: list[np.ndarray], period: float, *, points: int = 121) -> float:
     """Symbol period maximising the summed point-process periodogram Σ_b |Σ_k exp(j2π t_k / T)|² (Bartlett 1963).
 
@@ -1312,13 +1366,15 @@ def _modulation_once(excerpts: list[ActivityBurst], rate_hz: float, centre_hz: f
     if line is None:
         return None
     period = rate_hz / line
+    if rate_hz / (period / 2) <= hi_rate and _two_phases(times, period):
+        period /= 2  # Manchester chips: the line at the bit rate is not the symbol rate
     # refine the rate on the transition instants, then the tones on steady symbols
     for _ in range(2):
         smooth = max(1, int(round(period / 4)))
         times = [_transition_times(uniform_filter1d(f, smooth) if smooth > 1 else f, centre, shift / 4)
                  for f in spans]
         period = _refine_period(times, period)
-        lows, highs, every = [], [], []
+        lows, highs, every, pairs = [], [], [], []
         for f, t in zip(raw_if, times):
             v = _symbol_values(f, t, period)
             every.append(v)
@@ -1329,8 +1385,15 @@ def _modulation_once(excerpts: list[ActivityBurst], rate_hz: float, centre_hz: f
             steady[1:-1] = (d[1:-1] == d[:-2]) & (d[1:-1] == d[2:])
             lows.append(v[steady & ~d])
             highs.append(v[steady & d])
+            # Manchester chips never run to three: fall back on symbols with one equal neighbour
+            half = np.zeros(len(v), dtype=bool)
+            half[1:-1] = (d[1:-1] == d[:-2]) | (d[1:-1] == d[2:])
+            pairs.append((v[half & ~d], v[half & d]))
         lows_a = np.concatenate(lows) if lows else np.zeros(0)
         highs_a = np.concatenate(highs) if highs else np.zeros(0)
+        if (lows_a.size < 8 or highs_a.size < 8) and pairs:
+            lows_a = np.concatenate([a for a, _ in pairs])
+            highs_a = np.concatenate([b for _, b in pairs])
         if lows_a.size >= 8 and highs_a.size >= 8:
             lo, hi = float(np.median(lows_a)), float(np.median(highs_a))
             shift, centre = hi - lo, (lo + hi) / 2
@@ -1374,83 +1437,59 @@ def _ebn0_and_power(excerpts: list[ActivityBurst], watch: _Watch, floor: float |
 # --------------------------------------------------------------------------- framing from demodulated bursts
 
 
-def _reflect(values: np.ndarray, width: int) -> np.ndarray:
-    out = np.zeros_like(values)
-    for i in range(width):
-        out |= ((values >> i) & 1) << (width - 1 - i)
-    return out
-
-
 @lru_cache(maxsize=None)
-def _crc_table(spec: CrcSpec) -> np.ndarray:
-    """Byte-wise table of a CRC register in Williams' parametrised model (reflected when refin)."""
-    w = spec.width
-    mask = (1 << w) - 1
-    table = np.zeros(256, dtype=np.int64)
-    if spec.refin:
-        poly = int(_reflect(np.array([spec.poly], np.int64), w)[0])
-        for byte in range(256):
-            reg = byte
-            for _ in range(8):
-                reg = (reg >> 1) ^ poly if reg & 1 else reg >> 1
-            table[byte] = reg & mask
-    else:
-        top = 1 << (w - 1)
-        for byte in range(256):
-            reg = byte << (w - 8)
-            for _ in range(8):
-                reg = ((reg << 1) ^ spec.poly) if reg & top else reg << 1
-            table[byte] = reg & mask
-    return table
+def _table_array(spec: CrcSpec) -> np.ndarray:
+    return np.array(crc_table(spec), dtype=np.int64)
 
 
-def _window_values(bits: np.ndarray, width: int) -> np.ndarray:
-    """The `width`-bit value (MSB first) starting at every position of `bits`."""
-    if len(bits) < width:
-        return np.zeros(0, dtype=np.int64)
-    weights = (1 << np.arange(width - 1, -1, -1, dtype=np.int64))
-    return sliding_window_view(bits.astype(np.int64), width) @ weights
+def _crc_hits(bits: np.ndarray, starts: np.ndarray, max_bytes: int, *, whitening: str = "none",
+              bit_order: str = "msb") -> list[tuple[int, int, str, int, str]]:
+    """Every (start, n_bytes, CRC name, first byte, CRC byte order) where the CRC of the bytes from `start`
+    equals the bytes that follow, read big- or little-endian.
 
-
-def _crc_hits(bits: np.ndarray, starts: np.ndarray, max_bytes: int) -> list[tuple[int, int, str]]:
-    """Every (start, n_bytes, CRC name) where the CRC of the bytes from `start` equals the bits that follow.
-
-    All starts are computed together, one byte step at a time.
+    The bytes from each start are read in `bit_order` and, with ``whitening =
+    "pn9"``, de-whitened from that start on (whitening begins right after
+    the sync word, which is where the CRC's coverage begins). All starts are
+    computed together, one byte step at a time, with the CRC register of
+    :mod:`iqdemod.crc`.
     """
     bits = np.asarray(bits, dtype=np.uint8)
     starts = starts[starts + 8 + 8 <= len(bits)]
     if starts.size == 0:
         return []
     n_bytes = min(max_bytes, (len(bits) - int(starts.min())) // 8)
-    padded = np.concatenate([bits, np.zeros(8 * n_bytes + 64, np.uint8)])
-    idx = starts[:, None] + np.arange(8 * n_bytes)[None, :]
-    data = np.packbits(padded[idx].reshape(len(starts), n_bytes, 8), axis=2)[:, :, 0].astype(np.int64)
+    widest = max(spec.width for spec in CRC_CATALOGUE.values()) // 8
+    total = n_bytes + widest
+    padded = np.concatenate([bits, np.zeros(8 * total + 64, np.uint8)])
+    rows = padded[starts[:, None] + np.arange(8 * total)[None, :]]
+    if whitening != "none":
+        rows = rows ^ bytes_to_bits(whiten(bytes(total), whitening), bit_order)[None, :]
+    order = "big" if bit_order == "msb" else "little"
+    data = np.packbits(rows.reshape(len(starts), total, 8), axis=2, bitorder=order)[:, :, 0].astype(np.int64)
     hits = []
     for spec in CRC_CATALOGUE.values():
         w = spec.width
         if w < 8:
             continue
-        table = _crc_table(spec)
-        mask = (1 << w) - 1
-        windows = _window_values(bits, w)
-        reg = np.full(len(starts), int(_reflect(np.array([spec.init], np.int64), w)[0]) if spec.refin else spec.init,
-                      dtype=np.int64)
+        table = _table_array(spec)
+        wb = w // 8
+        sent = np.zeros((len(starts), total - wb + 1), dtype=np.int64)  # big-endian value from each byte on
+        sent_le = np.zeros_like(sent)  # and little-endian
+        for j in range(wb):
+            sent = (sent << 8) | data[:, j : j + total - wb + 1]
+            sent_le |= data[:, j : j + total - wb + 1] << (8 * j)
+        reg = np.full(len(starts), crc_init(spec), dtype=np.int64)
         for k in range(n_bytes):
-            byte = data[:, k]
-            if spec.refin:
-                reg = (reg >> 8) ^ table[(reg ^ byte) & 0xFF]
-            else:
-                reg = ((reg << 8) & mask) ^ table[((reg >> (w - 8)) ^ byte) & 0xFF]
-            out = _reflect(reg, w) if spec.refin != spec.refout else reg
-            out = (out ^ spec.xorout) & mask
+            reg = crc_update(spec, reg, data[:, k], table)
             pos = starts + 8 * (k + 1)
             ok = pos + w <= len(bits)
             if not ok.any():
                 break
-            match = np.zeros(len(starts), dtype=bool)
-            match[ok] = windows[pos[ok]] == out[ok]
-            for i in np.flatnonzero(match):
-                hits.append((int(starts[i]), k + 1, spec.name))
+            value = crc_final(spec, reg)
+            for crc_order, table_sent in (("big", sent), ("little", sent_le)):
+                match = ok & (table_sent[:, k + 1] == value)
+                for i in np.flatnonzero(match):
+                    hits.append((int(starts[i]), k + 1, spec.name, int(data[i, 0]), crc_order))
     return hits
 
 
@@ -1478,6 +1517,11 @@ class _Layout:
     length: int | str | None = None
     crc: str | None = None
     frames_crc_ok: int = 0
+    coding: str = "nrz"
+    whitening: str = "none"
+    length_counts: str = "payload"
+    bit_order: str = "msb"
+    crc_order: str = "big"
 
 
 def _majority(rows: list[np.ndarray]) -> np.ndarray:
@@ -1511,7 +1555,8 @@ def _common_bits(aligned: list[np.ndarray], *, agree: float = 0.9) -> int:
     return int(bad[0]) if bad.size else limit
 
 
-def _crc_layout(usable: list[tuple[np.ndarray, tuple[int, int]]], common: int) -> _Layout | None:
+def _crc_layout(usable: list[tuple[np.ndarray, tuple[int, int]]], common: int, *, raw: list[np.ndarray] | None = None,
+                coding: str = "nrz", whitening: str = "none", bit_order: str = "msb") -> _Layout | None:
     """The CRC search (see the module notes); None when no layout checks on enough bursts.
 
     A layout must check on at least 30 % of the bursts, and on at least 2 (a
@@ -1521,39 +1566,43 @@ def _crc_layout(usable: list[tuple[np.ndarray, tuple[int, int]]], common: int) -
     CRC that checks inside the sync word checks on every burst. (So frames
     that never change cannot be told apart from their sync word; the shared
     word then stands in.)
+
+    `usable` holds the decoded bits (Manchester chips already paired) and
+    `raw` the symbols as demodulated, on which the layout found is checked
+    by the receiver's own :func:`~iqdemod.framing.find_frames`.
     """
     widths = {name: spec.width for name, spec in CRC_CATALOGUE.items()}
     votes: dict[tuple, dict[int, int]] = {}
+    votes_len: dict[tuple, dict[int, int]] = {}  # bytes the CRC covers, per burst
     for i, (b, (p0, p1)) in enumerate(usable):
         # payload starts from 48 bits after the alternation back to where the sync word would have only
         # MIN_SYNC_BITS bits of its own (its first bit may continue the alternation: p1 - 1)
         starts = np.arange(max(p0 + MIN_SYNC_BITS, p1 - 1 + MIN_SYNC_BITS - 2), min(len(b), p1 + 48))
-        for start, n_bytes, crc in _crc_hits(b, starts, max_bytes=min(MAX_SEARCH_BYTES, (len(b) - p1) // 8)):
+        for start, n_bytes, crc, first, crc_order in _crc_hits(
+                b, starts, max_bytes=min(MAX_SEARCH_BYTES, (len(b) - p1) // 8), whitening=whitening,
+                bit_order=bit_order):
             if start + 8 * n_bytes + widths[crc] <= p1 + common:
                 continue
             rel = start - p1
-            keys = [(rel, "fixed", n_bytes, crc)]
-            first = int(np.packbits(b[start : start + 8])[0])
-            if first == n_bytes - 1 and first >= 1:
-                keys.append((rel, "prefix8", 0, crc))
+            keys = [(rel, "fixed", n_bytes, crc, crc_order)]
+            # a length byte counting the payload, the payload and the CRC, or the whole frame
+            for counts, extra in (("payload", 0), ("payload+crc", widths[crc] // 8), ("frame", 1 + widths[crc] // 8)):
+                if n_bytes >= 2 and first == n_bytes - 1 + extra:
+                    keys.append((rel, "prefix8", counts, crc, crc_order))
             for key in keys:
                 votes.setdefault(key, {})[i] = start
+                votes_len.setdefault(key, {})[i] = n_bytes
 
     def enough(key: tuple) -> bool:
         floor = 2 if widths[key[3]] >= 16 else 3
         if len(votes[key]) < max(floor, math.ceil(0.3 * len(usable))):
             return False
         # bits that are the same in every burst (preamble, sync word) pass any CRC found in them every time
-        rel, kind, n_bytes, crc = key
-        span = widths[crc] + 8 * n_bytes if kind == "fixed" else None
+        crc = key[3]
         seen = set()
         for i, start in votes[key].items():
             b = usable[i][0]
-            if span is None:  # prefix8: the length byte says how far the frame goes
-                end = start + 8 * (int(np.packbits(b[start : start + 8])[0]) + 1) + widths[crc]
-            else:
-                end = start + span
-            seen.add(b[start:end].tobytes())
+            seen.add(b[start : start + 8 * votes_len[key][i] + widths[crc]].tobytes())
         return len(seen) >= 2
 
     ranked = [k for k in votes if enough(k)]
@@ -1563,15 +1612,21 @@ def _crc_layout(usable: list[tuple[np.ndarray, tuple[int, int]]], common: int) -
     # before it (one byte longer per byte earlier) checks on every burst once in 2^width; and with a
     # zero initial register, a window one bit earlier passes when the sync word ends in a 0. The
     # shortest frame, then the latest start, is the frame.
-    key = max(ranked, key=lambda k: (len(votes[k]), widths[k[3]], -k[2], k[0]))
-    _, kind, n_bytes, crc = key
+    counts_rank = {"payload": 0, "payload+crc": 1, "frame": 2}
+    key = max(ranked, key=lambda k: (len(votes[k]), widths[k[3]], -(k[2] if k[1] == "fixed" else 0), k[0],
+                                     -counts_rank.get(k[2], 0), k[4] == "big"))
+    _, kind, n_bytes, crc, crc_order = key
     members = sorted(votes[key])
     word, n, preamble = _sync_from([usable[i][0] for i in members], [usable[i][1] for i in members],
                                    [votes[key][i] for i in members])
     length = "prefix8" if kind == "prefix8" else n_bytes
-    spec = FrameSpec(sync_word=word, sync_bits=n, sync_tolerance=min(3, n // 8), length=length, crc=crc)
-    good = sum(any(h.crc_ok for h in find_frames(b, spec)) for b, _ in usable)
-    return _Layout(word, n, preamble, length, crc, good)
+    counts = n_bytes if kind == "prefix8" else "payload"
+    spec = FrameSpec(sync_word=word, sync_bits=n, sync_tolerance=min(3, n // 8), length=length, crc=crc,
+                     coding=coding, whitening=whitening, length_counts=counts, bit_order=bit_order,
+                     crc_order=crc_order)
+    streams = raw if raw is not None else [b for b, _ in usable]
+    good = sum(any(h.crc_ok for h in find_frames(b, spec)) for b in streams)
+    return _Layout(word, n, preamble, length, crc, good, coding, whitening, counts, bit_order, crc_order)
 
 
 def _alternations(bits: np.ndarray) -> int:
@@ -1637,17 +1692,77 @@ def _shared_word(usable: list[tuple[np.ndarray, tuple[int, int]]]) -> tuple[int,
     return None
 
 
+MAX_INVALID_PAIRS = 0.2  # Manchester chip pairs that are no symbol, most in a burst of Manchester chips
+WHITENINGS_TRIED = ("none", "pn9")
+BIT_ORDERS_TRIED = ("msb", "lsb")
+
+
+def _manchester_pairs(chips: np.ndarray, pre: tuple[int, int], coding: str
+                      ) -> tuple[np.ndarray, tuple[int, int], float]:
+    """A burst's chips paired into bits, from the pairing that leaves fewest invalid pairs after the preamble.
+
+    Returns the bits, the preamble in bits, and the share of invalid pairs
+    after the preamble (near 0 for Manchester chips, about ½ for NRZ bits).
+    """
+    best = None
+    for phase in (0, 1):
+        bits, invalid = manchester_decode(chips[phase:], coding)
+        after = invalid[max(0, (pre[1] - phase) // 2) :]
+        share = float(np.mean(after)) if after.size else 1.0
+        if best is None or share < best[2]:
+            best = (bits, ((pre[0] - phase + 1) // 2, (pre[1] - phase) // 2), share)
+    return best
+
+
+_Streams = list[tuple[np.ndarray, tuple[int, int]]]  # decoded bits of each burst, with its preamble (first, after)
+
+
+def _candidate_streams(burst_bits: list[np.ndarray]) -> list[tuple[str, list[np.ndarray], _Streams]]:
+    """(coding, the bursts' symbols, the decoded bits with their preambles) for each coding worth trying."""
+    raw = [(b, _preamble(b)) for b in burst_bits]
+    raw = [(b, p) for b, p in raw if p is not None]
+    out = [("nrz", [b for b, _ in raw], raw)]
+    if not raw:
+        return out
+    # Manchester chips pair into valid symbols after the preamble, NRZ bits into about half invalid ones;
+    # both conventions read the same pairs (as complementary bits), so the CRC decides between them.
+    ieee = [_manchester_pairs(b, p, "manchester") for b, p in raw]
+    if np.median([share for _, _, share in ieee]) <= MAX_INVALID_PAIRS:
+        for coding in ("manchester", "manchester-inverted"):
+            decoded = [((bits if coding == "manchester" else 1 - bits).astype(np.uint8), pre)
+                       for bits, pre, _ in ieee]
+            out.append((coding, [b for b, _ in raw], decoded))
+    return out
+
+
 def _frame_layout(burst_bits: list[np.ndarray]) -> _Layout:
-    """Sync word, length and CRC from a few demodulated bursts (see the module notes)."""
-    usable = [(b, _preamble(b)) for b in burst_bits]
-    usable = [(b, p) for b, p in usable if p is not None]
-    if len(usable) < 2:
+    """Sync word, length, CRC, coding and whitening from a few demodulated bursts (see the module notes).
+
+    Every coding the bursts could carry (NRZ; Manchester in both conventions
+    when the chips pair into valid symbols) and every whitening is tried; the
+    layout whose frames check on most bursts wins, the plainer one on a tie.
+    """
+    best: _Layout | None = None
+    fallback: tuple[str, list[np.ndarray], list] | None = None
+    for coding, raw, usable in _candidate_streams(burst_bits):
+        if len(usable) < 2:
+            continue
+        if fallback is None or coding == "manchester":
+            fallback = (coding, raw, usable)
+        # The bits after the alternation that every burst shares: sync word (and any fixed header).
+        common = _common_bits([b[p1:] for b, (_, p1) in usable])
+        for whitening, bit_order in itertools.product(WHITENINGS_TRIED, BIT_ORDERS_TRIED):
+            if best is not None and best.frames_crc_ok == len(usable):
+                break  # every burst checks: a less plain layout cannot do better
+            found = _crc_layout(usable, common, raw=raw, coding=coding, whitening=whitening, bit_order=bit_order)
+            if found is not None and (best is None or found.frames_crc_ok > best.frames_crc_ok):
+                best = found
+    if best is not None:
+        return _with_symbols(best)
+    if fallback is None:
         return _Layout()
-    # The bits after the alternation that every burst shares: sync word (and any fixed header).
-    common = _common_bits([b[p1:] for b, (_, p1) in usable])
-    found = _crc_layout(usable, common)
-    if found is not None:
-        return found
+    # Without a CRC match the conventions cannot be told apart: IEEE 802.3 when the chips pair up.
+    coding, raw, usable = fallback
     shared = _shared_word(usable)
     if shared is None:
         return _Layout()
@@ -1656,7 +1771,14 @@ def _frame_layout(burst_bits: list[np.ndarray]) -> _Layout:
     preamble = int(np.median([e - n - p[0] for _, p, e in carriers]))
     tail = min(len(b) - e for b, _, e in carriers)
     # No CRC to bound the frame: the length is what the shortest burst holds after the sync word.
-    return _Layout(word, n, max(0, preamble), tail // 8 if tail >= 8 else None, None, 0)
+    return _with_symbols(_Layout(word, n, max(0, preamble), tail // 8 if tail >= 8 else None, None, 0, coding))
+
+
+def _with_symbols(layout: _Layout) -> _Layout:
+    """The preamble counted in symbols on the air (it is not coded: one symbol each, not one bit)."""
+    if layout.coding == "nrz" or layout.preamble_bits is None:
+        return layout
+    return dataclasses.replace(layout, preamble_bits=2 * layout.preamble_bits)
 
 
 def _demodulated_bits(capture: Capture, signal: SignalSpec, *, block_samples: int, progress: bool) -> list[np.ndarray]:
@@ -1830,6 +1952,11 @@ def _characterise(capture: Capture, act: _Activity, fs: float, *, block_samples:
         bursts_checked=checked,
         frames_crc_ok=layout.frames_crc_ok,
         example=example,
+        coding=layout.coding,
+        whitening=layout.whitening,
+        length_counts=layout.length_counts,
+        bit_order=layout.bit_order,
+        crc_order=layout.crc_order,
     )
 
 

@@ -33,7 +33,7 @@ from scipy.signal import fftconvolve
 
 from .capture import parse_datatype
 from .errors import LinkError
-from .framing import PREAMBLE_BITS, frame_bits
+from .framing import PREAMBLE_BITS, frame_symbols
 from .link import Link
 from ._io import atomic_writer
 
@@ -201,7 +201,7 @@ def _plan_bursts(cfg: SynthConfig, rng: np.random.Generator) -> list[dict]:
             body = np.unpackbits(np.frombuffer(payload, np.uint8))
         else:
             payload = _payload(rng, i, cfg)
-            body = frame_bits(payload, link.frame)
+            body = frame_symbols(payload, link.frame)  # the symbols on the air (Manchester: chips)
         pre = np.resize(np.array([1, 0], np.uint8), cfg.preamble_bits)
         tail = np.resize(np.array([1, 0], np.uint8), TAIL_BITS)
         bits = np.concatenate([pre, body, tail])
@@ -257,7 +257,8 @@ def _blocks(cfg: SynthConfig, plans: list[dict], total: int) -> Iterator[np.ndar
                 cache.pop(i, None)
                 continue
             if i not in cache:
-                amp = amplitude_for_ebn0(p["ebn0_db"], noise_var=cfg.noise_rms**2, sample_rate_hz=fs, baud=sig.baud)
+                amp = amplitude_for_ebn0(p["ebn0_db"], noise_var=cfg.noise_rms**2, sample_rate_hz=fs,
+                                         baud=sig.baud / cfg.link.frame.symbols_per_bit)  # Eb: a bit, not a chip
                 cache[i] = (amp * fsk_burst(
                     p["bits"],
                     sample_rate_hz=fs,
