@@ -30,7 +30,7 @@ from .carrier import coarse_offset, residual_offset
 from .correlate import correlate, tone_sums
 from .estimate import (EbN0Estimate, correct_leakage, estimate_blind, estimate_data_aided,
                        estimate_decision_directed)
-from .framing import bits_to_bytes, find_frames, sync_symbols
+from .framing import bits_to_bytes, find_frames, frame_symbols, sync_symbols
 from .link import Link
 from .timing import SEGMENT_SYMBOLS, Timing, symbol_starts, symbol_timing
 from .channel import ChannelPlan, FrontEndReport, channelize, flush_channel, front_end_report, plan_channel
@@ -190,7 +190,10 @@ class Frame:
         Where the frame's symbols lie in its burst's arrays.
     ebn0 : EbN0Estimate or None
         The estimator's own output, before the corrections for tone leakage
-        (non-orthogonal tones) and noise bandwidth that give `ebn0_db`.
+        (non-orthogonal tones) and noise bandwidth that give `ebn0_db`
+        (per symbol on the air: with Manchester, per chip).
+    coding_errors : int or None
+        Manchester chip pairs that were not a valid symbol (None for NRZ).
     """
 
     capture: str
@@ -208,6 +211,7 @@ class Frame:
     first_symbol: int = 0
     n_symbols: int = 0
     ebn0: EbN0Estimate | None = field(default=None, repr=False)
+    coding_errors: int | None = None
 
     @property
     def raw(self) -> bool:
@@ -228,6 +232,8 @@ class Frame:
             )
             if self.truncated:
                 rec["truncated"] = True
+            if self.coding_errors is not None:
+                rec["coding_errors"] = int(self.coding_errors)
         rec.update(freq_error_hz=round(self.freq_error_hz, 1), ebn0_db=ebn0)
         return rec
 
@@ -579,16 +585,22 @@ def _frames_of(burst: Burst, plan: ReceiverPlan, raw_start: int, starts: np.ndar
                       db, bits=burst.bits, first_symbol=0, n_symbols=burst.n_symbols, ebn0=est)
             )
     else:
+        per_bit_db = 10 * np.log10(spec.symbols_per_bit)  # Eb of a Manchester bit is two chips' energy
         for hit in find_frames(burst.bits, spec, stats=(burst.z0sq, burst.z1sq)):
             a, b = hit.bit_index, min(hit.bit_index + hit.n_bits, burst.n_symbols)
-            est = _estimate(burst.z0sq[a:b], burst.z1sq[a:b], burst.bits[a:b] if hit.crc_ok else None,
-                            plan.tone_leakage)
-            db = correct_leakage(est, plan.tone_leakage).ebn0_db + corr
+            known = None
+            if hit.crc_ok:
+                # a good CRC makes the symbols sent known exactly; with a line coding the hard chip
+                # decisions are not (the soft pair decision may have overruled a wrong chip)
+                known = burst.bits[a:b] if spec.coding == "nrz" else frame_symbols(hit.payload, spec)[: b - a]
+            est = _estimate(burst.z0sq[a:b], burst.z1sq[a:b], known, plan.tone_leakage)
+            db = correct_leakage(est, plan.tone_leakage).ebn0_db + corr + per_bit_db
             sample = int(round(plan.input_sample(raw_start, starts[a])))
             frames.append(
                 Frame(capture, sample / fs, sample, burst.index, hit.length, hit.payload, hit.crc_ok,
                       hit.sync_errors, burst.freq_error_hz, db, hit.truncated,
-                      first_symbol=a, n_symbols=b - a, ebn0=est)
+                      first_symbol=a, n_symbols=b - a, ebn0=est,
+                      coding_errors=hit.coding_errors if spec.coding != "nrz" else None)
             )
     return frames
 

@@ -148,3 +148,17 @@ def test_manchester_with_carrier_and_clock_errors(tmp_path):
     frames = list(iqdemod.decode(meta, link_for(dict(coding="manchester"))))
     assert [f.payload for f in frames if f.crc_ok] == payloads
     assert all(abs(f.freq_error_hz - 1500.0) < 150.0 for f in frames)
+
+
+def test_decode_reports_eb_per_bit_and_coding_errors(tmp_path):
+    """decode's per-frame Eb/N0 is per bit (two chips) and its records carry coding_errors (REFERENCE §8, §10)."""
+    layout = dict(coding="manchester")
+    meta, payloads = modulated_capture(tmp_path / "m16", layout, ebn0_db=16.0, frames=12, seed=4)
+    frames = [f for f in iqdemod.decode(meta, link_for(layout)) if f.crc_ok]
+    assert sorted(f.payload for f in frames) == sorted(payloads)
+    err = np.array([f.ebn0_db - 16.0 for f in frames])
+    assert abs(err.mean()) < 0.4 and np.abs(err).max() < 1.3
+    assert all("coding_errors" in f.as_record() for f in frames)
+    nrz = [f.as_record() for f in iqdemod.decode(*modulated_capture(tmp_path / "n", {}, ebn0_db=16.0, frames=2,
+                                                                    seed=1)[:1], link_for({}))]
+    assert nrz and all("coding_errors" not in r for r in nrz)
