@@ -25,6 +25,13 @@ _LINK_OPTIONS = [
     click.option("--shift", type=float, help="Tone shift: upper tone minus lower tone, Hz."),
     click.option("--invert/--no-invert", default=None, help="Bit 1 is the lower tone (default: the upper tone)."),
     click.option("--max-freq-error", type=float, help="Largest carrier error searched for, Hz [default: shift/2]."),
+    click.option("--gaussian", type=click.FloatRange(0.1, 2.0), metavar="BT",
+                 help="Gaussian frequency pulse (GFSK) with this bandwidth-time product, 0.1–2 [default: rectangular]."),
+    click.option("--detector", type=click.Choice(["per-symbol", "multi-symbol"]),
+                 help="Symbol decisions: one-symbol correlators, or phase-continuous hypotheses over a window "
+                      "[default: multi-symbol for a Gaussian pulse or a non-integer h]."),
+    click.option("--detector-symbols", type=click.IntRange(3, 7), default=None,
+                 help="Window of the multi-symbol detector, symbols: 3, 5 or 7 [default: 5]."),
     click.option("--sync", help="Sync word in hex, e.g. 0x9B3C57E1; 'none' for raw mode (bits per burst)."),
     click.option("--sync-bits", type=int, help="Bits of the sync word that are sent [default: 32]."),
     click.option("--sync-tolerance", type=int, help="Bit errors accepted in the sync word [default: 3]."),

@@ -146,8 +146,6 @@ def decode(captures, output, only_good, block_samples, quiet, **link_kw) -> None
 @click.option("--frames", "n_frames", type=click.IntRange(min=1), required=True, help="Number of frames (one burst each).")
 @click.option("--freq-error", type=float, default=0.0, show_default=True, help="Transmitter carrier error, Hz.")
 @click.option("--clock-ppm", type=float, default=0.0, show_default=True, help="Transmitter symbol-clock error, ppm.")
-@click.option("--gaussian", "gaussian_bt", type=click.FloatRange(min=0, min_open=True), default=None,
-              help="Gaussian frequency pulse with this BT (rectangular when absent).")
 @click.option("--gap", type=(click.FloatRange(min=0), click.FloatRange(min=0)), default=(0.01, 0.03), show_default=True,
               metavar="LOW HIGH", help="Quiet time between bursts, seconds (uniform between LOW and HIGH).")
 @click.option("--noise-rms", type=click.FloatRange(min=0, min_open=True), default=0.05, show_default=True,
@@ -157,7 +155,7 @@ def decode(captures, output, only_good, block_samples, quiet, **link_kw) -> None
 @click.option("--seed", type=int, default=1, show_default=True, help="Random seed (the same seed gives the same file).")
 @click.option("--start-time", default=None, help="SigMF core:datetime to record (RFC 3339, UTC); default now.")
 @click.option("-q", "--quiet", is_flag=True, help="No progress bar and no summary line.")
-def synth(output, ebn0, n_frames, freq_error, clock_ppm, gaussian_bt, gap, noise_rms, centre_hz, seed, start_time,
+def synth(output, ebn0, n_frames, freq_error, clock_ppm, gap, noise_rms, centre_hz, seed, start_time,
           quiet, **link_kw) -> None:
     """Write a synthetic capture of FSK bursts in white noise (SigMF pair + truth JSON).
 
@@ -178,7 +176,7 @@ def synth(output, ebn0, n_frames, freq_error, clock_ppm, gaussian_bt, gap, noise
         raise click.BadParameter(f"{ebn0!r}: expected numbers in dB", param_hint="--ebn0") from None
     cfg = SynthConfig(
         link=link, ebn0_db=values, n_frames=n_frames, freq_error_hz=freq_error, clock_ppm=clock_ppm,
-        gaussian_bt=gaussian_bt, gap_s=gap, noise_rms=noise_rms, centre_hz=centre_hz, seed=seed,
+        gaussian_bt=link.signal.bt if link.signal.pulse == "gaussian" else None, gap_s=gap, noise_rms=noise_rms, centre_hz=centre_hz, seed=seed,
         start_time=start_time,
     )
     truth = synthesize(output, cfg, progress=not quiet)

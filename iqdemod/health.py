@@ -35,8 +35,7 @@ from . import predict as P
 from .capture import Capture, DEFAULT_BLOCK_SAMPLES, open_capture
 from .errors import IqdemodError
 from .channel import FrontEndReport
-from .estimate import EbN0Estimate, correct_leakage, estimate_data_aided, pool
-from .framing import frame_symbols
+from .estimate import EbN0Estimate, correct_leakage, pool
 from .link import FrameSpec, Link
 from .receiver import Burst, Receiver, ReceiverPlan, drive
 
@@ -162,13 +161,13 @@ class HealthAccumulator:
         self._resid += (n, n * burst.residual_hz**2)
         # Good frames: data-aided on their known bits. The others: blind on their own symbols,
         # so the noise at a burst's edges does not dilute the estimate.
-        da = [_frame_estimate(burst, f, self.plan.link.frame) for f in good]
+        da = [f.ebn0 for f in good]  # data-aided on the symbols sent (the receiver's own estimate)
         blind = [f.ebn0 for f in frames if f not in good]
         self._da.extend(da)
         self._blind.extend(blind)
         group = da or blind
         est = group[0] if len(group) == 1 else pool(group)  # for the shrinkage: its variance, not an exact interval
-        est = correct_leakage(est, self.plan.tone_leakage)
+        est = correct_leakage(est, _leakage(self.plan))
         lo, hi = est.ci90_db
         var = ((hi - lo) / (2 * 1.645)) ** 2 if math.isfinite(lo) and math.isfinite(hi) else math.inf
         bad = sum(not f.crc_ok for f in frames)
@@ -202,11 +201,11 @@ class HealthAccumulator:
             raise IqdemodError(f"target BER {target_ber:g}: must be within (0, 0.5)")
         plan = self.plan
         sig = plan.link.signal
-        corr = plan.ebn0_correction_db
+        corr = _correction_db(plan)
         symbol_t = 1.0 / sig.baud
         sps = max(2, int(round(plan.period)))  # the discrete tone correlation takes whole samples
         # -- Eb/N0 (decision SNR, then corrected to Eb/N0)
-        leak = plan.tone_leakage
+        leak = _leakage(plan)
         parts = [correct_leakage(pool(g), leak) for g in (self._da, self._blind) if g]
         method = None
         snr_db = snr_ci = None
@@ -255,7 +254,7 @@ class HealthAccumulator:
         # -- margin
         needed = coherent = penalty = margin = None
         try:
-            needed = _ebn0_db_needed(target_ber, kw, plan.link.frame) + corr
+            needed = _ebn0_db_needed(target_ber, kw, plan) + corr
             coherent = float(P.ebn0_db_for_pb(target_ber, "coherent_orthogonal"))
             penalty = float(P.ebn0_db_for_pb(target_ber, "noncoherent")) - coherent
         except IqdemodError:
@@ -275,7 +274,7 @@ class HealthAccumulator:
             mismatch_loss_db=mismatch, clipped_fraction=float(clipped_fraction), h=sig.h, baud=sig.baud, frame_bits=frame_bits,
             decision_gain_db=-corr, warnings=tuple(warnings), start_time=start_time,
             **_front_end_fields(front_end),
-            pb_model=_pb_model(plan.link.frame),
+            pb_model=_pb_model(plan),
             histogram_edges_db=tuple(float(v) for v in HIST_EDGES_DB),
             histogram_right=tuple(int(v) for v in self.hist_right),
             histogram_wrong=tuple(int(v) for v in self.hist_wrong),
@@ -298,7 +297,7 @@ class HealthAccumulator:
 
         def rates(offset_db: float) -> tuple[float, float]:
             g = P.from_db(shrunk + offset_db)
-            pb = np.asarray(_pb(g, kw, self.plan.link.frame), float)
+            pb = np.asarray(_pb(g, kw, self.plan), float)
             per = np.asarray(P.per_from_ber(pb, np.maximum(bits, 1)), float)
             return float(np.average(pb, weights=nfr * bits)), float(np.average(per, weights=nfr))
 
@@ -356,35 +355,48 @@ def _frame_data_bits(frame, spec: FrameSpec) -> float:
     return frame.n_symbols / spec.symbols_per_bit - spec.sync_bits
 
 
-def _frame_estimate(burst: Burst, frame, spec: FrameSpec) -> EbN0Estimate:
-    """The per-symbol decision SNR of a frame whose CRC passed.
-
-    NRZ: the receiver's own data-aided estimate. Manchester: the receiver's
-    chip decisions are not the chips sent where the soft pair decision
-    overruled a wrong chip, so the estimate is made again on the chips sent,
-    which a good CRC gives back exactly (the frame re-encoded).
-    """
-    if spec.coding == "nrz":
-        return frame.ebn0
-    chips = frame_symbols(frame.payload, spec)
-    a = frame.first_symbol
-    n = min(len(chips), frame.n_symbols, burst.n_symbols - a)
-    return estimate_data_aided(burst.z0sq[a : a + n], burst.z1sq[a : a + n], chips[:n], exact_interval=False)
-
-
-def _pb_model(spec: FrameSpec) -> str:
+def _pb_model(plan: ReceiverPlan) -> str:
     """The Pb model of the predictions, as the JSON names it."""
-    if spec.coding == "nrz":
+    if plan.sequence is not None:
+        sig = plan.link.signal
+        return f"multi-symbol-{sig.detector_symbols}-{sig.pulse}-pruned-union"  # sequence_theory.sequence_ber
+    if plan.link.frame.coding == "nrz":
         return "noncoherent-fsk"  # P.pb_mismatched: tone spacing and residual frequency error
     return "manchester-square-law-combining-L2"  # P.pb_manchester, REFERENCE §10: orthogonal tones
 
 
-def _pb(g, kw: dict, spec: FrameSpec):
-    return P.pb_mismatched(g, **kw) if spec.coding == "nrz" else P.pb_manchester(g)
+def _leakage(plan: ReceiverPlan) -> float:
+    """The tone leakage the estimates are corrected for (none when fitted against the real pulse)."""
+    return 0.0 if plan.sequence is not None else plan.tone_leakage
 
 
-def _ebn0_db_needed(target_ber: float, kw: dict, spec: FrameSpec) -> float:
-    if spec.coding == "nrz":
+def _correction_db(plan: ReceiverPlan) -> float:
+    """Decision SNR to Eb/N0 (none for the multi-symbol detector's pulse-aware estimates)."""
+    return 0.0 if plan.sequence is not None else plan.ebn0_correction_db
+
+
+def _pb(g, kw: dict, plan: ReceiverPlan):
+    if plan.sequence is not None:
+        from .sequence_theory import sequence_ber
+
+        sig = plan.link.signal
+        db = 10 * np.log10(np.maximum(np.asarray(g, float), 1e-30))
+        return sequence_ber(db, h=sig.h, pulse=sig.pulse, bt=sig.bt, n_symbols=sig.detector_symbols)
+    return P.pb_mismatched(g, **kw) if plan.link.frame.coding == "nrz" else P.pb_manchester(g)
+
+
+def _ebn0_db_needed(target_ber: float, kw: dict, plan: ReceiverPlan) -> float:
+    if plan.sequence is not None:
+        from scipy.optimize import brentq
+
+        def excess(db: float) -> float:
+            return math.log(max(float(_pb(P.from_db(db), kw, plan)), 1e-300)) - math.log(target_ber)
+
+        lo, hi = -5.0, 40.0
+        if excess(hi) > 0:
+            raise IqdemodError(f"BER {target_ber:g} is not reached below {hi:g} dB by this link")
+        return float(brentq(excess, lo, hi, xtol=1e-4)) if excess(lo) > 0 else lo
+    if plan.link.frame.coding == "nrz":
         return float(P.ebn0_db_for_pb(target_ber, "mismatched", **kw))
     return float(P.ebn0_db_for_pb(target_ber, "manchester"))
 

@@ -42,6 +42,9 @@ from .errors import LinkError
 __all__ = ["CaptureFormat", "SignalSpec", "FrameSpec", "Link", "load_link", "link_to_toml"]
 
 MAX_LENGTH_BYTES = 4096
+PULSES = ("rect", "gaussian")
+DETECTORS = ("per-symbol", "multi-symbol")
+MIN_BT, MAX_BT = 0.1, 2.0
 MAX_SYNC_BITS = 64
 CRC_ORDERS = ("big", "little")
 LENGTH_COUNTS = ("payload", "payload+crc", "frame")
@@ -53,6 +56,12 @@ def _number(name: str, value: Any) -> float:
     if not math.isfinite(value):
         raise LinkError(f"{name} {value!r}: must be finite")
     return float(value)
+
+
+def _quote(value: Any, limit: int = 80) -> str:
+    """`value` for an error message, at most `limit` characters of it."""
+    text = repr(value)
+    return text if len(text) <= limit else text[: limit - 1] + "…"
 
 
 def _integer(name: str, value: Any) -> int:
@@ -108,6 +117,17 @@ class SignalSpec:
         False: bit 1 is the upper tone (mark). True: bit 1 is the lower tone.
     max_freq_error_hz : float or None
         How far the transmitter's carrier may be off, Hz; default shift/2.
+    pulse : str
+        The frequency pulse: "rect" (plain FSK) or "gaussian" (GFSK).
+    bt : float
+        Bandwidth–time product of the Gaussian pulse (used with pulse = "gaussian").
+    detector : str or None
+        "per-symbol" (the one-symbol correlator bank) or "multi-symbol"
+        (phase-continuous hypotheses over a window of symbols); None takes the
+        default: multi-symbol for a Gaussian pulse or a non-integer h,
+        per-symbol for a rectangular pulse at integer h.
+    detector_symbols : int
+        The multi-symbol detector's window, symbols (odd, 3–7).
     """
 
     baud: float
@@ -116,6 +136,10 @@ class SignalSpec:
     frequency_hz: float | None = None
     invert: bool = False
     max_freq_error_hz: float | None = None
+    pulse: str = "rect"
+    bt: float = 0.5
+    detector: str | None = None
+    detector_symbols: int = 5
 
     def __post_init__(self) -> None:
         baud = _number("baud", self.baud)
@@ -142,6 +166,25 @@ class SignalSpec:
             if err < 0:
                 raise LinkError(f"max_freq_error_hz {err:g} Hz: must be >= 0")
             object.__setattr__(self, "max_freq_error_hz", err)
+        if self.pulse not in PULSES:
+            raise LinkError(f"pulse {_quote(self.pulse)}: must be one of {', '.join(PULSES)}")
+        bt = _number("bt", self.bt)
+        if not MIN_BT <= bt <= MAX_BT:
+            raise LinkError(f"bt {bt:g}: must be within {MIN_BT:g}–{MAX_BT:g} (Gaussian bandwidth × symbol time)")
+        object.__setattr__(self, "bt", bt)
+        if self.detector is not None and self.detector not in DETECTORS:
+            raise LinkError(f"detector {_quote(self.detector)}: must be one of {', '.join(DETECTORS)}")
+        n = _integer("detector_symbols", self.detector_symbols)
+        if n not in (3, 5, 7):
+            raise LinkError(f"detector_symbols {n}: must be 3, 5 or 7 (an odd window; the middle symbol is decided)")
+        object.__setattr__(self, "detector_symbols", n)
+
+    @property
+    def multi_symbol(self) -> bool:
+        """Whether the multi-symbol detector decides (the setting, or the default for this pulse and h)."""
+        if self.detector is not None:
+            return self.detector == "multi-symbol"
+        return self.pulse == "gaussian" or abs(self.h - round(self.h)) > 1e-6 or round(self.h) == 0
 
     @property
     def h(self) -> float:
@@ -337,6 +380,9 @@ OVERRIDES: dict[str, tuple[str, str]] = {
     "shift": ("signal", "shift_hz"),
     "invert": ("signal", "invert"),
     "max_freq_error": ("signal", "max_freq_error_hz"),
+    "gaussian": ("signal", "bt"),  # --gaussian BT: a Gaussian pulse with this BT
+    "detector": ("signal", "detector"),
+    "detector_symbols": ("signal", "detector_symbols"),
     "sync": ("frame", "sync_word"),
     "sync_bits": ("frame", "sync_bits"),
     "sync_tolerance": ("frame", "sync_tolerance"),
@@ -400,6 +446,8 @@ def _apply(tables: Mapping[str, Mapping[str, Any]], overrides: Mapping[str, Any]
         elif key == "frequency_hz":
             merged["signal"].pop("offset_hz", None)
     sig = merged["signal"]
+    if overrides.get("gaussian") is not None:
+        sig["pulse"] = "gaussian"
     for key in ("baud", "shift_hz"):
         if sig.get(key) is None:
             flag = "--baud" if key == "baud" else "--shift"

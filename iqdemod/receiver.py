@@ -19,7 +19,7 @@ import dataclasses
 import functools
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Iterator
+from typing import Iterator, NamedTuple
 
 import numpy as np
 
@@ -28,6 +28,8 @@ from .bursts import RawBurst
 from .capture import Capture, CaptureInfo, DEFAULT_BLOCK_SAMPLES, open_capture
 from .carrier import coarse_offset, residual_offset
 from .correlate import correlate, tone_sums
+from .sequence import SequencePlan, detect as detect_sequence, phase_trajectory, plan_sequence
+from .sequence_estimate import estimate_sequence_data_aided
 from .estimate import (EbN0Estimate, correct_leakage, estimate_blind, estimate_data_aided,
                        estimate_decision_directed)
 from .framing import bits_to_bytes, find_frames, frame_symbols, sync_symbols
@@ -113,6 +115,38 @@ class ReceiverPlan:
             vals.append(abs(np.sum(w * np.exp(1j * omega * m)) / period) ** 2)
         leak = float(np.mean(vals))
         return 0.0 if leak < 1e-4 else leak
+
+    @functools.cached_property
+    def sequence(self) -> SequencePlan | None:
+        """The multi-symbol detector's plan, when the link's decisions are made by it."""
+        sig = self.link.signal
+        if not sig.multi_symbol:
+            return None
+        return plan_sequence(h=sig.h, pulse=sig.pulse, bt=sig.bt, n_symbols=sig.detector_symbols, invert=sig.invert)
+
+    @functools.cached_property
+    def sync_score(self) -> float:
+        """What a noise-free sync word of this link scores in :func:`sync_candidates`' raw form.
+
+        Measured on the link's own waveform (its pulse, h and tones at this
+        rate): 16 preamble symbols, the sync word, 16 more symbols.
+        """
+        sig = self.link.signal
+        sym = np.concatenate([np.arange(16) % 2, sync_symbols(self.link.frame),
+                              np.random.default_rng(0).integers(0, 2, 16)]).astype(np.uint8)
+        shape = plan_sequence(h=sig.h, pulse=sig.pulse, bt=sig.bt, n_symbols=1, invert=sig.invert)
+        t = np.arange(int(len(sym) * self.period)) / self.period
+        x = np.exp(1j * phase_trajectory(sym, t + 0.5 / self.period, shape))
+        norm = _sync_scores(tone_sums(x, self.rate_hz, self.tones_hz), self)
+        start = int(round(16 * self.period))
+        near = norm[max(0, start - 2) : start + 3]
+        return float(max(near.max(), 0.05)) if near.size else 1.0
+
+    @functools.cached_property
+    def filter_noise_share(self) -> float:
+        """The share of the decimated band that white input noise fills after the channel filter, D·Σh²."""
+        h = np.asarray(self.tuner.taps, np.float64)
+        return float(self.tuner.decimation * np.sum(h * h))
 
     @property
     def ebn0_correction_db(self) -> float:
@@ -346,30 +380,51 @@ def sync_candidates(sums: np.ndarray, plan: ReceiverPlan, *, threshold: float = 
 
     The soft decision d(t) = |z1(t)|² − |z0(t)|² of a one-symbol correlator
     window starting at every sample t is correlated with the sync word's
-    pattern at its symbol spacing: score(t) = Σ_i s_i·d(t + i·T), s_i = ±1,
-    normalised by Σ_i (|z0|² + |z1|²), so a noise-free sync word scores 1 at
-    its start whatever its level. Local maxima above `threshold`, at least
-    half a sync word apart, are the candidates. This is a matched filter for
-    the sync word on the square-law statistics (the frame-synchronisation
-    correlator of Massey, "Optimum frame synchronization", IEEE Trans. Commun.
-    20(2), 1972, cited from memory, in its hard-limited large-SNR form).
+    pattern (its symbols on the air) at the symbol spacing: score(t) =
+    Σ_i s_i·d(t + i·T), s_i = ±1, normalised by Σ_i (|z0|² + |z1|²). This is a
+    matched filter for the sync word on the square-law statistics (the
+    frame-synchronisation correlator of Massey, "Optimum frame
+    synchronization", IEEE Trans. Commun. 20(2), 1972, cited from memory, in
+    its large-SNR form). A noise-free sync word of orthogonal rectangular
+    tones scores 1; tones that leak into each other (h not whole) or a
+    Gaussian pulse score less, so `threshold` is taken relative to what a
+    noise-free sync word of this link scores (:attr:`ReceiverPlan.sync_score`).
+    Local maxima above it, at least half a sync word apart, are the
+    candidates.
 
     Returns
     -------
     list of (position, score)
         Sample positions (cumulative-sum convention) of the sync word's first
-        symbol, strongest first.
+        symbol, strongest first; the score relative to the noise-free one.
     """
-    spec = plan.link.frame
+    norm = _sync_scores(sums, plan) / plan.sync_score
+    above = np.flatnonzero(norm >= threshold)
+    if above.size == 0:
+        return []
+    radius = max(1, int(len(sync_symbols(plan.link.frame)) * plan.period / 2))
+    out: list[tuple[float, float]] = []
+    order = above[np.argsort(-norm[above], kind="stable")]
+    taken = np.zeros(len(norm), bool)
+    for t in order:
+        if taken[t]:
+            continue
+        taken[max(0, t - radius) : t + radius + 1] = True
+        out.append((float(t), float(norm[t])))
+    return out
+
+
+def _sync_scores(sums: np.ndarray, plan: ReceiverPlan) -> np.ndarray:
+    """The normalised sync-word score at every start sample (see :func:`sync_candidates`)."""
     T = plan.period
-    pattern = sync_symbols(spec).astype(np.float64) * 2 - 1
+    pattern = sync_symbols(plan.link.frame).astype(np.float64) * 2 - 1
     n_sync = len(pattern)
     n = sums.shape[1] - 1
     whole = int(np.floor(T))
     m = n - whole - 1
     span = int(round((n_sync - 1) * T))
     if m - span < 1:
-        return []
+        return np.zeros(0)
     frac = T - whole
     z = (1.0 - frac) * sums[:, whole : whole + m] + frac * sums[:, whole + 1 : whole + 1 + m] - sums[:, :m]
     p = z.real**2 + z.imag**2
@@ -382,20 +437,7 @@ def sync_candidates(sums: np.ndarray, plan: ReceiverPlan, *, threshold: float = 
     for s_i, o in zip(pattern, offsets):
         score += s_i * d[o : o + width]
         energy += e[o : o + width]
-    norm = score / np.maximum(energy, 1e-300)
-    above = np.flatnonzero(norm >= threshold)
-    if above.size == 0:
-        return []
-    radius = max(1, int(n_sync * T / 2))
-    out: list[tuple[float, float]] = []
-    order = above[np.argsort(-norm[above], kind="stable")]
-    taken = np.zeros(width, bool)
-    for t in order:
-        if taken[t]:
-            continue
-        taken[max(0, t - radius) : t + radius + 1] = True
-        out.append((float(t), float(norm[t])))
-    return out
+    return score / np.maximum(energy, 1e-300)
 
 
 def _transmissions(raw: RawBurst, x: np.ndarray, raw_start: int, found: list[tuple[float, float]],
@@ -452,22 +494,39 @@ def _one_transmission(raw: RawBurst, x: np.ndarray, raw_start: int, a: int, b: i
     else:
         sums = tone_sums(seg, rate, plan.tones_hz, offset_hz=delta)
     sub = RawBurst(raw.index, raw.start, seg, (0, len(seg)), raw.piece)
-    burst, starts, _ = _synchronise(sub, seg, raw_start + a, (0, len(seg)), plan, delta, sums)
+    end = sync_pos - a + plan.link.frame.max_bits * plan.period if plan.link.frame.length != "prefix8" else None
+    sync = _synchronise(sub, seg, raw_start + a, (0, len(seg)), plan, delta, sums, end=end)
+    burst, starts = sync.burst, sync.starts
     # the frame whose sync word starts where the candidate said (within two symbols)
     want = sync_pos - a
     frames = []
-    for f in _frames_of(burst, plan, raw_start + a, starts, capture):
+    for f in _frames_of(sync, plan, raw_start + a, capture):
         if abs(starts[f.first_symbol] - want) <= 2 * plan.period:
             frames.append(f)
             break
     return dataclasses.replace(burst, frames=tuple(frames))
 
 
+class _Sync(NamedTuple):
+    """One synchronised transmission: its burst (no frames yet) and what the frame estimates need."""
+
+    burst: Burst
+    starts: np.ndarray  # symbol starts of the burst's arrays, samples of x
+    timing: Timing
+    x: np.ndarray
+    delta_hz: float  # the carrier error still in x
+
+
 def _synchronise(raw: RawBurst, x: np.ndarray, x_start: int, core: tuple[int, int], plan: ReceiverPlan,
-                 delta: float, sums: np.ndarray) -> tuple[Burst, np.ndarray, Timing]:
+                 delta: float, sums: np.ndarray, *, end: float | None = None) -> _Sync:
     """Timing, decisions and the refined carrier of one transmission in `x` (coarse carrier `delta`).
 
-    Returns the burst (without frames), the symbol starts of its arrays and the timing.
+    The decisions are the one-symbol correlator bank's, or, when the link asks
+    for it, the multi-symbol detector's (:mod:`iqdemod.sequence`), which then
+    also gives the decision statistics kept in the burst. `end`, where the
+    transmission is known to end (samples of x), keeps the symbols after it
+    out of the multi-symbol detector's windows: its hypotheses would take the
+    silence there for signal.
     """
     rate = plan.rate_hz
     core0, core1 = core
@@ -485,6 +544,21 @@ def _synchronise(raw: RawBurst, x: np.ndarray, x_start: int, core: tuple[int, in
     z = correlate(sums, starts, timing.period_samples)
     zsq = z.real**2 + z.imag**2
     decided = (zsq[:, 1] > zsq[:, 0]).astype(np.uint8)  # tone 1 is bit 1 (tones_hz honours `invert`)
+    if plan.sequence is not None and len(starts):
+        n_in = len(starts) if end is None else max(1, int(np.searchsorted(starts, end - 0.5 * timing.period_samples)))
+        decided = decided.copy()
+        for _ in range(2):
+            dec = detect_sequence(x, starts[:n_in], timing.period_samples, plan.sequence, offset_hz=delta, rate_hz=rate)
+            decided[:n_in] = dec.bits
+            # the one-symbol decisions the carrier step above used are poor for a Gaussian pulse at
+            # h = ½ (several per cent wrong): measured again on this detector's decisions
+            step = _residual(z[inside], decided[inside], timing.period_samples, rate)
+            if abs(step) < plan.link.signal.baud * 2e-3:
+                break
+            delta += step
+            z = correlate(tone_sums(x, rate, plan.tones_hz, offset_hz=delta), starts, timing.period_samples)
+        zsq = z.real**2 + z.imag**2
+        zsq[:n_in] = np.stack([dec.m0, dec.m1], axis=1)
     residual = _residual(z[inside], decided[inside], timing.period_samples, rate)
     keep = np.flatnonzero(inside)
     if keep.size == 0:
@@ -505,7 +579,7 @@ def _synchronise(raw: RawBurst, x: np.ndarray, x_start: int, core: tuple[int, in
         piece=raw.piece,
         symbol_s=period * plan.tuner.decimation / plan.sample_rate_hz,
     )
-    return burst, starts[k0:k1], timing
+    return _Sync(burst, starts[k0:k1], timing, x, float(delta))
 
 
 def _whole(raw: RawBurst, x: np.ndarray, raw_start: int, core: tuple[int, int], plan: ReceiverPlan,
@@ -514,8 +588,8 @@ def _whole(raw: RawBurst, x: np.ndarray, raw_start: int, core: tuple[int, int], 
     timing = symbol_timing(sums, plan.period)
     if timing.breaks and depth < 3:
         return _split(raw, raw_start - raw.start, x, timing.breaks, plan, capture, depth)
-    burst, starts, _ = _synchronise(raw, x, raw_start, core, plan, delta, sums)
-    return [dataclasses.replace(burst, frames=tuple(_frames_of(burst, plan, raw_start, starts, capture)))]
+    sync = _synchronise(raw, x, raw_start, core, plan, delta, sums)
+    return [dataclasses.replace(sync.burst, frames=tuple(_frames_of(sync, plan, raw_start, capture)))]
 
 
 def _drop_repeats(burst: Burst, last_sample: float, half_symbol: float) -> tuple[Burst, float]:
@@ -569,16 +643,39 @@ def _estimate(z0: np.ndarray, z1: np.ndarray, bits: np.ndarray | None, leakage: 
     return estimate_blind(z0, z1)
 
 
-def _frames_of(burst: Burst, plan: ReceiverPlan, raw_start: int, starts: np.ndarray, capture: str) -> list[Frame]:
+def _estimate_sequence(sync: _Sync, plan: ReceiverPlan, a: int, b: int, known: np.ndarray | None) -> EbN0Estimate:
+    """Eb/N0 of symbols a … b − 1 against the expected outputs of the link's real pulse.
+
+    Known bits (a good CRC): data-aided. Otherwise the detector's own
+    decisions stand in for them (decision-directed, reading a little low
+    where decisions are wrong).
+    """
+    bits = sync.burst.bits[a:b] if known is None else known
+    est = estimate_sequence_data_aided(sync.x, sync.starts[a:b], sync.timing.period_samples, bits, plan.sequence,
+                                       offset_hz=sync.delta_hz, rate_hz=plan.rate_hz,
+                                       noise_bandwidth=plan.filter_noise_share)
+    return est if known is not None else dataclasses.replace(est, method="decision-directed-raw")
+
+
+def _frames_of(sync: _Sync, plan: ReceiverPlan, raw_start: int, capture: str) -> list[Frame]:
     """The frames (or, in raw mode, the one record of bits) of a synchronised burst."""
+    burst, starts = sync.burst, sync.starts
     fs = plan.sample_rate_hz
     spec = plan.link.frame
     corr = plan.ebn0_correction_db
+
+    def estimate(a: int, b: int, known: np.ndarray | None) -> tuple[EbN0Estimate, float]:
+        """A run of symbols' estimate and the Eb/N0 it gives, dB (per symbol on the air)."""
+        if plan.sequence is None:
+            est = _estimate(burst.z0sq[a:b], burst.z1sq[a:b], known, plan.tone_leakage)
+            return est, correct_leakage(est, plan.tone_leakage).ebn0_db + corr
+        est = _estimate_sequence(sync, plan, a, b, known)
+        return est, est.ebn0_db  # fitted against the real pulse: Eb/N0 as it is, no corrections
+
     frames = []
     if spec.raw:
         if burst.n_symbols:
-            est = _estimate(burst.z0sq, burst.z1sq, None, plan.tone_leakage)
-            db = correct_leakage(est, plan.tone_leakage).ebn0_db + corr
+            est, db = estimate(0, burst.n_symbols, None)
             sample = burst.sample
             frames.append(
                 Frame(capture, sample / fs, sample, burst.index, 0, b"", False, 0, burst.freq_error_hz,
@@ -593,8 +690,8 @@ def _frames_of(burst: Burst, plan: ReceiverPlan, raw_start: int, starts: np.ndar
                 # a good CRC makes the symbols sent known exactly; with a line coding the hard chip
                 # decisions are not (the soft pair decision may have overruled a wrong chip)
                 known = burst.bits[a:b] if spec.coding == "nrz" else frame_symbols(hit.payload, spec)[: b - a]
-            est = _estimate(burst.z0sq[a:b], burst.z1sq[a:b], known, plan.tone_leakage)
-            db = correct_leakage(est, plan.tone_leakage).ebn0_db + corr + per_bit_db
+            est, db = estimate(a, b, known)
+            db += per_bit_db
             sample = int(round(plan.input_sample(raw_start, starts[a])))
             frames.append(
                 Frame(capture, sample / fs, sample, burst.index, hit.length, hit.payload, hit.crc_ok,
