@@ -45,33 +45,95 @@ def save_figure(fig, path: str | os.PathLike) -> None:
         fig.savefig(fh, format="png", dpi=110)
 
 
-def _curve_axes(ax, ebn0_db: np.ndarray, *, h: float, freq_error_T: float, sps: int | None) -> None:
+def _need_label(value: float | None) -> str:
+    return "" if value is None else f"; {value:.1f} dB"
+
+
+def _needed(target_ber: float, scheme: str, **options) -> float | None:
+    """Eb/N0 (dB) a scheme needs for the target, None below its error floor."""
+    try:
+        return float(P.ebn0_db_for_pb(target_ber, scheme, **options))
+    except IqdemodError:
+        return None
+
+
+def _curve_axes(ax, ebn0_db: np.ndarray, *, h: float, freq_error_T: float, sps: int | None, pulse: str = "rect",
+                bt: float = 0.5, detector_symbols: int = 5, target_ber: float | None = None) -> None:
+    """The BER curves of the link and the references; with a Gaussian pulse or fractional h, both detectors too.
+
+    With `target_ber`, each label ends with the Eb/N0 that curve needs for
+    that BER. The multi-symbol curve is left out above 10 %, where its
+    approximation (:func:`iqdemod.sequence_theory.sequence_ber`, "pruned")
+    overshoots.
+    """
     g = P.from_db(ebn0_db)
-    label_nc = "non-coherent BFSK, orthogonal (h = 1)"
+    gauss = pulse == "gaussian"
+    extended = P.curves_extended(h, pulse)
+    table = None
+    if extended:
+        table = P.curves_table(ebn0_db, h=h, freq_error_T=freq_error_T, samples_per_symbol=sps, pulse=pulse, bt=bt,
+                               detector_symbols=detector_symbols, target_ber=target_ber or 1e-5)
+    need = {}
+    if target_ber:
+        need = (table or {}).get("needed_db") or {
+            "link": _needed(target_ber, "mismatched", h=h, freq_error_T=freq_error_T, samples_per_symbol=sps)}
+        for scheme in ("noncoherent", "coherent_orthogonal", "antipodal"):
+            need.setdefault(scheme, _needed(target_ber, scheme))
+    label_nc = f"non-coherent BFSK, orthogonal (h = 1){_need_label(need.get('noncoherent'))}"
     ax.semilogy(ebn0_db, P.pb_noncoherent(g), color="#1f4e79", lw=2, label=label_nc)
     if abs(h - round(h)) > 1e-9 or abs(freq_error_T) > 1e-3:
+        what = "rect pulse at this h" if gauss else "one-symbol bank, this link"
         ax.semilogy(ebn0_db, P.pb_mismatched(g, h=h, freq_error_T=freq_error_T, samples_per_symbol=sps),
-                    color="#c55a11", lw=2, label=f"non-coherent, this link (h = {h:g}, δf·T = {freq_error_T:.3f})")
-    ax.semilogy(ebn0_db, P.pb_coherent_orthogonal(g), color="#548235", lw=1.5, ls="--", label="coherent orthogonal FSK")
-    ax.semilogy(ebn0_db, P.pb_antipodal(g), color="#7f7f7f", lw=1.5, ls=":", label="antipodal (BPSK)")
+                    color="#c55a11", lw=1.5 if gauss else 2, ls="-." if gauss else "-",
+                    label=f"non-coherent, {what} (h = {h:g}, δf·T = {freq_error_T:.3f}){_need_label(need.get('link'))}")
+    if table is not None:
+        shape = f"Gaussian BT {bt:g}" if gauss else "rect pulse"
+        if gauss:  # with a rect pulse this is the link's own curve, drawn above
+            ax.semilogy(ebn0_db, table["ber_one_symbol_pulse"], color="#c00000", lw=2,
+                        label=f"one-symbol bank, this pulse ({shape}, h = {h:g}, δf·T = {freq_error_T:.3f})"
+                              f"{_need_label(need.get('one_symbol_pulse'))}")
+        if abs(freq_error_T) > 1e-3:
+            shape += ", no carrier error"
+        # The multi-symbol prediction is an approximation of a union bound: above 10 % it overshoots (to 0.5)
+        multi = np.asarray(table["ber_multi_symbol"], float)
+        ax.semilogy(ebn0_db, np.where(multi <= 0.1, multi, np.nan), color="#7030a0", lw=2,
+                    label=f"multi-symbol {detector_symbols} ({shape}, h = {h:g}){_need_label(need.get('multi_symbol'))}")
+    ax.semilogy(ebn0_db, P.pb_coherent_orthogonal(g), color="#548235", lw=1.5, ls="--",
+                label=f"coherent orthogonal FSK{_need_label(need.get('coherent_orthogonal'))}")
+    ax.semilogy(ebn0_db, P.pb_antipodal(g), color="#7f7f7f", lw=1.5, ls=":",
+                label=f"antipodal (BPSK){_need_label(need.get('antipodal'))}")
     ax.set_xlabel("Eb/N0 (dB)")
     ax.set_ylabel("bit error probability")
     ax.grid(True, which="both", alpha=0.3)
 
 
 def plot_curves(path, *, ebn0_db: np.ndarray, h: float = 1.0, freq_error_T: float = 0.0, sps: int | None = None,
-                target_ber: float | None = None) -> None:
-    """BER against Eb/N0 for the link and the coherent references."""
-    fig = new_figure(figsize=(7.5, 5.2), layout="constrained")
+                target_ber: float | None = None, pulse: str = "rect", bt: float = 0.5,
+                detector_symbols: int = 5) -> None:
+    """BER against Eb/N0 for the link and the coherent references.
+
+    For a Gaussian pulse (or an h that is not whole) the one-symbol correlator
+    bank receiving this pulse and the multi-symbol detector of
+    `detector_symbols` symbols are drawn too, their labels ending with the
+    Eb/N0 each needs for `target_ber`. The curves are drawn on a fine grid
+    spanning `ebn0_db`.
+    """
+    span = np.asarray(ebn0_db, float)
+    grid = np.linspace(float(span.min()), float(span.max()), 161) if span.size > 1 else span
+    fig = new_figure(figsize=(8.5, 5.6), layout="constrained")
     ax = fig.subplots()
-    _curve_axes(ax, np.asarray(ebn0_db, float), h=h, freq_error_T=freq_error_T, sps=sps)
+    _curve_axes(ax, grid, h=h, freq_error_T=freq_error_T, sps=sps, pulse=pulse, bt=bt,
+                detector_symbols=detector_symbols, target_ber=target_ber)
     if target_ber:
         ax.axhline(target_ber, color="k", lw=0.8, alpha=0.6)
-        ax.annotate(f"target {target_ber:g}", (ebn0_db[0], target_ber), va="bottom", fontsize=8)
-    lo = max(1e-9, float(P.pb_antipodal(P.from_db(np.max(ebn0_db)))) / 3)
+        ax.annotate(f"target {target_ber:g}", (grid[0], target_ber), va="bottom", fontsize=8)
+    lo = max(1e-9, float(P.pb_antipodal(P.from_db(np.max(grid)))) / 3)
     ax.set_ylim(lo, 0.6)
     ax.legend(fontsize=8, loc="lower left")
-    ax.set_title("Bit error probability in white Gaussian noise")
+    title = "Bit error probability in white Gaussian noise"
+    if pulse == "gaussian":
+        title += f": GFSK, BT {bt:g}, h = {h:g}"
+    ax.set_title(title)
     save_figure(fig, path)
 
 

@@ -16,6 +16,13 @@ Sources
   form of two correlated complex Gaussian variables is negative, used for every
   square-law comparison here.
 * Clopper & Pearson, Biometrika 26, 1934: exact binomial confidence limits.
+* The one-symbol correlator bank receiving a continuous-phase pulse (Gaussian
+  or rectangular, :func:`pb_per_symbol_pulse`) is the mismatched-correlator
+  result of REFERENCE.md sec. 3 (the signal term of a correlator ``w`` on a
+  received waveform ``m`` is ``<w, m>``), averaged over the bit patterns the
+  pulse spans; the continuous-phase model is Proakis, *Digital
+  Communications*, the CPM section, and the Gaussian pulse Murota & Hirade,
+  IEEE Trans. Commun. 29(7), 1981 (from memory), as in :mod:`iqdemod.sequence`.
 
 The correlator convention shared with :mod:`iqdemod.estimate`: references have
 unit amplitude, ``<a, b> = sum(conj(a) * b)``, and a received tone at
@@ -25,12 +32,14 @@ frequency offset ``x / T`` from a reference keeps the complex fraction
 
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
 from scipy import optimize, special, stats
 
 from iqdemod.errors import LinkError
+from iqdemod.sequence import phase_trajectory, plan_sequence
 
 __all__ = [
     "db",
@@ -44,6 +53,7 @@ __all__ = [
     "pb_noncoherent_correlated",
     "pb_square_law",
     "pb_mismatched",
+    "pb_per_symbol_pulse",
     "mismatch_loss_db",
     "ebn0_for_pb",
     "ebn0_db_for_pb",
@@ -52,7 +62,8 @@ __all__ = [
     "binomial_p_value",
 ]
 
-_SCHEMES = ("noncoherent", "coherent_orthogonal", "antipodal", "correlated", "mismatched", "manchester")
+_SCHEMES = ("noncoherent", "coherent_orthogonal", "antipodal", "correlated", "mismatched", "manchester",
+            "per_symbol_pulse")
 
 
 # --------------------------------------------------------------------------- helpers
@@ -494,6 +505,142 @@ def pb_mismatched(ebn0, *, h=1.0, freq_error_T=0.0, samples_per_symbol=None):
     return _out(0.5 * (np.asarray(pb0) + np.asarray(pb1)), scalar)
 
 
+# Continuous time: composite Gauss–Legendre over the symbol. The segment phase is smooth inside a slot
+# (an odd pulse span cuts its tails on slot boundaries); the panel edges at quarters also take an even
+# span's cut in the middle of a slot. 4 × 32 nodes integrate ±12 cycles per symbol to ~1e-15.
+_GL_PANELS, _GL_NODES = 4, 32
+
+
+def _symbol_quadrature(samples_per_symbol: int | None) -> tuple[np.ndarray, np.ndarray]:
+    """Times u in [0, 1) symbols and weights of the mean over one symbol."""
+    if samples_per_symbol is not None:
+        n = samples_per_symbol
+        return np.arange(n) / n, np.full(n, 1.0 / n)  # sample m at m/N, as tone_correlation's sum
+    x, w = special.roots_legendre(_GL_NODES)
+    left = np.arange(_GL_PANELS)[:, None] / _GL_PANELS
+    u = (left + (x[None, :] + 1.0) / (2.0 * _GL_PANELS)).ravel()
+    return u, np.tile(w / (2.0 * _GL_PANELS), _GL_PANELS)
+
+
+@functools.lru_cache(maxsize=64)
+def _pulse_terms(h: float, pulse: str, bt: float, span_symbols: int | None, freq_error_T: float,
+                 samples_per_symbol: int | None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Per bit pattern of the pulse's span: right and wrong correlator means per unit amplitude, noise correlation.
+
+    The bank's references are unit tones at ∓h/2 cycles per symbol over one
+    symbol slot; the received segment is exp(j·φ(t)) with φ from
+    :func:`iqdemod.sequence.phase_trajectory` over the 2·context + 1 bits whose
+    pulses reach into the slot (the earlier bits only add a constant phase,
+    which the square law ignores), turned by the carrier error.
+    """
+    plan = plan_sequence(h=h, pulse=pulse, bt=bt, n_symbols=1, span_symbols=span_symbols)
+    c = plan.context
+    u, wt = _symbol_quadrature(samples_per_symbol)
+    refs = np.exp(1j * np.pi * h * np.array([-1.0, 1.0])[:, None] * u[None, :])  # w0 (bit 0), w1 (bit 1)
+    n_pat = 1 << (2 * c + 1)
+    bits = (np.arange(n_pat)[:, None] >> np.arange(2 * c, -1, -1)[None, :]) & 1
+    seg = np.stack([np.exp(1j * (phase_trajectory(b, c + u, plan) + 2.0 * np.pi * freq_error_T * u)) for b in bits])
+    sig = (seg * wt[None, :]) @ refs.conj().T  # (pattern, correlator): <w, m> / T
+    rho = complex(np.sum(wt * refs[0].conj() * refs[1]))  # <w0, w1> / ||w||²
+    mid = bits[:, c]
+    right = np.where(mid == 1, sig[:, 1], sig[:, 0])
+    wrong = np.where(mid == 1, sig[:, 0], sig[:, 1])
+    corr = np.where(mid == 1, np.conj(rho), rho)  # E[n_right n_wrong*] / E|n|²
+    for a in (right, wrong, corr):
+        a.setflags(write=False)
+    return right, wrong, corr
+
+
+def pb_per_symbol_pulse(ebn0, *, h, pulse="rect", bt=0.5, freq_error_T=0.0, span_symbols=None,
+                        samples_per_symbol=None):
+    """Bit error probability of the one-symbol correlator bank receiving a continuous-phase pulse.
+
+    The bank (:mod:`iqdemod.correlate`) correlates each symbol slot with two
+    rectangular unit tones at ∓h/2 cycles per symbol and decides by the square
+    law. With a Gaussian frequency pulse (GFSK) the received segment ``m`` of a
+    slot is not one of those tones: it depends on the neighbouring bits whose
+    pulses reach into the slot (intersymbol interference). For each pattern of
+    the ``2·context + 1`` bits the pulse spans, both correlators' signal terms
+    are ``<w, m>`` with ``m`` from :func:`iqdemod.sequence.phase_trajectory`
+    (REFERENCE.md sec. 3, the mismatched correlator). Normalised to the noise
+    of one output (``N0·||w||²``) and for a middle bit 0:
+
+    * right branch mean ``sqrt(ebn0)·<w0, m>/T``, wrong branch mean
+      ``sqrt(ebn0)·<w1, m>/T``;
+    * noise correlation ``<w0, w1>/||w||² = rho(h)``, not zero unless h is
+      whole.
+
+    The probability that the wrong output's envelope is the larger is the
+    general comparison of two *correlated* Rician envelopes, Stein's
+    quadratic-form result (Proakis, *Digital Communications*, Appendix B;
+    Stein, IEEE Trans. Inf. Theory IT-10, 1964), computed by
+    :func:`pb_square_law`; no whitening is needed. With uncorrelated noise
+    (h whole) it reduces to REFERENCE sec. 3's
+    ``Q1(α, β) − ½·exp(−(α² + β²)/2)·I0(α·β)``, α = |wrong|, β = |right|.
+    The equally likely patterns are averaged.
+
+    A rectangular pulse at ``freq_error_T = 0`` gives
+    :func:`pb_noncoherent_correlated` (``pb_noncoherent`` at whole h); with an
+    error it gives :func:`pb_mismatched`.
+
+    Parameters
+    ----------
+    ebn0 : float or array_like
+        Linear Eb/N0 (>= 0).
+    h : float
+        Modulation index, shift / baud (> 0).
+    pulse : {"rect", "gaussian"}
+        Frequency pulse.
+    bt : float
+        Bandwidth–time product of the Gaussian pulse (ignored for rect).
+    freq_error_T : float, optional
+        Carrier error times symbol time (the received signal sits this far
+        above the bank's references).
+    span_symbols : int, optional
+        Length of the (truncated) Gaussian pulse, symbols; default as
+        :func:`iqdemod.sequence.plan_sequence` (BT 0.5 → 3, BT 0.3 → 5).
+    samples_per_symbol : int, optional
+        Sampled correlators, sample m at m/N of the slot (as
+        :func:`tone_correlation`); None (default) for continuous time.
+
+    Returns
+    -------
+    float or ndarray
+        Pb, same shape as `ebn0`.
+
+    Raises
+    ------
+    LinkError
+        A bad pulse parameter (from :func:`iqdemod.sequence.plan_sequence`) or
+        tones that coincide.
+
+    Examples
+    --------
+    Rectangular pulse, h = 1: orthogonal tones, ½·exp(−γ/2) (REFERENCE §1).
+
+    >>> round(pb_per_symbol_pulse(10.0, h=1.0), 7)
+    0.003369
+    >>> round(pb_per_symbol_pulse(10.0, h=0.5), 5)  # REFERENCE §2, |rho| = 0.6366
+    0.03321
+    >>> pb_per_symbol_pulse(10.0, h=0.5, pulse="gaussian", bt=0.5) > 0.03321  # the pulse's own loss
+    True
+    """
+    g, scalar = _ebn0_array(ebn0)
+    n = None if samples_per_symbol is None else _positive_int(samples_per_symbol, "samples_per_symbol", minimum=2)
+    for name, v in (("h", h), ("freq_error_T", freq_error_T), ("bt", bt)):
+        if not (np.ndim(v) == 0 and math.isfinite(float(v))):
+            raise LinkError(f"{name} {v!r}: must be a finite number")
+    if span_symbols is not None:
+        span_symbols = _positive_int(span_symbols, "span_symbols")
+    h, eps = float(h), float(freq_error_T)
+    if abs(complex(_tone_corr(np.asarray(h), n))) >= 1.0 - 1e-12:
+        raise LinkError(f"h {h}: the two tones coincide; must not be 0 (mod samples_per_symbol)")
+    right, wrong, corr = _pulse_terms(h, str(pulse), float(bt), span_symbols, eps, n)
+    amp = np.sqrt(g)[..., None]
+    pb = np.mean(pb_square_law(amp * right, amp * wrong, noise_corr=corr), axis=-1)
+    return _out(pb, scalar)
+
+
 def mismatch_loss_db(freq_error_T, *, samples_per_symbol=None):
     """Amplitude loss of a correlator off frequency, ``-20 log10 |sinc(freq_error_T)|`` dB.
 
@@ -534,6 +681,7 @@ def _pb_function(scheme: str, kw: dict):
         "correlated": {"rho"},
         "mismatched": {"h", "freq_error_T", "samples_per_symbol"},
         "manchester": set(),
+        "per_symbol_pulse": {"h", "pulse", "bt", "freq_error_T", "span_symbols", "samples_per_symbol"},
     }
     if scheme not in allowed:
         raise LinkError(f"scheme {scheme!r}: must be one of {', '.join(_SCHEMES)}")
@@ -555,6 +703,11 @@ def _pb_function(scheme: str, kw: dict):
         return lambda g: pb_mismatched(g, **kw)
     if scheme == "manchester":
         return pb_manchester
+    if scheme == "per_symbol_pulse":
+        if "h" not in kw:
+            raise LinkError("scheme 'per_symbol_pulse': needs h=")
+        pb_per_symbol_pulse(1.0, **kw)  # validates the options
+        return lambda g: pb_per_symbol_pulse(g, **kw)
     return None
 
 
@@ -584,9 +737,12 @@ def ebn0_for_pb(pb, scheme="noncoherent", **options):
     * ``"correlated"`` (option ``rho``): :func:`pb_noncoherent_correlated`;
     * ``"mismatched"`` (options ``h``, ``freq_error_T``,
       ``samples_per_symbol``): :func:`pb_mismatched`;
-    * ``"manchester"``: :func:`pb_manchester`.
+    * ``"manchester"``: :func:`pb_manchester`;
+    * ``"per_symbol_pulse"`` (options ``h``, ``pulse``, ``bt``,
+      ``freq_error_T``, ``span_symbols``, ``samples_per_symbol``):
+      :func:`pb_per_symbol_pulse`.
 
-    The last three are solved with ``scipy.optimize.brentq`` on log Pb against
+    The last four are solved with ``scipy.optimize.brentq`` on log Pb against
     Eb/N0 in dB (Pb is monotone in Eb/N0 for these schemes).
 
     Parameters
@@ -794,9 +950,23 @@ def binomial_p_value(k, n, p):
     return float(stats.binomtest(int(karr), int(narr), float(p)).pvalue)
 
 
+def curves_extended(h: float, pulse: str = "rect") -> bool:
+    """Whether the curves for this link add the pulse-aware detectors: a Gaussian pulse or a fractional h."""
+    return pulse == "gaussian" or abs(float(h) - round(float(h))) > 1e-9 or round(float(h)) == 0
+
+
 def curves_table(ebn0_db, *, h: float = 1.0, freq_error_T: float = 0.0, frame_bits: int = 208,
-                 target_ber: float = 1e-5, samples_per_symbol=None) -> dict:
+                 target_ber: float = 1e-5, samples_per_symbol=None, pulse: str = "rect", bt: float = 0.5,
+                 detector_symbols: int = 5) -> dict:
     """BER (and PER) against Eb/N0 for a link and the textbook references, for planning.
+
+    For a link with a Gaussian pulse or a modulation index that is not whole
+    (:func:`curves_extended`) two more detectors are tabulated beside the
+    textbook ones: the one-symbol correlator bank receiving this pulse
+    (:func:`pb_per_symbol_pulse`, with the link's δf·T) and the multi-symbol
+    detector of `detector_symbols` symbols
+    (:func:`iqdemod.sequence_theory.sequence_ber`, its default "pruned"
+    approximation, no carrier error).
 
     Parameters
     ----------
@@ -808,28 +978,49 @@ def curves_table(ebn0_db, *, h: float = 1.0, freq_error_T: float = 0.0, frame_bi
         Bits a frame's CRC covers, for the frame error rate.
     target_ber : float
         The Eb/N0 each scheme needs for this BER is reported too.
+    samples_per_symbol : int, optional
+        Sampled correlators instead of continuous time.
+    pulse : {"rect", "gaussian"}
+        The link's frequency pulse.
+    bt : float
+        Its BT (Gaussian only).
+    detector_symbols : int
+        Window of the multi-symbol detector (odd).
 
     Returns
     -------
     dict
-        Lists keyed ``ebn0_db``, ``ber_link``, ``ber_noncoherent``,
+        Lists keyed ``ebn0_db``, ``ber_link`` (tones of this h with a
+        rectangular pulse and δf·T), ``ber_noncoherent``,
         ``ber_coherent_orthogonal``, ``ber_antipodal``, ``per_link``, and
         ``needed_db`` (a dict per scheme; None where the target is below the
-        link's error floor).
+        error floor). Extended links add ``ber_one_symbol_pulse``,
+        ``ber_multi_symbol``, ``per_one_symbol_pulse``, ``per_multi_symbol``
+        and ``needed_db`` entries ``one_symbol_pulse`` and ``multi_symbol``.
+
+    Examples
+    --------
+    >>> t = curves_table([10.0], h=0.5, pulse="gaussian", bt=0.5, detector_symbols=3)
+    >>> t["ber_one_symbol_pulse"][0] > t["ber_link"][0] > t["ber_multi_symbol"][0]
+    True
     """
     x = np.asarray(ebn0_db, dtype=float)
     g = from_db(x)
     link = np.asarray(pb_mismatched(g, h=h, freq_error_T=freq_error_T, samples_per_symbol=samples_per_symbol), float)
-    try:
-        need_link = float(ebn0_db_for_pb(target_ber, "mismatched", h=h, freq_error_T=freq_error_T,
-                                         samples_per_symbol=samples_per_symbol))
-    except LinkError:
-        need_link = None
-    return {
+
+    def need(scheme: str, **kw) -> float | None:
+        try:
+            return float(ebn0_db_for_pb(target_ber, scheme, **kw))
+        except LinkError:  # below the error floor
+            return None
+
+    out = {
         "h": float(h),
         "freq_error_T": float(freq_error_T),
         "frame_bits": int(frame_bits),
         "target_ber": float(target_ber),
+        "pulse": str(pulse),
+        "bt": float(bt),
         "ebn0_db": x.tolist(),
         "ber_link": link.tolist(),
         "ber_noncoherent": np.asarray(pb_noncoherent(g), float).tolist(),
@@ -837,9 +1028,33 @@ def curves_table(ebn0_db, *, h: float = 1.0, freq_error_T: float = 0.0, frame_bi
         "ber_antipodal": np.asarray(pb_antipodal(g), float).tolist(),
         "per_link": np.asarray(per_from_ber(link, frame_bits), float).tolist(),
         "needed_db": {
-            "link": need_link,
+            "link": need("mismatched", h=h, freq_error_T=freq_error_T, samples_per_symbol=samples_per_symbol),
             "noncoherent": float(ebn0_db_for_pb(target_ber, "noncoherent")),
             "coherent_orthogonal": float(ebn0_db_for_pb(target_ber, "coherent_orthogonal")),
             "antipodal": float(ebn0_db_for_pb(target_ber, "antipodal")),
         },
     }
+    if not curves_extended(h, pulse):
+        return out
+    from .sequence_theory import sequence_ber  # it imports this module
+
+    pulse_kw = dict(h=h, pulse=pulse, bt=bt, freq_error_T=freq_error_T, samples_per_symbol=samples_per_symbol)
+    one = np.asarray(pb_per_symbol_pulse(g, **pulse_kw), float)
+    seq_kw = dict(h=h, pulse=pulse, bt=bt, n_symbols=detector_symbols, samples_per_symbol=samples_per_symbol)
+    multi = np.asarray(sequence_ber(x, **seq_kw), float).reshape(x.shape)
+    need_multi: float | None
+    try:
+        need_multi = float(db(_solve_one(lambda v: float(sequence_ber(db(v), **seq_kw)), float(target_ber),
+                                         f"multi-symbol {detector_symbols}")))
+    except LinkError:
+        need_multi = None
+    out.update({
+        "detector_symbols": int(detector_symbols),
+        "ber_one_symbol_pulse": one.tolist(),
+        "ber_multi_symbol": multi.tolist(),
+        "per_one_symbol_pulse": np.asarray(per_from_ber(one, frame_bits), float).tolist(),
+        "per_multi_symbol": np.asarray(per_from_ber(multi, frame_bits), float).tolist(),
+    })
+    out["needed_db"]["one_symbol_pulse"] = need("per_symbol_pulse", **pulse_kw)
+    out["needed_db"]["multi_symbol"] = need_multi
+    return out

@@ -368,6 +368,15 @@ def demodulate_burst(raw: RawBurst, plan: ReceiverPlan, *, capture: str = "") ->
     sums = tone_sums(x, rate, plan.tones_hz, offset_hz=delta)
     if not plan.link.frame.raw:
         found = sync_candidates(sums, plan)
+        if len(x) > 1.5 * plan.link.frame.max_bits * plan.period:
+            # Several transmissions may share the buffer, each with its own carrier error, and
+            # the buffer's estimate is their blend: look again with the carrier a fifth of the
+            # baud either side (a transmission far from the blend keeps its sync score there).
+            step = sig.baud / 5
+            for shift in (-step, step):
+                if abs(delta + shift) <= sig.pull_in_hz + step / 2:
+                    more = tone_sums(x, rate, plan.tones_hz, offset_hz=delta + shift)
+                    found = _merge_candidates(found, sync_candidates(more, plan), plan)
         if found:
             bursts = _transmissions(raw, x, raw_start, found, plan, capture, delta, sums)
             if bursts:
@@ -411,6 +420,17 @@ def sync_candidates(sums: np.ndarray, plan: ReceiverPlan, *, threshold: float = 
             continue
         taken[max(0, t - radius) : t + radius + 1] = True
         out.append((float(t), float(norm[t])))
+    return out
+
+
+def _merge_candidates(a: list[tuple[float, float]], b: list[tuple[float, float]], plan: ReceiverPlan
+                      ) -> list[tuple[float, float]]:
+    """Two candidate lists as one, strongest first, keeping the best of those within half a sync word."""
+    radius = len(sync_symbols(plan.link.frame)) * plan.period / 2
+    out: list[tuple[float, float]] = []
+    for pos, score in sorted(a + b, key=lambda c: -c[1]):
+        if all(abs(pos - p) > radius for p, _ in out):
+            out.append((pos, score))
     return out
 
 

@@ -34,7 +34,11 @@ always in blocks, and only short excerpts of a few bursts are ever kept:
    25, 1963) refines it. The tones are then the median frequencies of steady
    symbols (both neighbours equal), which reach the full deviation even with
    a Gaussian pulse; the eye opening of the symbols rejects what is not a
-   keyed signal.
+   keyed signal. The **pulse** comes from the bursts' own averaged spectrum
+   (Welch): how fast it falls beyond Carson's bandwidth, compared with the
+   spectra of CPFSK with a rectangular pulse and with Gaussian pulses of BT
+   0.3–1 at the measured h and baud, computed from random-bit waveforms of
+   the receiver's own phase model (:func:`_pulse_shape`).
 4. **Framing** (part of one more pass). The project's receiver demodulates a
    few bursts in raw mode with the parameters found. The alternating
    preamble is located, and every catalogue CRC is tried over every payload
@@ -99,6 +103,7 @@ from .errors import CaptureError, IqdemodError
 from .framing import find_frames
 from .link import CaptureFormat, FrameSpec, Link, SignalSpec
 from .receiver import iter_bursts
+from .sequence import phase_trajectory, plan_sequence
 from .tune import STOPBAND_DB, TunerPlan, tune
 
 __all__ = [
@@ -242,6 +247,17 @@ class SignalFound:
     bursts_checked, frames_crc_ok : int
         Bursts demodulated for the framing search, and how many of them carry a
         frame with a good CRC under the layout found.
+    pulse : {"rect", "gaussian"} or None
+        The frequency pulse the bursts' spectrum fits best (see
+        :func:`_pulse_shape`); None when the bursts were too short or too few
+        to measure a spectrum.
+    bt : float or None
+        With a Gaussian pulse, the nearest of ``PULSE_BTS``.
+    beyond_carson_db : float or None
+        The share of the signal's power beyond Carson's bandwidth (shift +
+        2·baud) within the band the survey kept, noise removed, dB; None when
+        that band ends inside Carson's bandwidth or nothing stood above the
+        noise there.
     """
 
     offset_hz: float
@@ -267,8 +283,17 @@ class SignalFound:
     length_counts: str = "payload"
     bit_order: str = "msb"
     crc_order: str = "big"
+    pulse: str | None = None
+    bt: float | None = None
+    beyond_carson_db: float | None = None
 
     def __post_init__(self) -> None:
+        if self.pulse not in (None, "rect", "gaussian"):
+            raise IqdemodError(f"pulse {self.pulse!r}: must be 'rect', 'gaussian' or None")
+        if (self.pulse == "gaussian") != (self.bt is not None):
+            raise IqdemodError(f"bt {self.bt!r} with pulse {self.pulse!r}: a Gaussian pulse needs a BT, others none")
+        if self.bt is not None and not 0.1 <= self.bt <= 2.0:
+            raise IqdemodError(f"bt {self.bt!r}: must be within 0.1–2")
         if not self.baud > 0:
             raise IqdemodError(f"baud {self.baud!r}: must be > 0")
         if not self.tone_high_hz > self.tone_low_hz:
@@ -325,9 +350,12 @@ class SignalFound:
         Link
             Raw mode (no sync word, one record of bits per burst) when no
             sync word or no length was found; ``crc = "none"`` unless a
-            catalogue CRC checked.
+            catalogue CRC checked. A Gaussian pulse found is written with its
+            BT (the receiver then decides with the multi-symbol detector by
+            default); a pulse not measured is taken for rectangular.
         """
-        sig = SignalSpec(baud=float(self.baud), shift_hz=float(self.shift_hz), offset_hz=float(self.offset_hz))
+        sig = SignalSpec(baud=float(self.baud), shift_hz=float(self.shift_hz), offset_hz=float(self.offset_hz),
+                         **_pulse_options(self.pulse, self.bt))
         if self.sync_guess is None or self.length is None:
             frame = FrameSpec(sync_word=None, crc="none")
         else:
@@ -338,6 +366,11 @@ class SignalFound:
                               whitening=self.whitening, bit_order=self.bit_order, crc_order=self.crc_order,
                               length_counts=self.length_counts if self.length == "prefix8" else "payload")
         return Link(signal=sig, frame=frame, capture=capture or CaptureFormat())
+
+
+def _pulse_options(pulse: str | None, bt: float | None) -> dict:
+    """SignalSpec keywords for a pulse found (none for rect or unknown: the link's default)."""
+    return {"pulse": "gaussian", "bt": float(bt)} if pulse == "gaussian" else {}
 
 
 @dataclass(frozen=True, eq=False)
@@ -1434,6 +1467,161 @@ def _ebn0_and_power(excerpts: list[ActivityBurst], watch: _Watch, floor: float |
     return ebn0, power
 
 
+# --------------------------------------------------------------------------- the pulse, from the spectrum
+
+PULSE_BTS = (0.3, 0.35, 0.5, 0.7, 1.0)  # Gaussian BT values the survey tells apart
+_SPECTRUM_SEGMENT_SYMBOLS = 8  # Welch segment of the burst spectrum and of the theoretical one, symbols
+_THEORY_SPS = 16  # the simulated waveforms: samples per symbol (spectrum to ±8 baud) ...
+_THEORY_SYMBOLS = 4096  # ... and random bits (1 023 half-overlapping segments: about ±4 % per bin)
+_MIN_SEGMENTS = 24  # burst segments needed for a spectrum worth fitting
+
+
+@dataclass(frozen=True)
+class _PulseShape:
+    """What the burst spectrum says about the frequency pulse (see :func:`_pulse_shape`)."""
+
+    pulse: str
+    bt: float | None
+    beyond_carson_db: float | None
+
+
+def _welch(x: np.ndarray, nper: int) -> tuple[np.ndarray, int]:
+    """Sum of the Hann-windowed periodograms of half-overlapping segments (Welch 1967), FFT order, and their count.
+
+    Scaled as a density per unit of the sample rate: divide by the count and the rate.
+    """
+    hop = nper - nper // 2
+    n_seg = 1 + (len(x) - nper) // hop
+    if n_seg < 1:
+        return np.zeros(nper), 0
+    win = _sig.get_window("hann", nper)
+    seg = sliding_window_view(x, nper)[::hop][:n_seg] * win
+    spec = _fft.fft(seg, axis=1)
+    return np.sum(spec.real**2 + spec.imag**2, axis=0) / np.sum(win**2), n_seg
+
+
+@lru_cache(maxsize=64)
+def _cpfsk_spectrum(h: float, pulse: str, bt: float) -> tuple[np.ndarray, np.ndarray]:
+    """Power spectrum of binary CPFSK with random bits: (frequency in baud, PSD per baud), unit power.
+
+    Averaged periodograms (Welch 1967) of a simulated waveform made with the
+    receiver's own phase model (:func:`iqdemod.sequence.phase_trajectory`),
+    with the same Hann segments, in symbols, as the burst spectrum it is
+    compared with, so that both are smoothed alike (the spectral lines of
+    whole h included). The bits come from a fixed seed: the result is a
+    function of (h, pulse, bt) only, and cached.
+    """
+    plan = plan_sequence(h=h, pulse=pulse, bt=bt, n_symbols=1)
+    bits = np.random.default_rng(0x5EED).integers(0, 2, _THEORY_SYMBOLS)
+    t = np.arange(_THEORY_SYMBOLS * _THEORY_SPS) / _THEORY_SPS
+    x = np.exp(1j * phase_trajectory(bits, t, plan))
+    nper = _SPECTRUM_SEGMENT_SYMBOLS * _THEORY_SPS
+    total, _ = _welch(x, nper)
+    f = np.fft.fftshift(np.fft.fftfreq(nper, 1.0 / _THEORY_SPS))
+    p = np.fft.fftshift(total)
+    p = p / (np.sum(p) * (f[1] - f[0]))
+    f.setflags(write=False)
+    p.setflags(write=False)
+    return f, p
+
+
+def _burst_spectrum(excerpts: list[ActivityBurst], rate_hz: float, baud: float,
+                    detector_frame: int) -> tuple[np.ndarray, np.ndarray] | None:
+    """Averaged periodogram of the bursts' own samples (frequency relative to the tuner centre, PSD), or None."""
+    nper = int(round(_SPECTRUM_SEGMENT_SYMBOLS * rate_hz / baud))
+    if nper < 16:
+        return None
+    total, count = np.zeros(nper), 0
+    for raw in excerpts:
+        x = raw.samples.astype(np.complex128)
+        a, b = _signal_span(x, raw.local_core, detector_frame // 8)
+        if b - a >= 2 * nper:
+            p, n_seg = _welch(x[a:b], nper)
+            total += p
+            count += n_seg
+    if count < _MIN_SEGMENTS:
+        return None
+    freqs = np.fft.fftshift(np.fft.fftfreq(nper, 1.0 / rate_hz))
+    return freqs, np.fft.fftshift(total / (count * rate_hz))
+
+
+def _tuner_gain(tuner: TunerPlan, freqs_hz: np.ndarray) -> np.ndarray:
+    """|H(f)|² of the tuner's decimating filter at each output frequency and its aliases: (aliases, bins).
+
+    Row k is the response at f + (k − K)·rate, the input frequency that lands on f after decimation.
+    """
+    if tuner.decimation == 1:
+        return np.ones((1, len(freqs_hz)))
+    rate = tuner.output_rate_hz
+    shifts = np.arange(-2, 3)[:, None] * rate
+    _, resp = _sig.freqz(tuner.taps.astype(np.float64), worN=(freqs_hz[None, :] + shifts).ravel(),
+                         fs=tuner.sample_rate_hz)
+    return (np.abs(resp) ** 2).reshape(len(shifts), -1)
+
+
+def _fit_shape(p_meas: np.ndarray, shape: np.ndarray, noise: np.ndarray) -> tuple[float, float, float]:
+    """Fit p ≈ a·shape + n·noise (a, n >= 0) with relative errors; return (a, n, mean squared log residual)."""
+    w = 1.0 / p_meas
+    cols = np.stack([shape * w, noise * w], axis=1)
+    coef, *_ = np.linalg.lstsq(cols, np.ones_like(p_meas), rcond=None)
+    if coef[0] <= 0 or coef[1] <= 0:  # one term alone
+        only = [float(np.sum(c) / np.sum(c * c)) for c in (cols[:, 0], cols[:, 1])]
+        err = [np.sum((1 - o * c) ** 2) for o, c in zip(only, (cols[:, 0], cols[:, 1]))]
+        coef = np.array([only[0], 0.0]) if err[0] <= err[1] else np.array([0.0, only[1]])
+    model = np.maximum(coef[0] * shape + coef[1] * noise, 1e-300)
+    return float(coef[0]), float(coef[1]), float(np.mean(np.log(p_meas / model) ** 2))
+
+
+def _pulse_shape(excerpts: list[ActivityBurst], watch: _Watch, mod: _Modulation) -> _PulseShape | None:
+    """Rectangular or Gaussian pulse (and its BT), from how fast the bursts' spectrum falls.
+
+    Beyond Carson's bandwidth (shift + 2·baud; Carson, Proc. IRE 10, 1922)
+    the spectrum of CPFSK with a rectangular pulse falls slowly (as f⁻⁴, the
+    phase has corners), a Gaussian pulse's far faster and the sooner the
+    smaller its BT. The averaged periodogram of the burst excerpts is fitted,
+    bin by bin with relative errors, by ``a·S(f) + n·N(f)`` for each
+    candidate spectrum S (:func:`_cpfsk_spectrum` at the measured h and baud:
+    rect, and Gaussian with each of ``PULSE_BTS``), N the white noise floor;
+    both pass through the tuner's filter and its aliases, so the whole
+    decimated band counts, not only the filter's flat part. The candidate
+    with the smallest log residual wins. Also measured: the share of the
+    signal's power beyond Carson's bandwidth within that band, noise removed,
+    dB. None when the bursts are too short or too few for a spectrum.
+    """
+    rate, baud = watch.rate_hz, mod.baud
+    h = (mod.tone_high_hz - mod.tone_low_hz) / baud
+    if not (0.1 < h < 20 and rate > 3 * baud):
+        return None
+    got = _burst_spectrum(excerpts, rate, baud, watch.detector.frame_len)
+    if got is None:
+        return None
+    freqs, p_meas = got
+    centre = (mod.tone_low_hz + mod.tone_high_hz) / 2
+    use = (np.abs(freqs) <= 0.48 * rate) & (p_meas > 0)
+    freqs, p_meas = freqs[use], p_meas[use]
+    gain = _tuner_gain(watch.tuner, freqs)
+    k0 = gain.shape[0] // 2
+    aliases = (np.arange(gain.shape[0]) - k0)[:, None] * rate
+    noise = gain.sum(axis=0)
+    h_key = round(h, 3)
+    candidates = [("rect", None)] + [("gaussian", bt) for bt in PULSE_BTS]
+    fits = []
+    for pulse, bt in candidates:
+        f_theory, s_theory = _cpfsk_spectrum(h_key, pulse, 0.5 if bt is None else bt)
+        at = (freqs[None, :] + aliases - centre) / baud
+        shape = np.sum(gain * np.interp(at, f_theory, s_theory, left=0.0, right=0.0), axis=0)
+        fits.append(_fit_shape(p_meas, shape, noise))
+    best = int(np.argmin([f[2] for f in fits]))
+    pulse, bt = candidates[best]
+    # the share beyond Carson's bandwidth, where the filter keeps at least half the power
+    flat = gain[k0] >= 0.5
+    sig = (p_meas - fits[best][1] * noise)[flat] / gain[k0][flat]
+    off = np.abs(freqs[flat] - centre)
+    total, beyond = float(np.sum(sig)), float(np.sum(sig[off > (h / 2 + 1) * baud]))
+    share = 10 * math.log10(beyond / total) if total > 0 and beyond > 0 else None
+    return _PulseShape(pulse, bt, share)
+
+
 # --------------------------------------------------------------------------- framing from demodulated bursts
 
 
@@ -1919,13 +2107,15 @@ def _characterise(capture: Capture, act: _Activity, fs: float, *, block_samples:
     offset = (lo + hi) / 2
     durations = [(b - a) / fs for a, b in act.intervals]
     ebn0, power = _ebn0_and_power(act.excerpts, w, act.floor, mod.baud)
+    shape = _pulse_shape(act.excerpts, w, mod)
     first = act.excerpts[0]
     example = Excerpt(first.samples.copy(), w.rate_hz, centre, max(0.0, w.input_sample(first.start)) / fs)
     layout = _Layout()
     checked = 0
     if framing:
         try:
-            sig = SignalSpec(baud=mod.baud, shift_hz=hi - lo, offset_hz=offset)
+            sig = SignalSpec(baud=mod.baud, shift_hz=hi - lo, offset_hz=offset,
+                             **(_pulse_options(shape.pulse, shape.bt) if shape else {}))
             Link(signal=sig).check_rate(fs)
         except IqdemodError:
             sig = None
@@ -1957,6 +2147,9 @@ def _characterise(capture: Capture, act: _Activity, fs: float, *, block_samples:
         length_counts=layout.length_counts,
         bit_order=layout.bit_order,
         crc_order=layout.crc_order,
+        pulse=None if shape is None else shape.pulse,
+        bt=None if shape is None else shape.bt,
+        beyond_carson_db=None if shape is None else shape.beyond_carson_db,
     )
 
 
