@@ -21,6 +21,7 @@ The link's :class:`~iqdemod.link.FrameSpec` says how the frame is coded
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
@@ -61,6 +62,9 @@ class FrameHit:
         The stream ended before the frame did.
     coding_errors : int
         Manchester chip pairs in the frame that are no symbol (0,0 or 1,1).
+    crc_received, crc_computed : int or None
+        The CRC as sent and as computed over what was received (None without
+        a CRC, or when the frame was cut short).
     """
 
     bit_index: int
@@ -71,6 +75,8 @@ class FrameHit:
     n_bits: int
     truncated: bool = False
     coding_errors: int = 0
+    crc_received: int | None = None
+    crc_computed: int | None = None
 
 
 def int_to_bits(value: int, n: int) -> np.ndarray:
@@ -156,18 +162,30 @@ def frame_symbols(payload: bytes, spec: FrameSpec) -> np.ndarray:
     return bits if spec.coding == "nrz" else manchester_encode(bits, spec.coding)
 
 
-def _read_body(bits: np.ndarray, pos: int, spec: FrameSpec) -> tuple[int, bytes, bool, int, bool]:
-    """Read the body starting at bit `pos`: (payload length, payload, CRC good, end bit, truncated)."""
+class _Body(NamedTuple):
+    """What follows a sync word: (payload length, payload, CRC good, end symbol, truncated, CRCs)."""
+
+    length: int
+    payload: bytes
+    ok: bool
+    end: int
+    truncated: bool
+    crc_received: int | None = None
+    crc_computed: int | None = None
+
+
+def _read_body(bits: np.ndarray, pos: int, spec: FrameSpec) -> _Body:
+    """Read the body starting at bit `pos`."""
     n_total = len(bits)
     crc_n = _crc_bytes(spec)
     head = 0
     if spec.length == "prefix8":
         if pos + 8 > n_total:
-            return 0, b"", False, n_total, True
+            return _Body(0, b"", False, n_total, True)
         value = whiten(bits_to_bytes(bits[pos : pos + 8], spec.bit_order), spec.whitening)[0]
         length = value - _length_extra(spec)
         if not 1 <= length <= 255:  # not a frame this layout can carry
-            return 0, b"", False, pos + 8, False
+            return _Body(0, b"", False, pos + 8, False)
         head = 1
     else:
         length = int(spec.length)
@@ -175,15 +193,15 @@ def _read_body(bits: np.ndarray, pos: int, spec: FrameSpec) -> tuple[int, bytes,
     if end > n_total:
         avail = bits[pos : min(end, n_total)]
         data = whiten(bits_to_bytes(avail[: len(avail) // 8 * 8], spec.bit_order), spec.whitening)
-        return length, data[head : head + length], False, n_total, True
+        return _Body(length, data[head : head + length], False, n_total, True)
     data = whiten(bits_to_bytes(bits[pos:end], spec.bit_order), spec.whitening)
     covered, sent = data[: head + length], data[head + length :]
     payload = covered[head:]
     if spec.crc == "none":
-        ok = True
-    else:
-        ok = crc_compute(crc_spec(spec.crc), covered) == int.from_bytes(sent, spec.crc_order)
-    return length, payload, ok, end, False
+        return _Body(length, payload, True, end, False)
+    received = int.from_bytes(sent, spec.crc_order)
+    computed = crc_compute(crc_spec(spec.crc), covered)
+    return _Body(length, payload, computed == received, end, False, received, computed)
 
 
 def sync_symbols(spec: FrameSpec) -> np.ndarray:
@@ -251,8 +269,9 @@ def find_frames(bits: np.ndarray, spec: FrameSpec, *, stats: tuple[np.ndarray, n
     for idx, best in _candidates(dist, spec.sync_tolerance, n):
         if idx < resume:
             continue
-        length, payload, ok, end, truncated = _read_body(bits, best + n, spec)
-        hit = FrameHit(best, int(dist[best]), length, payload, ok, end - best, truncated)
+        body = _read_body(bits, best + n, spec)
+        hit = FrameHit(best, int(dist[best]), body.length, body.payload, body.ok, body.end - best, body.truncated,
+                       crc_received=body.crc_received, crc_computed=body.crc_computed)
         hits.append(hit)
         resume = best + (hit.n_bits if hit.crc_ok else n)
     return hits
@@ -283,10 +302,11 @@ def _find_coded(chips: np.ndarray, spec: FrameSpec, stats) -> list[FrameHit]:
             continue
         b, invalid_sum = phases[best % 2]
         k = best // 2
-        length, payload, ok, end, truncated = _read_body(b, k + spec.sync_bits, spec)
-        coding_errors = int(invalid_sum[min(end, len(b))] - invalid_sum[k])
-        n_chips = min(2 * (end - k), len(chips) - best)
-        hit = FrameHit(best, int(dist[best]), length, payload, ok, n_chips, truncated, coding_errors)
+        body = _read_body(b, k + spec.sync_bits, spec)
+        coding_errors = int(invalid_sum[min(body.end, len(b))] - invalid_sum[k])
+        n_chips = min(2 * (body.end - k), len(chips) - best)
+        hit = FrameHit(best, int(dist[best]), body.length, body.payload, body.ok, n_chips, body.truncated,
+                       coding_errors, body.crc_received, body.crc_computed)
         hits.append(hit)
         resume = best + (hit.n_bits if hit.crc_ok else n)
     return hits

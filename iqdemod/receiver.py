@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import contextlib
 import dataclasses
+import datetime
 import functools
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -228,6 +229,22 @@ class Frame:
         (per symbol on the air: with Manchester, per chip).
     coding_errors : int or None
         Manchester chip pairs that were not a valid symbol (None for NRZ).
+    crc_received, crc_computed : int or None
+        The CRC as sent and as computed over the received bytes (None without a CRC).
+    level_dbfs : float or None
+        The frame's signal power, dB re full scale (1.0 for float captures).
+    noise_dbfs : float or None
+        The noise around it: its power over the whole capture band, dB re full
+        scale (from the signal level and the frame's Eb/N0, REFERENCE §8).
+    frequency_hz : float or None
+        The carrier as received: capture centre + signal offset + measured
+        carrier error (None when the capture's centre is not known).
+    clock_ppm : float or None
+        The transmitter's symbol-clock error measured on this transmission.
+    time_utc : str or None
+        ISO 8601 UTC time of `t_s` (the capture's start time + t_s), when known.
+    crc_bits : int
+        Width of the link's CRC (for the hex fields).
     """
 
     capture: str
@@ -246,6 +263,14 @@ class Frame:
     n_symbols: int = 0
     ebn0: EbN0Estimate | None = field(default=None, repr=False)
     coding_errors: int | None = None
+    crc_received: int | None = None
+    crc_computed: int | None = None
+    level_dbfs: float | None = None
+    noise_dbfs: float | None = None
+    frequency_hz: float | None = None
+    clock_ppm: float | None = None
+    time_utc: str | None = None
+    crc_bits: int = 0
 
     @property
     def raw(self) -> bool:
@@ -268,7 +293,21 @@ class Frame:
                 rec["truncated"] = True
             if self.coding_errors is not None:
                 rec["coding_errors"] = int(self.coding_errors)
+            if not self.crc_ok and self.crc_received is not None:
+                digits = (self.crc_bits + 3) // 4
+                rec.update(crc_received_hex=f"{self.crc_received:0{digits}x}",
+                           crc_computed_hex=f"{self.crc_computed:0{digits}x}")
         rec.update(freq_error_hz=round(self.freq_error_hz, 1), ebn0_db=ebn0)
+        for key in ("level_dbfs", "noise_dbfs"):
+            value = getattr(self, key)
+            if value is not None and np.isfinite(value):
+                rec[key] = round(float(value), 2)
+        if self.frequency_hz is not None:
+            rec["frequency_hz"] = round(float(self.frequency_hz), 1)
+        if self.clock_ppm is not None and np.isfinite(self.clock_ppm):
+            rec["clock_ppm"] = round(float(self.clock_ppm), 1)
+        if self.time_utc is not None:
+            rec["time_utc"] = self.time_utc
         return rec
 
 
@@ -677,6 +716,35 @@ def _estimate_sequence(sync: _Sync, plan: ReceiverPlan, a: int, b: int, known: n
     return est if known is not None else dataclasses.replace(est, method="decision-directed-raw")
 
 
+def _levels(sync: _Sync, plan: ReceiverPlan, a: int, b: int, es_n0_db: float) -> dict:
+    """Signal and noise level, absolute frequency and clock of symbols a … b − 1 (Frame fields).
+
+    The front end hands the signal on at unit gain, so the mean power P of
+    the frame's samples is A² + σ²·Σh², with σ² the noise over the whole
+    capture band and h the channel filter's taps. With Es/N0 = A²·(fs/baud)/σ²
+    (REFERENCE §8, per symbol on the air) that gives A² and σ².
+    """
+    burst, starts = sync.burst, sync.starts
+    out: dict = {"clock_ppm": burst.clock_error_ppm}
+    if plan.centre_hz is not None:
+        out["frequency_hz"] = plan.centre_hz + plan.offset_hz + burst.freq_error_hz
+    if b <= a or not np.isfinite(es_n0_db):
+        return out
+    lo = max(0, int(np.floor(starts[a])))
+    hi = min(len(sync.x), int(np.ceil(starts[b - 1] + sync.timing.period_samples)))
+    seg = sync.x[lo:hi]
+    if not len(seg):
+        return out
+    power = float(np.vdot(seg, seg).real) / len(seg)
+    noise_per_signal = (plan.sample_rate_hz / plan.link.signal.baud) / 10 ** (es_n0_db / 10)  # σ²/A²
+    passed = plan.filter_noise_share / plan.tuner.decimation  # Σh²: the share of σ² a sample of x holds
+    signal = power / (1.0 + passed * noise_per_signal)
+    if signal > 0:
+        out["level_dbfs"] = 10 * np.log10(signal)
+        out["noise_dbfs"] = 10 * np.log10(signal * noise_per_signal)
+    return out
+
+
 def _frames_of(sync: _Sync, plan: ReceiverPlan, raw_start: int, capture: str) -> list[Frame]:
     """The frames (or, in raw mode, the one record of bits) of a synchronised burst."""
     burst, starts = sync.burst, sync.starts
@@ -699,7 +767,8 @@ def _frames_of(sync: _Sync, plan: ReceiverPlan, raw_start: int, capture: str) ->
             sample = burst.sample
             frames.append(
                 Frame(capture, sample / fs, sample, burst.index, 0, b"", False, 0, burst.freq_error_hz,
-                      db, bits=burst.bits, first_symbol=0, n_symbols=burst.n_symbols, ebn0=est)
+                      db, bits=burst.bits, first_symbol=0, n_symbols=burst.n_symbols, ebn0=est,
+                      **_levels(sync, plan, 0, burst.n_symbols, db))
             )
     else:
         per_bit_db = 10 * np.log10(spec.symbols_per_bit)  # Eb of a Manchester bit is two chips' energy
@@ -717,9 +786,30 @@ def _frames_of(sync: _Sync, plan: ReceiverPlan, raw_start: int, capture: str) ->
                 Frame(capture, sample / fs, sample, burst.index, hit.length, hit.payload, hit.crc_ok,
                       hit.sync_errors, burst.freq_error_hz, db, hit.truncated,
                       first_symbol=a, n_symbols=b - a, ebn0=est,
-                      coding_errors=hit.coding_errors if spec.coding != "nrz" else None)
+                      coding_errors=hit.coding_errors if spec.coding != "nrz" else None,
+                      crc_received=hit.crc_received, crc_computed=hit.crc_computed, crc_bits=spec.crc_bits,
+                      **_levels(sync, plan, a, b, db - per_bit_db))
             )
     return frames
+
+
+def _parse_utc(text: str | None) -> datetime.datetime | None:
+    """A capture's start time (RFC 3339, as SigMF's core:datetime) as an aware UTC datetime; None if absent or unreadable."""
+    if not text:
+        return None
+    try:
+        when = datetime.datetime.fromisoformat(text.strip().replace("z", "Z"))
+    except ValueError:
+        return None
+    if when.tzinfo is None:
+        when = when.replace(tzinfo=datetime.timezone.utc)
+    return when.astimezone(datetime.timezone.utc)
+
+
+def _utc(start: datetime.datetime, t_s: float) -> str:
+    """ISO 8601 UTC with microseconds of `t_s` seconds after `start`."""
+    when = start + datetime.timedelta(microseconds=round(t_s * 1e6))
+    return when.strftime("%Y-%m-%dT%H:%M:%S.%fZ")
 
 
 class Receiver:
@@ -742,6 +832,7 @@ class Receiver:
         self._detector = self.plan.detector.initial_state()
         self._last_frame_sample = -np.inf
         self._name = Path(info.path).name
+        self._start = _parse_utc(info.start_time)
 
     def feed(self, block: np.ndarray) -> list[Burst]:
         """Process one block of input samples; return the bursts it completed."""
@@ -766,6 +857,9 @@ class Receiver:
         out = []
         half = 0.5 * self.plan.sample_rate_hz / self.plan.link.signal.baud
         for burst in demodulate_burst(raw, self.plan, capture=self._name):
+            if self._start is not None and burst.frames:
+                burst = dataclasses.replace(burst, frames=tuple(
+                    dataclasses.replace(f, time_utc=_utc(self._start, f.t_s)) for f in burst.frames))
             if burst.piece:  # pieces of a long burst overlap: drop frames already handed out
                 burst, self._last_frame_sample = _drop_repeats(burst, self._last_frame_sample, half)
             elif burst.frames:
