@@ -20,7 +20,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["tone_sums", "window_sums", "correlate", "phasor"]
+__all__ = ["tone_sums", "window_sums", "window_weights", "correlate", "phasor"]
 
 
 def tone_sums(x: np.ndarray, rate_hz: float, tones_hz, *, offset_hz: float = 0.0) -> np.ndarray:
@@ -108,3 +108,12 @@ def _at(sums: np.ndarray, t: np.ndarray) -> np.ndarray:
 def correlate(sums: np.ndarray, starts: np.ndarray, length: float) -> np.ndarray:
     """Correlator outputs z (window mean, so a unit tone gives |z| = 1), shape (n_symbols, n_tones)."""
     return window_sums(sums, starts, length) / length
+
+
+def window_weights(start: float, length: float) -> tuple[np.ndarray, np.ndarray]:
+    """Samples m a correlator window [start, start + length) touches, and the share of each in it.
+
+    The same weights :func:`window_sums` applies through its running sums.
+    """
+    m = np.arange(int(np.floor(start)), int(np.ceil(start + length)) + 1)
+    return m, np.clip(np.minimum(m + 1, start + length) - np.maximum(m, start), 0, None)

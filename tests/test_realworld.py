@@ -80,11 +80,13 @@ def test_float_scale_changes_nothing(tmp_path):
         assert cap.stats.clipped == 0
     ref = [f.as_record() for f in iqdemod.decode(case.reference_meta, link)]
     assert len(big) == len(ref) == 6
+    floats = ("capture", "t_s", "freq_error_hz", "ebn0_db", "level_dbfs", "noise_dbfs", "frequency_hz", "clock_ppm")
     for a, b in zip(ref, big):  # the ×1000 samples round to float32 on their own: floats to 1e-6
-        assert {k: v for k, v in a.items() if k not in ("capture", "t_s", "freq_error_hz", "ebn0_db")} == \
-            {k: v for k, v in b.items() if k not in ("capture", "t_s", "freq_error_hz", "ebn0_db")}
-        for k in ("t_s", "freq_error_hz", "ebn0_db"):
-            assert b[k] == pytest.approx(a[k], rel=1e-6, abs=1e-9)
+        assert {k: v for k, v in a.items() if k not in floats} == {k: v for k, v in b.items() if k not in floats}
+        for k in ("t_s", "freq_error_hz", "ebn0_db", "frequency_hz", "clock_ppm"):
+            assert b[k] == pytest.approx(a[k], rel=1e-6, abs=0.05)
+        for k in ("level_dbfs", "noise_dbfs"):  # levels are re 1.0: a thousand times the amplitude is +60 dB
+            assert b[k] - a[k] == pytest.approx(60.0, abs=0.02)
 
 
 def test_health_reports_the_recording_receiver(tmp_path):
