@@ -155,8 +155,11 @@ def curves(ebn0_range, freq_error_t, target_ber, frame_bits, as_json, plot, **li
 
     Columns: non-coherent BFSK for this link's modulation index h = shift/baud
     (and δf·T), orthogonal non-coherent, coherent orthogonal and antipodal
-    references, and the frame error rate of this link. Give --baud and --shift
-    (or --link); no capture is needed.
+    references, and the frame error rate of this link. For a Gaussian pulse
+    (--gaussian BT) or an h that is not whole, two more: the one-symbol
+    correlator bank receiving this pulse, and the multi-symbol detector of
+    --detector-symbols symbols, each with its frame error rate. Give --baud and
+    --shift (or --link); no capture is needed.
     """
     if link_kw.get("link") is None and link_kw.get("baud") is None and link_kw.get("shift") is None:
         link_kw["baud"] = link_kw["shift"] = 1.0  # no link given: orthogonal tones, h = 1
@@ -165,8 +168,10 @@ def curves(ebn0_range, freq_error_t, target_ber, frame_bits, as_json, plot, **li
         from iqdemod.plots import require_matplotlib
 
         require_matplotlib()
-    table = iqdemod.predict.curves_table(_parse_range(ebn0_range), h=link.signal.h, freq_error_T=freq_error_t,
-                                         frame_bits=frame_bits or _frame_bits(link), target_ber=target_ber)
+    sig = link.signal
+    table = iqdemod.predict.curves_table(_parse_range(ebn0_range), h=sig.h, freq_error_T=freq_error_t,
+                                         frame_bits=frame_bits or _frame_bits(link), target_ber=target_ber,
+                                         pulse=sig.pulse, bt=sig.bt, detector_symbols=sig.detector_symbols)
     if as_json:
         click.echo(json.dumps(table, default=_json_default))
     else:
@@ -174,8 +179,8 @@ def curves(ebn0_range, freq_error_t, target_ber, frame_bits, as_json, plot, **li
     if plot is not None:
         from iqdemod.plots import plot_curves
 
-        plot_curves(plot, ebn0_db=np.asarray(table["ebn0_db"]), h=link.signal.h, freq_error_T=freq_error_t,
-                    target_ber=target_ber)
+        plot_curves(plot, ebn0_db=np.asarray(table["ebn0_db"]), h=sig.h, freq_error_T=freq_error_t,
+                    target_ber=target_ber, pulse=sig.pulse, bt=sig.bt, detector_symbols=sig.detector_symbols)
         say(f"wrote {plot}")
 
 
@@ -186,18 +191,37 @@ def _frame_bits(link) -> int:
 
 
 def _curves_text(t: dict) -> str:
-    cols = [("Eb/N0 dB", "ebn0_db", "{:8.2f}"), (f"this link h={t['h']:g}", "ber_link", "{:.3e}"),
-            ("non-coh orth", "ber_noncoherent", "{:.3e}"), ("coh orth", "ber_coherent_orthogonal", "{:.3e}"),
-            ("antipodal", "ber_antipodal", "{:.3e}"), (f"PER {t['frame_bits']} bits", "per_link", "{:.3e}")]
-    widths = [max(len(h), 9) for h, _, _ in cols]
-    lines = ["  ".join(f"{h:>{w}}" for (h, _, _), w in zip(cols, widths))]
+    """The curves as an aligned table with two header lines, then the Eb/N0 each needs for the target."""
+    extended = "ber_multi_symbol" in t
+    gauss = t.get("pulse") == "gaussian"
+    n = t.get("detector_symbols")
+    this = ("rect pulse", f"h={t['h']:g}") if gauss else ("this link", f"h={t['h']:g}")
+    cols = [(("Eb/N0", "dB"), "ebn0_db", "{:.2f}"), (this, "ber_link", "{:.3e}")]
+    if extended:
+        pulse = f"Gaussian BT {t['bt']:g}" if gauss else "rect pulse"
+        cols += [(("one-symbol bank", pulse), "ber_one_symbol_pulse", "{:.3e}"),
+                 ((f"{n}-symbol", "detector"), "ber_multi_symbol", "{:.3e}")]
+    cols += [(("non-coherent", "orthogonal"), "ber_noncoherent", "{:.3e}"),
+             (("coherent", "orthogonal"), "ber_coherent_orthogonal", "{:.3e}"),
+             (("antipodal", ""), "ber_antipodal", "{:.3e}"),
+             ((f"PER {t['frame_bits']} bits", "rect pulse" if gauss else "this link"), "per_link", "{:.3e}")]
+    if extended:
+        cols += [((f"PER {t['frame_bits']} bits", "one-symbol"), "per_one_symbol_pulse", "{:.3e}"),
+                 ((f"PER {t['frame_bits']} bits", f"{n}-symbol"), "per_multi_symbol", "{:.3e}")]
+    widths = [max(len(head[0]), len(head[1]), 9) for head, _, _ in cols]
+    lines = ["  ".join(f"{head[row]:>{w}}" for (head, _, _), w in zip(cols, widths)) for row in (0, 1)]
     for i in range(len(t["ebn0_db"])):
         lines.append("  ".join(f"{fmt.format(t[k][i]):>{w}}" for (_, k, fmt), w in zip(cols, widths)))
     need = t["needed_db"]
     lines.append("")
-    lines.append(f"Eb/N0 needed for BER {t['target_ber']:g}: this link {_fmt_need(need['link'])}, "
-                 f"non-coherent orthogonal {need['noncoherent']:.2f} dB, coherent orthogonal "
-                 f"{need['coherent_orthogonal']:.2f} dB, antipodal {need['antipodal']:.2f} dB")
+    text = (f"Eb/N0 needed for BER {t['target_ber']:g}: "
+            f"{'a rect pulse at this h' if gauss else 'this link'} {_fmt_need(need['link'])}")
+    if extended:
+        text += (f", one-symbol bank with this pulse {_fmt_need(need['one_symbol_pulse'])}, "
+                 f"{n}-symbol detector {_fmt_need(need['multi_symbol'])}")
+    text += (f", non-coherent orthogonal {need['noncoherent']:.2f} dB, coherent orthogonal "
+             f"{need['coherent_orthogonal']:.2f} dB, antipodal {need['antipodal']:.2f} dB")
+    lines.append(text)
     return "\n".join(lines)
 
 

@@ -22,7 +22,8 @@ __all__ = ["survey"]
 
 def _table(result: SurveyResult) -> str:
     """The signals as a compact aligned table, strongest first."""
-    head = ("#", "offset_hz", "shift_hz", "baud", "h", "bursts", "burst_ms", "ebn0_db", "dbfs", "sync", "frame")
+    head = ("#", "offset_hz", "shift_hz", "baud", "h", "bursts", "burst_ms", "ebn0_db", "dbfs", "pulse/bt", "sync",
+            "frame")
     rows = [head]
     for i, s in enumerate(result.signals, 1):
         sync = f"{s.sync_guess}/{s.sync_bits}" if s.sync_guess else "-"
@@ -33,13 +34,20 @@ def _table(result: SurveyResult) -> str:
         ebn0 = f"{s.ebn0_db:.1f}" if math.isfinite(s.ebn0_db) else "-"
         power = f"{s.power_db:.1f}" if math.isfinite(s.power_db) else "-"
         rows.append((str(i), f"{s.offset_hz:.1f}", f"{s.shift_hz:.1f}", f"{s.baud:.2f}", f"{s.h:.3f}", str(s.bursts),
-                     f"{1e3 * s.burst_lengths_s.median:.1f}", ebn0, power, sync, frame))
+                     f"{1e3 * s.burst_lengths_s.median:.1f}", ebn0, power, _pulse(s), sync, frame))
     widths = [max(len(r[k]) for r in rows) for k in range(len(head))]
     lines = []
     for r in rows:
         cells = [c.rjust(w) for c, w in zip(r[:-2], widths[:-2])] + [r[-2].ljust(widths[-2]), r[-1]]
         lines.append("  ".join(cells).rstrip())
     return "\n".join(lines) + "\n"
+
+
+def _pulse(s) -> str:
+    """The pulse found, for the table: "rect", "gaussian/0.5" (with its BT), or "-" when it was not measured."""
+    if s.pulse is None:
+        return "-"
+    return "rect" if s.pulse == "rect" else f"gaussian/{s.bt:g}"
 
 
 def _json_ready(value):
@@ -69,7 +77,9 @@ def survey(capture, datatype, rate, max_signals, as_json, write_link, plot, quie
     """Find the bursty FSK signals in a capture and measure them.
 
     For each signal, strongest first: offset from the capture centre, tone
-    shift, symbol rate, modulation index h, number and length of bursts, a
+    shift, symbol rate, modulation index h, the frequency pulse (rectangular
+    or Gaussian with its BT, from how fast the bursts' spectrum falls beyond
+    Carson's bandwidth), number and length of bursts, a
     rough Eb/N0, and, from a few demodulated bursts, the sync word, frame
     length and catalogue CRC when they can be found. The table (or --json)
     goes to stdout; --write-link writes a profile that `iqdemod decode
@@ -94,6 +104,8 @@ def survey(capture, datatype, rate, max_signals, as_json, write_link, plot, quie
         link = best.to_link(capture=fmt)
         note = (f"iqdemod survey of {result.capture}: signal 1, {best.bursts} burst(s), "
                 f"Eb/N0 ~{best.ebn0_db:.0f} dB")
+        if best.pulse is not None:
+            note += f"\npulse from the bursts' spectrum: {best.pulse}" + (f", BT {best.bt:g}" if best.bt else "")
         if best.sync_guess is None:
             note += "\nno sync word found: raw mode (one record of bits per burst)"
         elif best.crc is None:

@@ -58,6 +58,8 @@ __all__ = [
     "ebn0_for_pb",
     "ebn0_db_for_pb",
     "per_from_ber",
+    "curves_extended",
+    "curves_table",
     "clopper_pearson",
     "binomial_p_value",
 ]
