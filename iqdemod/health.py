@@ -98,6 +98,10 @@ class HealthReport:
     image_rejection_db: float | None = None
     image_rejection_after_db: float | None = None
     pb_model: str = "noncoherent-fsk"
+    pulse: str = "rect"
+    bt: float | None = None
+    detector: str = "per-symbol"
+    detector_symbols: int | None = None
     histogram_edges_db: tuple[float, ...] = field(default=(), repr=False)
     histogram_right: tuple[int, ...] = field(default=(), repr=False)
     histogram_wrong: tuple[int, ...] = field(default=(), repr=False)
@@ -274,7 +278,9 @@ class HealthAccumulator:
             mismatch_loss_db=mismatch, clipped_fraction=float(clipped_fraction), h=sig.h, baud=sig.baud, frame_bits=frame_bits,
             decision_gain_db=-corr, warnings=tuple(warnings), start_time=start_time,
             **_front_end_fields(front_end),
-            pb_model=_pb_model(plan),
+            pb_model=_pb_model(plan), pulse=sig.pulse, bt=sig.bt if sig.pulse == "gaussian" else None,
+            detector="multi-symbol" if plan.sequence is not None else "per-symbol",
+            detector_symbols=sig.detector_symbols if plan.sequence is not None else None,
             histogram_edges_db=tuple(float(v) for v in HIST_EDGES_DB),
             histogram_right=tuple(int(v) for v in self.hist_right),
             histogram_wrong=tuple(int(v) for v in self.hist_wrong),

@@ -151,7 +151,8 @@ def plot_health(path, report) -> None:
     centre = report.ebn0_db if report.ebn0_db is not None else 10.0
     grid = np.linspace(min(0.0, centre - 6), max(16.0, centre + 4), 200)
     dT = (report.residual_freq_error_hz or 0.0) / report.baud
-    _curve_axes(ax, grid, h=report.h, freq_error_T=dT, sps=None)
+    _curve_axes(ax, grid, h=report.h, freq_error_T=dT, sps=None, pulse=report.pulse, bt=report.bt or 0.5,
+                detector_symbols=report.detector_symbols or 5)
     # The decisions see Eb/N0 plus the receiver's noise-bandwidth gain: that is where the point sits on the curve.
     x_op = None if report.ebn0_db is None else report.ebn0_db + report.decision_gain_db
     if x_op is not None and report.ber_predicted is not None:
