@@ -665,3 +665,12 @@ def open_capture(path: str | os.PathLike, *, datatype: str | None = None, sample
     dt = parse_datatype(datatype)
     rate = _check_rate(sample_rate, str(p))
     return Capture(_raw_info(p, p, dt, rate, kind="raw"), _datatype=dt)
+
+
+def sample_converter(datatype: str):
+    """The converter from raw components of `datatype` to complex64 that every reader uses.
+
+    Called on an array of components (the datatype's numpy type), it returns
+    (complex64 samples, non-finite samples, clipped samples).
+    """
+    return _Converter(parse_datatype(datatype))

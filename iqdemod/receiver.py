@@ -169,7 +169,7 @@ def drive(rx: "Receiver", capture: Capture, *, block_samples: int = DEFAULT_BLOC
     if progress:
         from tqdm import tqdm
 
-        bar = tqdm(total=capture.info.n_samples, unit="S", unit_scale=True, desc=Path(capture.info.path).name,
+        bar = tqdm(total=capture.info.n_samples or None, unit="S", unit_scale=True, desc=Path(capture.info.path).name,
                    leave=False, delay=1.0)
     try:
         for block in capture.blocks(block_samples):
