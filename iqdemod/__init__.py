@@ -10,15 +10,40 @@ No radio framework needed. The handful of names a script needs::
     print(report.ebn0_db, report.margin_db)
 """
 
-from . import predict
-from .capture import Capture, CaptureInfo, open_capture
+import importlib
+
 from .errors import CaptureError, IqdemodError, LinkError
-from .link import FrameSpec, Link, SignalSpec, load_link
-from .receiver import Burst, Frame, decode, iter_bursts
-from .health import HealthReport, assess
-from . import survey  # the module; its main function is survey.survey(capture)
 
 __version__ = "0.1.0"
+
+# Each public name is imported from its module when first used, so that `import iqdemod` (and a
+# command's --help) does not pay for scipy before any work needs it.
+_HOMES = {
+    "open_capture": "capture", "Capture": "capture", "CaptureInfo": "capture",
+    "load_link": "link", "Link": "link", "SignalSpec": "link", "FrameSpec": "link",
+    "decode": "receiver", "iter_bursts": "receiver", "Burst": "receiver", "Frame": "receiver",
+    "assess": "health", "HealthReport": "health",
+}
+
+
+def __getattr__(name: str):
+    home = _HOMES.get(name)
+    if home is not None:
+        value = getattr(importlib.import_module(f".{home}", __name__), name)
+    elif not name.startswith("__"):
+        try:  # a submodule, e.g. iqdemod.predict or iqdemod.survey
+            value = importlib.import_module(f".{name}", __name__)
+        except ModuleNotFoundError:
+            raise AttributeError(f"module 'iqdemod' has no attribute {name!r}") from None
+    else:
+        raise AttributeError(f"module 'iqdemod' has no attribute {name!r}")
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(__all__))
+
 
 __all__ = [
     "open_capture",
@@ -41,3 +66,4 @@ __all__ = [
     "LinkError",
     "__version__",
 ]
+
