@@ -59,7 +59,7 @@ import numpy as np
 
 from .link import SignalSpec
 
-__all__ = ["ChannelPlan", "ChannelState", "FrontEndMoments", "FrontEndReport", "plan_channel", "channelize",
+__all__ = ["ChannelPlan", "ChannelState", "FrontEndMoments", "FrontEndReport", "plan_channel", "channel_size", "channelize",
            "flush_channel", "STOPBAND_DB"]
 
 STOPBAND_DB = 70.0
@@ -146,9 +146,9 @@ class ChannelPlan:
         rel = np.fft.fftfreq(k, 1.0 / k).astype(np.int64)  # 0, 1, …, K/2−1, −K/2, …, −1
         sel = (self.centre_bin + rel) % n
         mirror = (-sel) % n
-        # the FIR's N-point DFT at the kept offsets; 1/D folds in the inverse FFT's scaling
-        m = np.arange(len(self.taps))
-        resp = np.exp(-2j * np.pi * np.outer(rel, m) / n) @ self.taps / self.decimation
+        # the FIR's N-point DFT at the kept offsets (one FFT, not a K × taps matrix); 1/D folds in
+        # the inverse FFT's scaling
+        resp = np.fft.fft(self.taps, n)[rel % n] / self.decimation
         return sel, mirror, resp.astype(np.complex64)
 
     def initial_state(self) -> "ChannelState":
@@ -283,6 +283,26 @@ def _compensator(power: float, pseudo: complex) -> complex:
     return (power - disc) / pseudo.conjugate()
 
 
+def channel_size(sample_rate_hz: float, signal: SignalSpec) -> tuple[int, int, int, float, float]:
+    """The design rule alone, cheap: (decimation, filter taps, FFT size, pass band, stop band).
+
+    What :func:`plan_channel` will build, without building it, so that a plan
+    too large to hold can be refused first (:meth:`iqdemod.link.Link.check_rate`).
+    """
+    fs = float(sample_rate_hz)
+    passband = min(signal.shift_hz / 2 + signal.baud + signal.pull_in_hz, 0.45 * fs)
+    stopband = min(passband + signal.baud / 2, 0.5 * fs)
+    decimation = max(1, int(fs // max(2.0 * stopband, 8.0 * signal.baud)))
+    out_rate = fs / decimation
+    stopband = min(stopband, out_rate / 2)
+    if stopband - passband < 1e-3 * fs:  # no room for a transition: the capture band is the channel
+        passband = max(stopband - 1e-3 * fs, 0.0)
+    n_taps, _ = _kaiser(STOPBAND_DB, (stopband - passband) / (fs / 2))
+    target = max(MIN_FFT, 8 * n_taps)
+    bins = 1 << max(1, math.ceil(math.log2(target / decimation)))
+    return decimation, n_taps, bins * decimation, passband, stopband
+
+
 def plan_channel(sample_rate_hz: float, signal: SignalSpec, offset_hz: float) -> ChannelPlan:
     """Choose the decimation, design the channel filter and size the FFT blocks for a signal.
 
@@ -293,22 +313,13 @@ def plan_channel(sample_rate_hz: float, signal: SignalSpec, offset_hz: float) ->
     edge.
     """
     fs = float(sample_rate_hz)
-    passband = min(signal.shift_hz / 2 + signal.baud + signal.pull_in_hz, 0.45 * fs)
-    stopband = min(passband + signal.baud / 2, 0.5 * fs)
-    decimation = max(1, int(fs // max(2.0 * stopband, 8.0 * signal.baud)))
-    out_rate = fs / decimation
-    stopband = min(stopband, out_rate / 2)
-    if stopband - passband < 1e-3 * fs:  # no room for a transition: the capture band is the channel
-        passband = max(stopband - 1e-3 * fs, 0.0)
-    width = (stopband - passband) / (fs / 2)
-    n_taps, beta = _kaiser(STOPBAND_DB, width)
+    decimation, n_taps, fft_size, passband, stopband = channel_size(fs, signal)
+    _, beta = _kaiser(STOPBAND_DB, (stopband - passband) / (fs / 2))
     from scipy import signal as _sig  # filter design only
 
     taps = _sig.firwin(n_taps, (passband + stopband) / 2, window=("kaiser", beta), fs=fs)
     taps = taps / taps.sum()
-    target = max(MIN_FFT, 8 * n_taps)
-    bins = 1 << max(1, math.ceil(math.log2(target / decimation)))
-    return ChannelPlan(fs, float(offset_hz), decimation, taps, passband, stopband, bins * decimation)
+    return ChannelPlan(fs, float(offset_hz), decimation, taps, passband, stopband, fft_size)
 
 
 def _kaiser(ripple_db: float, width: float) -> tuple[int, float]:
