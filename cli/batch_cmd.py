@@ -14,29 +14,34 @@ import iqdemod
 from iqdemod import batch as B
 
 from ._common import EXIT_FAILED, EXIT_OK, link_options, say
-from .main import main
+from .main import STOP_SIGNALS, main
 
 __all__ = ["batch"]
 
 
 class _Terminated(KeyboardInterrupt):
-    """SIGTERM, handled like Ctrl-C: stop, keep every finished capture."""
+    """SIGTERM, SIGHUP or SIGQUIT, handled like Ctrl-C: stop, keep every finished capture."""
+
+    def __init__(self, signum: int = signal.SIGTERM):
+        super().__init__(signum)
+        self.signum = signum
 
 
 @contextlib.contextmanager
-def _sigterm_as_interrupt() -> Iterator[None]:
+def _stop_signals_as_interrupt() -> Iterator[None]:
     if threading.current_thread() is not threading.main_thread():
         yield
         return
 
     def stop(signum, frame):
-        raise _Terminated()
+        raise _Terminated(signum)
 
-    old = signal.signal(signal.SIGTERM, stop)
+    old = {sig: signal.signal(sig, stop) for sig in STOP_SIGNALS}
     try:
         yield
     finally:
-        signal.signal(signal.SIGTERM, old)
+        for sig, handler in old.items():
+            signal.signal(sig, handler)
 
 
 @main.command()
@@ -77,7 +82,10 @@ def batch(ctx, paths, report, frames, jobs, resume, cluster, target_ber, plot, q
     frames) are saved as each capture finishes, in REPORT.partial, so a killed
     or interrupted run keeps every finished capture: run the same command with
     --resume to finish it. Exit status: 0 when every capture was processed,
-    1 when any failed, 130 after Ctrl-C, 143 after SIGTERM.
+    1 when any failed, 130 after Ctrl-C, 128 + the signal's number after
+    SIGTERM (143), SIGHUP (129) or SIGQUIT (131). The report, the frames file,
+    their journals and the plot must be regular files and none of them an
+    input (a capture, a profile).
     """
     link_path = link_kw.pop("link", None)
     overrides = {name: link_kw.pop(name, None) for name in list(iqdemod.link.OVERRIDES)}
@@ -89,15 +97,16 @@ def batch(ctx, paths, report, frames, jobs, resume, cluster, target_ber, plot, q
     if link_path is not None or overrides["baud"] is not None or overrides["shift"] is not None:
         link = iqdemod.load_link(link_path, **overrides)
     try:
-        with _sigterm_as_interrupt():
+        with _stop_signals_as_interrupt():
             result = B.run_batch(
                 paths, link, report=report, frames=frames, jobs=jobs, resume=resume, cluster=cluster,
                 target_ber=target_ber, link_overrides=overrides, plot=plot, progress=not quiet,
+                inputs=[("--link profile", link_path)],
             )
     except KeyboardInterrupt as exc:
         say(f"interrupted: every finished capture is kept in {B.partial_path(report)}; "
             "run the same command with --resume to finish")
-        ctx.exit(143 if isinstance(exc, _Terminated) else 130)
+        ctx.exit(128 + exc.signum if isinstance(exc, _Terminated) else 130)
     if not quiet:
         for line in result.summary():
             say(line)
