@@ -13,7 +13,7 @@ import click
 import iqdemod
 from iqdemod import batch as B
 
-from ._common import EXIT_FAILED, EXIT_OK, link_options, say
+from ._common import EXIT_FAILED, EXIT_OK, finite, link_options, say
 from .main import STOP_SIGNALS, main
 
 __all__ = ["batch"]
@@ -51,7 +51,7 @@ def _stop_signals_as_interrupt() -> Iterator[None]:
               help="The CSV report, one row per capture (written atomically when the batch is done).")
 @click.option("--frames", type=click.Path(dir_okay=False, path_type=Path), default=None,
               help="Also write every frame of every capture to this JSON Lines file.")
-@click.option("-j", "--jobs", type=click.IntRange(min=1), default=None,
+@click.option("-j", "--jobs", type=click.IntRange(1, 1024), default=None,
               help="Worker processes [default: one per core]; 1 runs in this process.")
 @click.option("--resume", is_flag=True,
               help="Keep the captures an earlier (or killed) run finished with status ok and unchanged size, "
@@ -59,7 +59,7 @@ def _stop_signals_as_interrupt() -> Iterator[None]:
 @click.option("--cluster", metavar="ADDRESS", default=None,
               help="Send the work to a running Dask scheduler, e.g. tcp://10.0.0.5:8786 "
                    "(needs pip install 'iqdemod[cluster]').")
-@click.option("--target-ber", type=click.FloatRange(0, 0.5, min_open=True, max_open=True), default=1e-5,
+@click.option("--target-ber", type=finite(0, 0.5, min_open=True, max_open=True), default=1e-5,
               show_default=True, help="The BER the margin is measured against.")
 @click.option("--plot", type=click.Path(dir_okay=False, path_type=Path), default=None,
               help="Write a PNG of Eb/N0 and frame error rate against capture time, one line per transmitter.")

@@ -89,7 +89,7 @@ def _json_default(value):
 @main.command()
 @click.argument("capture", type=click.Path(path_type=Path))
 @link_options
-@click.option("--target-ber", type=click.FloatRange(0, 0.5, min_open=True, max_open=True), default=1e-5,
+@click.option("--target-ber", type=finite(0, 0.5, min_open=True, max_open=True), default=1e-5,
               show_default=True, help="BER the margin is measured against.")
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON object instead of the report for people.")
 @click.option("--plot", type=click.Path(dir_okay=False, path_type=Path),
@@ -151,7 +151,7 @@ def _parse_range(text: str) -> np.ndarray:
               help="Eb/N0 values to tabulate, dB (FROM and TO within -50–100, at most 10000 points).")
 @click.option("--freq-error-t", type=finite(-1.0, 1.0), default=0.0, show_default=True,
               help="Residual carrier error times symbol time (δf·T) for the mismatched correlator.")
-@click.option("--target-ber", type=click.FloatRange(0, 0.5, min_open=True, max_open=True), default=1e-5,
+@click.option("--target-ber", type=finite(0, 0.5, min_open=True, max_open=True), default=1e-5,
               show_default=True, help="Report the Eb/N0 each scheme needs for this BER.")
 @click.option("--frame-bits", type=click.IntRange(1, 1 << 20), default=None,
               help="Bits checked per frame for the frame error rate [default: from the link's frame].")

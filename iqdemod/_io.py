@@ -75,13 +75,15 @@ def classify_output(path: str | os.PathLike) -> OutputTarget:
         return OutputTarget(given, "stdout", Path(given), True)
     if given.endswith(os.sep):
         raise OutputError(f"output {quote(given)}: names a folder, expected a file name")
-    real = Path(os.path.realpath(given))  # a symbolic link (even a chain, even dangling) is followed
     try:
-        st = os.stat(real)
+        st = os.stat(given)  # follows links as open() will, /proc's fd links (/dev/stdout) included
     except FileNotFoundError:
         st = None
     except OSError as exc:
         raise OutputError(f"output {quote(given)}: cannot check it ({exc.strerror})") from None
+    if st is not None and (stat.S_ISFIFO(st.st_mode) or stat.S_ISCHR(st.st_mode)):
+        return OutputTarget(given, "stream", Path(given), True)
+    real = Path(os.path.realpath(given))  # a symbolic link (even a chain, even dangling) is followed
     if st is None:
         folder = real.parent
         if not folder.is_dir():
@@ -90,8 +92,6 @@ def classify_output(path: str | os.PathLike) -> OutputTarget:
     mode = st.st_mode
     if stat.S_ISREG(mode):
         return OutputTarget(given, "file", real, True)
-    if stat.S_ISFIFO(mode) or stat.S_ISCHR(mode):
-        return OutputTarget(given, "stream", real, True)
     if stat.S_ISDIR(mode):
         raise OutputError(f"output {quote(given)}: is a folder, expected a file name")
     raise OutputError(f"output {quote(given)}: is a block device or socket; refusing to write to it")
@@ -101,7 +101,7 @@ def _identity(path: str | os.PathLike) -> tuple[str, tuple[int, int] | None]:
     """(real path, (st_dev, st_ino) or None when it does not exist)."""
     real = os.path.realpath(os.fspath(path))
     try:
-        st = os.stat(real)
+        st = os.stat(path)
     except OSError:
         return real, None
     return real, (st.st_dev, st.st_ino)
@@ -136,19 +136,20 @@ def check_distinct(outputs: Iterable[tuple[str, str | os.PathLike | None]],
         if p is None or os.fspath(p) == STDOUT_NAME:
             continue
         real, ident = _identity(p)
-        seen_in.setdefault(ident or real, (role, p))
+        for key in filter(None, (ident, real)):
+            seen_in.setdefault(key, (role, p))
     seen_out: dict = {}
     for role, p in outputs:
         if p is None or os.fspath(p) == STDOUT_NAME:
             continue
         real, ident = _identity(p)
         key = ident or real
-        hit = seen_in.get(key) or (seen_in.get(real) if ident is not None else None)
+        hit = (seen_in.get(ident) if ident is not None else None) or seen_in.get(real)
         if hit is not None:
             raise OutputError(f"{role} {quote(os.fspath(p))} is the {hit[0]} {quote(os.fspath(hit[1]))}: "
                               "refusing to overwrite an input")
         with contextlib.suppress(OSError):
-            if stat.S_ISCHR(os.stat(real).st_mode):
+            if stat.S_ISCHR(os.stat(p).st_mode):
                 continue
         other = seen_out.get(key) or seen_out.get(real)
         if other is not None:

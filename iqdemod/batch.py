@@ -690,7 +690,7 @@ def _exclusive(*outputs: Path) -> Iterator[int | None]:
     with contextlib.ExitStack() as stack:
         fds = []
         for out in outputs:
-            lock = _lock_path(out)
+            lock = _lock_path(Path(os.path.realpath(out)))  # one lock whatever name (or link) reaches the file
             fh = stack.enter_context(open(lock, "a"))
             try:
                 fcntl.flock(fh.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)

@@ -46,6 +46,7 @@ length = 24
 crc = "CRC-16/IBM-3740"
 """
 RAW_FLAGS = ["--datatype", "cf32_le", "--rate", "1024000"]
+EXE = shutil.which("iqdemod")  # the installed script, for the cases that need a process of their own
 
 
 def folder_digest(folder: Path) -> dict[str, str]:
@@ -204,6 +205,14 @@ def test_row2_a_symbolic_link_output_replaces_its_target_and_stays_a_link(inputs
 def test_row2_dash_is_standard_output(inputs):
     res = invoke("decode", inputs / "cap.sigmf-meta", "--link", inputs / "l.toml", "-o", "-", "-q")
     assert res.exit_code == 0 and len(res.stdout.splitlines()) == 3
+
+
+def test_row2_dev_stdout_on_a_pipe_is_written_into(inputs):
+    # /dev/stdout is a link into /proc whose "target" names no real file when stdout is a pipe
+    proc = subprocess.run([EXE, "decode", str(inputs / "cap.sigmf-meta"), "--link", str(inputs / "l.toml"), "-o",
+                           "/dev/stdout", "-q"], stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, timeout=120)
+    assert proc.returncode == 0, proc.stderr
+    assert len(proc.stdout.splitlines()) == 3
 
 
 def test_row2_folder_and_missing_folder_outputs(inputs, tmp_path):
@@ -411,7 +420,6 @@ def test_row11_synth_checks_the_free_space_first(tmp_path, monkeypatch):
 
 
 # --------------------------------------------------------------------------- rows 12–13: processes
-EXE = shutil.which("iqdemod")
 
 
 def test_row12_a_fifo_in_a_batch_folder_is_skipped_not_waited_on(inputs, tmp_path):
