@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import contextlib
 import math
-import os
 import sys
 from pathlib import Path
 from typing import Any, Callable, Iterable, Iterator, TextIO
@@ -15,6 +14,7 @@ import iqdemod
 from iqdemod._io import atomic_writer, check_distinct
 from iqdemod.capture import MAX_SAMPLE_RATE_HZ, capture_files
 from iqdemod.link import MAX_FREQUENCY_HZ, MAX_SYNC_BITS
+from iqdemod.errors import quote
 
 EXIT_OK, EXIT_FAILED, EXIT_USAGE = 0, 1, 2
 
@@ -32,7 +32,7 @@ class Finite(click.FloatRange):
     def convert(self, value, param, ctx):
         rv = super().convert(value, param, ctx)
         if not math.isfinite(rv):
-            self.fail(f"{value!r} is not a finite number.", param, ctx)
+            self.fail(f"{quote(value)} is not a finite number.", param, ctx)
         return rv
 
 

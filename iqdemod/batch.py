@@ -185,7 +185,7 @@ def _discover(paths: Iterable[str | os.PathLike]) -> list[_Found]:
             root = Path(*lead) if lead else Path(".")
             matches = sorted(glob.glob(text, recursive=True))
             if not matches:
-                raise IqdemodError(f"{text!r}: no file matches this pattern")
+                raise IqdemodError(f"{quote(text)}: no file matches this pattern")
             for m in matches:
                 mp = Path(m)
                 if mp.is_dir():
@@ -194,7 +194,7 @@ def _discover(paths: Iterable[str | os.PathLike]) -> list[_Found]:
                 elif _is_capture_name(mp.name) and _is_regular(mp):
                     add(mp, root)
         else:
-            raise IqdemodError(f"{text!r}: no such file or folder")
+            raise IqdemodError(f"{quote(text)}: no such file or folder")
     return sorted(found.values(), key=lambda f: str(f.path))
 
 
@@ -949,7 +949,7 @@ class _Cluster:
         try:
             self.client = self.distributed.Client(address, timeout="20s", set_as_default=False)
         except (OSError, TimeoutError, ValueError) as exc:
-            raise IqdemodError(f"cluster {address!r}: cannot connect ({exc})") from None
+            raise IqdemodError(f"cluster {quote(address)}: cannot connect ({exc})") from None
         self.by_key: dict = {}
         self.futures: list = []
         try:

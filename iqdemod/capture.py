@@ -514,7 +514,7 @@ def parse_sigmf_meta(text: str, where: str) -> dict:
         raise CaptureError(f"{where}: core:datatype {glob['core:datatype']!r}: must be a string")
     channels = glob.get("core:num_channels", 1)
     if channels != 1:
-        raise CaptureError(f"{where}: core:num_channels {channels!r}: only single-channel recordings are supported")
+        raise CaptureError(f"{where}: core:num_channels {quote(channels)}: only single-channel recordings are supported")
     return meta
 
 

@@ -48,7 +48,7 @@ def quote(value: object, limit: int = QUOTE_CHARS) -> str:
             text = repr(value)
         except ValueError:  # an integer too long to print (sys.get_int_max_str_digits)
             return f"an integer of about {int(value.bit_length() * 0.30103)} digits"
-        size = f"{len(text)} characters"
+        size = f"{len(text)} digits" if isinstance(value, int) else f"{len(text)} characters"
     if len(text) <= limit:
         return text
     return f"{text[: limit - 1]}… ({size})"

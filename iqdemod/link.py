@@ -67,6 +67,12 @@ def _number(name: str, value: Any, *, limit: float = MAX_FREQUENCY_HZ) -> float:
     return x
 
 
+def _hex(word: int) -> str:
+    """A sync word in hex, cut like :func:`quote` when it is long."""
+    text = f"{word:#x}"
+    return text if len(text) <= 80 else f"{text[:79]}… ({word.bit_length()} bits)"
+
+
 def _integer(name: str, value: Any) -> int:
     if isinstance(value, bool) or not isinstance(value, int):
         if isinstance(value, float) and value.is_integer():
@@ -210,7 +216,7 @@ class FrameSpec:
         if self.sync_word is not None:
             word = _integer("sync_word", self.sync_word)
             if word < 0 or word >= 1 << bits:
-                raise LinkError(f"sync word {word:#x}: does not fit in {bits} bits")
+                raise LinkError(f"sync word {_hex(word)}: does not fit in {bits} bits")
             object.__setattr__(self, "sync_word", word)
         tol = _integer("sync_tolerance", self.sync_tolerance)
         if not 0 <= tol < bits:
@@ -222,7 +228,7 @@ class FrameSpec:
         else:
             n = _integer("length", self.length)
             if not 1 <= n <= MAX_LENGTH_BYTES:
-                raise LinkError(f"length {n}: must be within 1–{MAX_LENGTH_BYTES} bytes or \"prefix8\"")
+                raise LinkError(f"length {quote(n)}: must be within 1–{MAX_LENGTH_BYTES} bytes or \"prefix8\"")
             object.__setattr__(self, "length", n)
         if not isinstance(self.crc, str) or len(self.crc) > 40:  # the catalogue's names are short
             raise LinkError(f"crc {quote(self.crc)}: must be a CRC catalogue name such as \"CRC-16/IBM-3740\", "
@@ -359,7 +365,7 @@ def _parse_sync(value: Any) -> int | None:
     if value is None or isinstance(value, int) and not isinstance(value, bool):
         return value
     if not isinstance(value, str):
-        raise LinkError(f"sync word {value!r}: must be a hex string such as \"0x9B3C57E1\"")
+        raise LinkError(f"sync word {quote(value)}: must be a hex string such as \"0x9B3C57E1\"")
     text = value.strip().lower()
     if text in ("", "none"):
         return None
@@ -369,7 +375,7 @@ def _parse_sync(value: Any) -> int | None:
             raise ValueError
         return int(digits, 16)
     except ValueError:
-        raise LinkError(f"sync word {value!r}: not hex (expected e.g. \"0x9B3C57E1\")") from None
+        raise LinkError(f"sync word {quote(value)}: not hex (expected e.g. \"0x9B3C57E1\")") from None
 
 
 def _parse_length(value: Any) -> int | str:
@@ -380,7 +386,7 @@ def _parse_length(value: Any) -> int | str:
         try:
             return int(text)
         except ValueError:
-            raise LinkError(f"length {value!r}: must be 1–{MAX_LENGTH_BYTES} or \"prefix8\"") from None
+            raise LinkError(f"length {quote(value)}: must be 1–{MAX_LENGTH_BYTES} or \"prefix8\"") from None
     return value
 
 

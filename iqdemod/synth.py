@@ -34,7 +34,7 @@ import numpy as np
 from scipy.signal import fftconvolve
 
 from .capture import parse_datatype
-from .errors import IqdemodError, LinkError, OutputError, quote
+from .errors import LinkError, OutputError, quote
 from .framing import PREAMBLE_BITS, frame_bits
 from .link import MAX_FREQUENCY_HZ, Link
 from ._io import atomic_files, check_distinct, classify_output
@@ -196,6 +196,8 @@ class SynthConfig:
         pre = _whole("preamble bits", self.preamble_bits)
         if not 0 <= pre <= MAX_PREAMBLE_BITS:
             raise LinkError(f"preamble bits {pre}: must be within 0–{MAX_PREAMBLE_BITS}")
+        if self.start_time is not None and (not isinstance(self.start_time, str) or len(self.start_time) > 64):
+            raise LinkError(f"start time {quote(self.start_time)}: must be an RFC 3339 time of at most 64 characters")
         seed = _whole("seed", self.seed)
         if not 0 <= seed <= MAX_SEED:
             raise LinkError(f"seed {quote(seed)}: must be within 0–{MAX_SEED}")

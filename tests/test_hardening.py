@@ -7,7 +7,6 @@ file of the inputs' folder byte for byte as it was (SHA-256 over the folder, bef
 
 from __future__ import annotations
 
-import contextlib
 import errno
 import hashlib
 import json
@@ -16,7 +15,6 @@ import shutil
 import signal
 import stat
 import subprocess
-import sys
 import tarfile
 import threading
 import time
