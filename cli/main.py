@@ -177,7 +177,7 @@ def main(debug: bool) -> None:
 @click.option("-o", "--output", type=click.Path(dir_okay=False, path_type=Path),
               help="Write the JSON Lines here (atomically) instead of stdout.")
 @click.option("--only-good", is_flag=True, help="Write only frames whose CRC is good.")
-@click.option("--block", "block_samples", type=click.IntRange(1024, 1 << 26), default=iqdemod.capture.DEFAULT_BLOCK_SAMPLES,
+@click.option("--block", "block_samples", type=click.IntRange(1024, 1 << 24), default=iqdemod.capture.DEFAULT_BLOCK_SAMPLES,
               show_default=True, help="Samples read per block (results do not depend on it).")
 @click.option("-q", "--quiet", is_flag=True, help="No progress bar and no summary line.")
 def decode(captures, output, only_good, block_samples, quiet, **link_kw) -> None:

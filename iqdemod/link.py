@@ -51,6 +51,9 @@ MIN_SAMPLES_PER_SYMBOL = 8
 # The largest buffer one burst may need (complex64 samples of the longest burst piece at the
 # decimated rate). A plan that would need more is refused before anything is allocated.
 BURST_BUFFER_BUDGET_BYTES = 256 << 20
+# The longest tuner filter allowed, taps. Designing and applying it takes about 75 bytes a tap
+# (measured: 9 million taps, 680 MB peak), so this keeps a plan under about 600 MB.
+MAX_FILTER_TAPS = 8_000_000
 
 
 def _number(name: str, value: Any, *, limit: float = MAX_FREQUENCY_HZ) -> float:
@@ -282,6 +285,13 @@ class Link:
                 f"receiver needs at least {MIN_SAMPLES_PER_SYMBOL} (a capture at {MIN_SAMPLES_PER_SYMBOL * sig.baud:g} "
                 "Hz or more)"
             )
+        _, taps = self._tuner_estimate(rate)
+        if taps > MAX_FILTER_TAPS:
+            raise LinkError(
+                f"baud {sig.baud:g} with shift {sig.shift_hz:g} Hz at sample rate {rate:g} Hz: the tuner's filter "
+                f"would need about {taps:.3g} taps, above the {MAX_FILTER_TAPS:.3g} allowed (so narrow a signal in "
+                "so wide a capture: resample the capture first, or raise the baud)"
+            )
         need = self.burst_buffer_bytes(rate)
         if need > BURST_BUFFER_BUDGET_BYTES:
             raise LinkError(
@@ -299,24 +309,41 @@ class Link:
             )
         return offset
 
-    def burst_buffer_bytes(self, sample_rate: float) -> float:
-        """Bytes of the buffer that holds the longest burst piece (complex64 at the decimated rate).
+    def _tuner_estimate(self, sample_rate: float) -> tuple[float, int]:
+        """(decimated rate in Hz, FIR taps) the tuner will choose, from its design rule.
 
-        An estimate from the tuner's design rule (DEVELOPERS.md, tuning): the kept
-        band is ±(shift/2 + pull-in + baud) around the signal, and the decimated
-        rate is at least four times that and at least 8 samples per symbol, the
-        capture rate divided by a whole number.
+        The rule (DEVELOPERS.md, tuning): the kept band is ±(shift/2 + pull-in + baud)
+        around the signal; the decimated rate is the capture rate divided by a whole
+        number and at least four times that band and 8 samples per symbol; the FIR is
+        a Kaiser design (scipy.signal.kaiserord) for the tuner's stop-band attenuation.
         """
-        from .receiver import MAX_BURST_SYMBOLS  # late: the receiver imports this module
+        from scipy.signal import kaiserord
+
+        from .tune import STOPBAND_DB  # late: the tuner imports this module
 
         rate = float(sample_rate)
         sig = self.signal
         passband = min(sig.shift_hz / 2 + sig.pull_in_hz + sig.baud, 0.45 * rate)
         wanted = max(4.0 * passband, 8.0 * sig.baud)
-        decimated = rate / max(1, math.floor(rate / wanted))
+        decimation = max(1, math.floor(rate / wanted))
+        decimated = rate / decimation
+        if decimation == 1:
+            return decimated, 1
+        width = (decimated - 2 * passband) / (rate / 2)
+        taps, _ = kaiserord(STOPBAND_DB, width)
+        return decimated, int(taps)
+
+    def burst_buffer_bytes(self, sample_rate: float) -> float:
+        """Bytes of the buffer that holds the longest burst piece (complex64 at the decimated rate).
+
+        An estimate from the tuner's design rule (see :meth:`_tuner_estimate`).
+        """
+        from .receiver import MAX_BURST_SYMBOLS  # late: the receiver imports this module
+
+        decimated, _ = self._tuner_estimate(sample_rate)
         overlap = self.frame.max_bits + 64 if not self.frame.raw else 64
         symbols = max(MAX_BURST_SYMBOLS, 4 * overlap)
-        return symbols * decimated / sig.baud * 8.0
+        return symbols * decimated / self.signal.baud * 8.0
 
     def replace(self, **overrides: Any) -> "Link":
         """A copy with flag-style overrides (see :func:`load_link` for the names)."""

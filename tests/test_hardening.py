@@ -396,6 +396,25 @@ def test_row11_tiny_baud_is_refused_before_allocating():
     assert_refused(res, contains="budget", codes=(1,))
 
 
+@pytest.mark.parametrize("fs,baud,shift,words", [(1e11, 1, 1, "taps"), (1e11, 1e4, 1e4, "taps"),
+                                                 (1.024e6, 1, 4e5, "budget")])
+def test_row11_plans_beyond_the_memory_budget_are_refused_in_the_link(fs, baud, shift, words):
+    link = iqdemod.load_link(None, baud=baud, shift=shift)
+    with pytest.raises(iqdemod.LinkError, match=words):
+        link.check_rate(fs)
+
+
+def test_row11_the_estimates_are_the_tuners_own_figures():
+    # the check must not drift from the tuner it protects: compare with the plan it makes
+    from iqdemod.tune import plan_tuner
+
+    for fs, baud, shift in [(1.024e6, 9600, 9600), (1e8, 1e4, 1e4), (1e6, 1, 1), (2.4e6, 50, 100), (2.5e5, 4800, 4800)]:
+        link = iqdemod.load_link(None, baud=baud, shift=shift)
+        rate, taps = link._tuner_estimate(fs)
+        plan = plan_tuner(fs, link.signal, 0.0)
+        assert rate == pytest.approx(plan.output_rate_hz) and abs(taps - len(plan.taps)) <= 1
+
+
 def test_row11_metadata_that_never_ends_is_refused(tmp_path):
     os.symlink("/dev/zero", tmp_path / "z.sigmf-meta")
     (tmp_path / "z.sigmf-data").write_bytes(bytes(64))
