@@ -26,6 +26,7 @@ import soundfile as sf
 from click.testing import CliRunner
 
 import iqdemod
+import iqdemod.synth
 from iqdemod import _io
 from iqdemod import batch as B
 from iqdemod.errors import OutputError
@@ -479,6 +480,34 @@ def test_row13_sighup_and_sigquit_clean_up_like_sigterm(tmp_path, sig):
         assert proc.returncode == 128 + sig and "terminated" in err and "Traceback" not in err, err
         assert out.read_text() == "previous\n"
     assert not list(tmp_path.glob(".frames.jsonl.*"))
+
+
+def test_row13_sighup_stops_a_batch_like_sigterm_and_resume_finishes_it(tmp_path):
+    link = make_link(datatype="cu8")
+    for k in range(4):
+        iqdemod.synth.synthesize(tmp_path / "arch" / f"k{k}", iqdemod.synth.SynthConfig(
+            link=link, ebn0_db=(12.0,), n_frames=12, seed=k, start_time="2026-02-01T00:00:00Z"))
+    _toml(tmp_path / "arch").rename(tmp_path / "arch" / "link.toml")
+    report = tmp_path / "r.csv"
+    cmd = [EXE, "batch", str(tmp_path / "arch"), "-o", str(report), "-j", "1", "-q"]
+    proc = subprocess.Popen(cmd, stderr=subprocess.PIPE, text=True)
+    journal = B.partial_path(report)
+    deadline = time.monotonic() + 60
+    while time.monotonic() < deadline and proc.poll() is None:
+        if journal.exists() and journal.read_text().count("\n") >= 2:  # header and one row
+            break
+        time.sleep(0.01)
+    if proc.poll() is not None:
+        pytest.skip("the batch ended before it could be stopped")
+    proc.send_signal(signal.SIGHUP)
+    _, err = proc.communicate(timeout=60)
+    assert proc.returncode == 128 + signal.SIGHUP and "--resume" in err and "Traceback" not in err, err
+    kept = B.read_report(journal)
+    assert 1 <= len(kept) < 4 and not report.exists()
+    assert not [p for p in tmp_path.iterdir() if p.name.endswith(".part")]
+    done = subprocess.run(cmd + ["--resume"], capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0, done.stderr
+    assert len(B.read_report(report)) == 4 and not journal.exists()
 
 
 def _toml(folder: Path) -> Path:
