@@ -123,11 +123,25 @@ class _Group(click.Group):
             where = f"{exc.filename}: " if getattr(exc, "filename", None) else ""
             click.echo(f"Error: {where}{exc.strerror or exc}", err=True)
             ctx.exit(EXIT_FAILED)
+        except MemoryError:
+            if debug:
+                raise
+            click.echo("Error: out of memory; try a smaller --block, or a capture at a lower rate", err=True)
+            ctx.exit(EXIT_FAILED)
         except KeyboardInterrupt:
             if debug:
                 raise
             click.echo("Error: interrupted; finished outputs are complete, unfinished ones were not written", err=True)
             ctx.exit(130)
+        except (click.exceptions.Exit, click.exceptions.Abort, click.ClickException):
+            raise
+        except Exception as exc:  # noqa: BLE001 - the last resort: a bug, but never a traceback for the user
+            if debug:
+                raise
+            text = " ".join(str(exc).split())[:200]
+            click.echo(f"Error: internal error ({type(exc).__name__}: {text}); this is a bug: please report it "
+                       "with the output of iqdemod --debug …", err=True)
+            ctx.exit(EXIT_FAILED)
         except _Terminated as exc:
             name = signal.Signals(exc.signum).name
             click.echo(f"Error: terminated ({name}); finished outputs are complete, unfinished ones were not written",

@@ -94,6 +94,7 @@ def assert_refused(res, *, contains: str | None = None, codes=(1, 2)):
     err = res.stderr
     assert res.exit_code in codes, (res.exit_code, err, res.stdout[:300])
     assert "Traceback" not in err and (res.exception is None or isinstance(res.exception, SystemExit)), err
+    assert "internal error" not in err, err  # the command line's last resort: a bug that was caught, still a bug
     error_lines = [line for line in err.splitlines() if line.startswith("Error:")]
     assert len(error_lines) == 1, err
     if contains is not None:
@@ -558,6 +559,18 @@ def test_file_set_undoes_every_rename_when_one_fails(tmp_path, monkeypatch):
             for name in ("a", "b", "c"):
                 files.open(tmp_path / name).write(f"new {name}")
     assert {p.name: p.read_text() for p in tmp_path.iterdir()} == {"a": "old a", "b": "old b"}
+
+
+def test_an_unexpected_exception_is_one_line_and_debug_shows_it(inputs, monkeypatch):
+    def boom(*a, **kw):
+        raise ValueError("x" * 1000)
+
+    monkeypatch.setattr(iqdemod, "decode", boom)
+    res = invoke("decode", inputs / "cap.sigmf-meta", "--link", inputs / "l.toml", "-q")
+    assert res.exit_code == 1 and res.stderr.startswith("Error: internal error (ValueError")
+    assert len(res.stderr.splitlines()) == 1 and len(res.stderr) < 400
+    res = invoke("--debug", "decode", inputs / "cap.sigmf-meta", "--link", inputs / "l.toml", "-q")
+    assert isinstance(res.exception, ValueError)
 
 
 def test_check_distinct_names_both_roles(tmp_path):
