@@ -3,28 +3,60 @@
 from __future__ import annotations
 
 import contextlib
+import math
 import sys
 from pathlib import Path
-from typing import Any, Callable, Iterator, TextIO
+from typing import Any, Callable, Iterable, Iterator, TextIO
 
 import click
 
 import iqdemod
-from iqdemod._io import atomic_writer
+from iqdemod._io import atomic_writer, check_distinct
+from iqdemod.capture import MAX_SAMPLE_RATE_HZ, capture_files
+from iqdemod.link import MAX_FREQUENCY_HZ, MAX_SYNC_BITS
+from iqdemod.errors import quote
 
 EXIT_OK, EXIT_FAILED, EXIT_USAGE = 0, 1, 2
+
+
+class Finite(click.FloatRange):
+    """A FloatRange that also refuses NaN (which compares false with both bounds and so slips through)."""
+
+    name = "float"
+
+    def _describe_range(self) -> str:
+        lo = "" if self.min is None or self.min <= -sys.float_info.max else f"{self.min:g}{'<' if self.min_open else '<='}"
+        hi = "" if self.max is None or self.max >= sys.float_info.max else f"{'<' if self.max_open else '<='}{self.max:g}"
+        return f"{lo}x{hi}"
+
+    def convert(self, value, param, ctx):
+        rv = super().convert(value, param, ctx)
+        if not math.isfinite(rv):
+            self.fail(f"{quote(value)} is not a finite number.", param, ctx)
+        return rv
+
+
+def finite(lo: float | None = None, hi: float | None = None, **kw) -> Finite:
+    """A finite float within [lo, hi] (click shows the range in the help)."""
+    return Finite(-sys.float_info.max if lo is None else lo, sys.float_info.max if hi is None else hi, **kw)
+
 
 _LINK_OPTIONS = [
     click.option("--link", "link", type=click.Path(dir_okay=False, path_type=Path),
                  help="TOML link profile; the flags below override its values."),
     click.option("--datatype", help="SigMF datatype of a raw capture: cu8, ci8, ci16_le, ci16_be, cf32_le, cf64_le, …"),
-    click.option("--rate", type=float, help="Sample rate of a raw capture, Hz."),
-    click.option("--offset", type=float, help="Signal centre relative to the capture centre, Hz (+ = above)."),
-    click.option("--frequency", type=float, help="Absolute signal centre, Hz (needs the capture's centre frequency)."),
-    click.option("--baud", type=float, help="Symbol rate, symbols/s."),
-    click.option("--shift", type=float, help="Tone shift: upper tone minus lower tone, Hz."),
+    # the range of --rate is checked with the capture (exit status 1), as a profile's would be
+    click.option("--rate", type=finite(), help=f"Sample rate of a raw capture, Hz (> 0, at most {MAX_SAMPLE_RATE_HZ:g})."),
+    click.option("--offset", type=finite(-MAX_FREQUENCY_HZ, MAX_FREQUENCY_HZ),
+                 help="Signal centre relative to the capture centre, Hz (+ = above)."),
+    click.option("--frequency", type=finite(0, MAX_FREQUENCY_HZ, min_open=True),
+                 help="Absolute signal centre, Hz (needs the capture's centre frequency)."),
+    click.option("--baud", type=finite(0, MAX_FREQUENCY_HZ, min_open=True), help="Symbol rate, symbols/s."),
+    click.option("--shift", type=finite(0, MAX_FREQUENCY_HZ, min_open=True),
+                 help="Tone shift: upper tone minus lower tone, Hz."),
     click.option("--invert/--no-invert", default=None, help="Bit 1 is the lower tone (default: the upper tone)."),
-    click.option("--max-freq-error", type=float, help="Largest carrier error searched for, Hz [default: shift/2]."),
+    click.option("--max-freq-error", type=finite(0, MAX_FREQUENCY_HZ),
+                 help="Largest carrier error searched for, Hz [default: shift/2]."),
     click.option("--gaussian", type=click.FloatRange(0.1, 2.0), metavar="BT",
                  help="Gaussian frequency pulse (GFSK) with this bandwidth-time product, 0.1–2 [default: rectangular]."),
     click.option("--detector", type=click.Choice(["per-symbol", "multi-symbol"]),
@@ -33,8 +65,9 @@ _LINK_OPTIONS = [
     click.option("--detector-symbols", type=click.IntRange(3, 7), default=None,
                  help="Window of the multi-symbol detector, symbols: 3, 5 or 7 [default: 5]."),
     click.option("--sync", help="Sync word in hex, e.g. 0x9B3C57E1; 'none' for raw mode (bits per burst)."),
-    click.option("--sync-bits", type=int, help="Bits of the sync word that are sent [default: 32]."),
-    click.option("--sync-tolerance", type=int, help="Bit errors accepted in the sync word [default: 3]."),
+    click.option("--sync-bits", type=click.IntRange(1, MAX_SYNC_BITS), help="Bits of the sync word that are sent [default: 32]."),
+    click.option("--sync-tolerance", type=click.IntRange(0, MAX_SYNC_BITS - 1),
+                 help="Bit errors accepted in the sync word [default: 3]."),
     click.option("--length", help="Payload bytes (1–4096), or prefix8: the first byte is the length [default: 24]."),
     click.option("--crc", help="CRC catalogue name, e.g. CRC-16/IBM-3740, or none [default: CRC-16/IBM-3740]."),
     click.option("--coding", type=click.Choice(["nrz", "manchester", "manchester-inverted"], case_sensitive=False),
@@ -74,11 +107,17 @@ def warn(message: str) -> None:
     click.echo(f"warning: {message}", err=True)
 
 
+def guard_outputs(outputs: Iterable[tuple[str, Path | None]], *, captures: Iterable[Path] = (),
+                  link: Path | None = None) -> None:
+    """Refuse, before any work, an output that is an input (a capture's files, the profile) or another output."""
+    inputs: list[tuple[str, Any]] = [("--link profile", link)]
+    for c in captures:
+        inputs += [("capture", f) for f in capture_files(c)]
+    check_distinct(list(outputs), inputs)
+
+
 @contextlib.contextmanager
 def open_output(path: Path | None, *, mode: str = "w") -> Iterator[TextIO]:
-    """stdout, or `path` written atomically (the old file stays if anything fails)."""
-    if path is None:
-        yield sys.stdout
-        return
-    with atomic_writer(path, mode) as fh:
+    """stdout, or `path` written atomically (the old file stays if anything fails; a FIFO or device is written into)."""
+    with atomic_writer("-" if path is None else path, mode) as fh:
         yield fh

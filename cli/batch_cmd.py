@@ -13,30 +13,35 @@ import click
 import iqdemod
 from iqdemod import batch as B
 
-from ._common import EXIT_FAILED, EXIT_OK, link_options, say
-from .main import main
+from ._common import EXIT_FAILED, EXIT_OK, finite, link_options, say
+from .main import STOP_SIGNALS, main
 
 __all__ = ["batch"]
 
 
 class _Terminated(KeyboardInterrupt):
-    """SIGTERM, handled like Ctrl-C: stop, keep every finished capture."""
+    """SIGTERM, SIGHUP or SIGQUIT, handled like Ctrl-C: stop, keep every finished capture."""
+
+    def __init__(self, signum: int = signal.SIGTERM):
+        super().__init__(signum)
+        self.signum = signum
 
 
 @contextlib.contextmanager
-def _sigterm_as_interrupt() -> Iterator[None]:
+def _stop_signals_as_interrupt() -> Iterator[None]:
     if threading.current_thread() is not threading.main_thread():
         yield
         return
 
     def stop(signum, frame):
-        raise _Terminated()
+        raise _Terminated(signum)
 
-    old = signal.signal(signal.SIGTERM, stop)
+    old = {sig: signal.signal(sig, stop) for sig in STOP_SIGNALS}
     try:
         yield
     finally:
-        signal.signal(signal.SIGTERM, old)
+        for sig, handler in old.items():
+            signal.signal(sig, handler)
 
 
 @main.command()
@@ -46,7 +51,7 @@ def _sigterm_as_interrupt() -> Iterator[None]:
               help="The CSV report, one row per capture (written atomically when the batch is done).")
 @click.option("--frames", type=click.Path(dir_okay=False, path_type=Path), default=None,
               help="Also write every frame of every capture to this JSON Lines file.")
-@click.option("-j", "--jobs", type=click.IntRange(min=1), default=None,
+@click.option("-j", "--jobs", type=click.IntRange(1, 1024), default=None,
               help="Worker processes [default: one per core]; 1 runs in this process.")
 @click.option("--resume", is_flag=True,
               help="Keep the captures an earlier (or killed) run finished with status ok and unchanged size, "
@@ -54,7 +59,7 @@ def _sigterm_as_interrupt() -> Iterator[None]:
 @click.option("--cluster", metavar="ADDRESS", default=None,
               help="Send the work to a running Dask scheduler, e.g. tcp://10.0.0.5:8786 "
                    "(needs pip install 'iqdemod[cluster]').")
-@click.option("--target-ber", type=click.FloatRange(0, 0.5, min_open=True, max_open=True), default=1e-5,
+@click.option("--target-ber", type=finite(0, 0.5, min_open=True, max_open=True), default=1e-5,
               show_default=True, help="The BER the margin is measured against.")
 @click.option("--plot", type=click.Path(dir_okay=False, path_type=Path), default=None,
               help="Write a PNG of Eb/N0 and frame error rate against capture time, one line per transmitter.")
@@ -77,7 +82,10 @@ def batch(ctx, paths, report, frames, jobs, resume, cluster, target_ber, plot, q
     frames) are saved as each capture finishes, in REPORT.partial, so a killed
     or interrupted run keeps every finished capture: run the same command with
     --resume to finish it. Exit status: 0 when every capture was processed,
-    1 when any failed, 130 after Ctrl-C, 143 after SIGTERM.
+    1 when any failed, 130 after Ctrl-C, 128 + the signal's number after
+    SIGTERM (143), SIGHUP (129) or SIGQUIT (131). The report, the frames file,
+    their journals and the plot must be regular files and none of them an
+    input (a capture, a profile).
     """
     link_path = link_kw.pop("link", None)
     overrides = {name: link_kw.pop(name, None) for name in list(iqdemod.link.OVERRIDES)}
@@ -89,15 +97,16 @@ def batch(ctx, paths, report, frames, jobs, resume, cluster, target_ber, plot, q
     if link_path is not None or overrides["baud"] is not None or overrides["shift"] is not None:
         link = iqdemod.load_link(link_path, **overrides)
     try:
-        with _sigterm_as_interrupt():
+        with _stop_signals_as_interrupt():
             result = B.run_batch(
                 paths, link, report=report, frames=frames, jobs=jobs, resume=resume, cluster=cluster,
                 target_ber=target_ber, link_overrides=overrides, plot=plot, progress=not quiet,
+                inputs=[("--link profile", link_path)],
             )
     except KeyboardInterrupt as exc:
         say(f"interrupted: every finished capture is kept in {B.partial_path(report)}; "
             "run the same command with --resume to finish")
-        ctx.exit(143 if isinstance(exc, _Terminated) else 130)
+        ctx.exit(128 + exc.signum if isinstance(exc, _Terminated) else 130)
     if not quiet:
         for line in result.summary():
             say(line)

@@ -11,6 +11,7 @@ from __future__ import annotations
 import contextlib
 import json
 import os
+import re
 import signal
 import sys
 import warnings
@@ -20,19 +21,75 @@ from typing import Any, Iterator
 import click
 
 import iqdemod
-from iqdemod.errors import IqdemodError
+from iqdemod import synth as SY
+from iqdemod.errors import IqdemodError, IqdemodWarning, OutputError, quote
+from iqdemod.link import MAX_FREQUENCY_HZ
 
-from ._common import EXIT_FAILED, link_from_options, link_options, open_output, say, warn
+from ._common import (EXIT_FAILED, finite, guard_outputs, link_from_options, link_options, open_output, say,
+                      warn)
 
 __all__ = ["main"]
 
+# Signals that end a run like SIGTERM does: the temporary files are removed, the exit status is 128 + signal.
+STOP_SIGNALS = tuple(getattr(signal, name) for name in ("SIGTERM", "SIGHUP", "SIGQUIT") if hasattr(signal, name))
+
 
 class _Terminated(BaseException):
-    """SIGTERM, raised in the main thread so that every open output is cleaned up."""
+    """SIGTERM, SIGHUP or SIGQUIT, raised in the main thread so that every open output is cleaned up."""
+
+    def __init__(self, signum: int = signal.SIGTERM):
+        super().__init__(signum)
+        self.signum = signum
 
 
-def _on_sigterm(signum, frame):
-    raise _Terminated()
+def _on_stop_signal(signum, frame):
+    raise _Terminated(signum)
+
+
+def _stop_signals_raise() -> dict:
+    """Install the handlers; return the ones they replaced (empty outside the main thread)."""
+    previous = {}
+    for sig in STOP_SIGNALS:
+        try:
+            previous[sig] = signal.signal(sig, _on_stop_signal)
+        except ValueError:  # not the main thread (e.g. inside a test runner's worker): leave them
+            break
+    return previous
+
+
+class _ClosedStdout:
+    """Stands in for a standard output that was closed before we started (``>&-``)."""
+
+    def write(self, text) -> int:
+        raise OutputError("standard output is closed: nowhere to write the results (give an output file)")
+
+    def flush(self) -> None:
+        pass
+
+    def isatty(self) -> bool:
+        return False
+
+    def fileno(self) -> int:
+        raise OSError("standard output is closed")
+
+
+def _stdout_is_closed() -> bool:
+    if sys.stdout is None:
+        return True
+    try:
+        fd = sys.stdout.fileno()
+    except (OSError, ValueError, AttributeError):
+        return False  # a test runner's buffer: not a real descriptor, and open
+    try:
+        os.fstat(fd)
+    except OSError:
+        return True
+    return False
+
+
+def _short_usage(message: str) -> str:
+    """A usage error's message with every quoted value cut to 80 characters."""
+    return re.sub(r"'([^']{80,})'", lambda m: quote(m.group(1)), message)
 
 
 class _Group(click.Group):
@@ -40,13 +97,16 @@ class _Group(click.Group):
 
     def invoke(self, ctx: click.Context) -> Any:
         debug = bool(ctx.params.get("debug"))
-        try:
-            previous = signal.signal(signal.SIGTERM, _on_sigterm)
-        except ValueError:  # not the main thread (e.g. inside a test runner's worker): leave it
-            previous = None
+        previous = _stop_signals_raise()
+        saved_stdout = sys.stdout
+        if _stdout_is_closed():
+            sys.stdout = _ClosedStdout()
         try:
             with _warnings_to_stderr():
                 return super().invoke(ctx)
+        except click.UsageError as exc:
+            exc.message = _short_usage(exc.message)
+            raise
         except BrokenPipeError:
             # the reader of our output (e.g. `| head`) has had enough: not an error of ours
             devnull = os.open(os.devnull, os.O_WRONLY)
@@ -63,17 +123,34 @@ class _Group(click.Group):
             where = f"{exc.filename}: " if getattr(exc, "filename", None) else ""
             click.echo(f"Error: {where}{exc.strerror or exc}", err=True)
             ctx.exit(EXIT_FAILED)
+        except MemoryError:
+            if debug:
+                raise
+            click.echo("Error: out of memory; try a smaller --block, or a capture at a lower rate", err=True)
+            ctx.exit(EXIT_FAILED)
         except KeyboardInterrupt:
             if debug:
                 raise
             click.echo("Error: interrupted; finished outputs are complete, unfinished ones were not written", err=True)
             ctx.exit(130)
-        except _Terminated:
-            click.echo("Error: terminated; finished outputs are complete, unfinished ones were not written", err=True)
-            ctx.exit(143)
+        except (click.exceptions.Exit, click.exceptions.Abort, click.ClickException):
+            raise
+        except Exception as exc:  # noqa: BLE001 - the last resort: a bug, but never a traceback for the user
+            if debug:
+                raise
+            text = " ".join(str(exc).split())[:200]
+            click.echo(f"Error: internal error ({type(exc).__name__}: {text}); this is a bug: please report it "
+                       "with the output of iqdemod --debug …", err=True)
+            ctx.exit(EXIT_FAILED)
+        except _Terminated as exc:
+            name = signal.Signals(exc.signum).name
+            click.echo(f"Error: terminated ({name}); finished outputs are complete, unfinished ones were not written",
+                       err=True)
+            ctx.exit(128 + exc.signum)
         finally:
-            if previous is not None:  # a library caller's own handler comes back
-                signal.signal(signal.SIGTERM, previous)
+            sys.stdout = saved_stdout
+            for sig, old in previous.items():  # a library caller's own handlers come back
+                signal.signal(sig, old)
 
 
 @contextlib.contextmanager
@@ -81,13 +158,14 @@ def _warnings_to_stderr() -> Iterator[None]:
     old = warnings.showwarning
 
     def show(message, category, filename, lineno, file=None, line=None):
-        if issubclass(category, iqdemod.capture.CaptureWarning):
+        if issubclass(category, (iqdemod.capture.CaptureWarning, IqdemodWarning)):
             warn(str(message))  # a capture defect: one plain line for the user
         else:
             old(message, category, filename, lineno, file, line)
 
     with warnings.catch_warnings():
         warnings.simplefilter("always", iqdemod.capture.CaptureWarning)
+        warnings.simplefilter("always", IqdemodWarning)
         warnings.showwarning = show
         try:
             yield
@@ -113,7 +191,7 @@ def main(debug: bool) -> None:
 @click.option("-o", "--output", type=click.Path(dir_okay=False, path_type=Path),
               help="Write the JSON Lines here (atomically) instead of stdout.")
 @click.option("--only-good", is_flag=True, help="Write only frames whose CRC is good.")
-@click.option("--block", "block_samples", type=click.IntRange(min=1024), default=iqdemod.capture.DEFAULT_BLOCK_SAMPLES,
+@click.option("--block", "block_samples", type=click.IntRange(1024, 1 << 24), default=iqdemod.capture.DEFAULT_BLOCK_SAMPLES,
               show_default=True, help="Samples read per block (results do not depend on it).")
 @click.option("-q", "--quiet", is_flag=True, help="No progress bar and no summary line.")
 def decode(captures, output, only_good, block_samples, quiet, **link_kw) -> None:
@@ -124,7 +202,9 @@ def decode(captures, output, only_good, block_samples, quiet, **link_kw) -> None
     freq_error_hz, ebn0_db. Without a sync word (raw mode): one object per
     burst with bits_hex and n_bits instead.
     """
+    link_path = link_kw.get("link")
     link = link_from_options(link_kw)
+    guard_outputs([("--output", output)], captures=captures, link=link_path)
     with open_output(output) as out:
         for path in captures:
             summary = iqdemod.receiver.DecodeSummary()
@@ -142,17 +222,23 @@ def decode(captures, output, only_good, block_samples, quiet, **link_kw) -> None
 @click.argument("output", type=click.Path(dir_okay=False, path_type=Path))
 @link_options
 @click.option("--ebn0", "ebn0", multiple=True, required=True, metavar="DB",
-              help="Eb/N0 of the bursts, dB; repeat or give a comma list for bursts of different strength, used in turn.")
-@click.option("--frames", "n_frames", type=click.IntRange(min=1), required=True, help="Number of frames (one burst each).")
-@click.option("--freq-error", type=float, default=0.0, show_default=True, help="Transmitter carrier error, Hz.")
-@click.option("--clock-ppm", type=float, default=0.0, show_default=True, help="Transmitter symbol-clock error, ppm.")
-@click.option("--gap", type=(click.FloatRange(min=0), click.FloatRange(min=0)), default=(0.01, 0.03), show_default=True,
-              metavar="LOW HIGH", help="Quiet time between bursts, seconds (uniform between LOW and HIGH).")
-@click.option("--noise-rms", type=click.FloatRange(min=0, min_open=True), default=0.05, show_default=True,
+              help="Eb/N0 of the bursts, dB (each within -50–100); repeat or give a comma list for bursts of "
+                   "different strength, used in turn.")
+@click.option("--frames", "n_frames", type=click.IntRange(1, SY.MAX_FRAMES), required=True,
+              help="Number of frames (one burst each).")
+@click.option("--freq-error", type=finite(-MAX_FREQUENCY_HZ, MAX_FREQUENCY_HZ), default=0.0, show_default=True,
+              help="Transmitter carrier error, Hz (the tones must stay inside the captured band).")
+@click.option("--clock-ppm", type=finite(-SY.MAX_CLOCK_PPM, SY.MAX_CLOCK_PPM), default=0.0, show_default=True,
+              help="Transmitter symbol-clock error, ppm.")
+@click.option("--gap", type=(finite(0, SY.MAX_GAP_S), finite(0, SY.MAX_GAP_S)), default=(0.01, 0.03),
+              show_default=True, metavar="LOW HIGH",
+              help="Quiet time between bursts, seconds (uniform between LOW and HIGH, each 0–3600).")
+@click.option("--noise-rms", type=finite(*SY.NOISE_RMS_RANGE), default=0.05, show_default=True,
               help="Total rms of the complex noise per sample, full scale = 1.")
-@click.option("--centre", "centre_hz", type=click.FloatRange(min=0, min_open=True), default=869_525_000.0,
+@click.option("--centre", "centre_hz", type=finite(0, MAX_FREQUENCY_HZ, min_open=True), default=869_525_000.0,
               show_default=True, help="Capture centre frequency written to the metadata, Hz.")
-@click.option("--seed", type=int, default=1, show_default=True, help="Random seed (the same seed gives the same file).")
+@click.option("--seed", type=click.IntRange(0, SY.MAX_SEED), default=1, show_default=True,
+              help="Random seed (the same seed gives the same file).")
 @click.option("--start-time", default=None, help="SigMF core:datetime to record (RFC 3339, UTC); default now.")
 @click.option("-q", "--quiet", is_flag=True, help="No progress bar and no summary line.")
 def synth(output, ebn0, n_frames, freq_error, clock_ppm, gap, noise_rms, centre_hz, seed, start_time,
@@ -165,6 +251,7 @@ def synth(output, ebn0, n_frames, freq_error, clock_ppm, gap, noise_rms, centre_
     """
     from iqdemod.synth import SynthConfig, synthesize
 
+    link_path = link_kw.get("link")
     if link_kw.get("rate") is None and not link_kw.get("link"):
         link_kw["rate"] = 1_024_000
     link = link_from_options(link_kw)
@@ -173,13 +260,18 @@ def synth(output, ebn0, n_frames, freq_error, clock_ppm, gap, noise_rms, centre_
     try:
         values = tuple(float(v) for item in ebn0 for v in str(item).split(",") if v.strip())
     except ValueError:
-        raise click.BadParameter(f"{ebn0!r}: expected numbers in dB", param_hint="--ebn0") from None
+        raise click.BadParameter(f"{quote(','.join(ebn0))}: expected numbers in dB", param_hint="--ebn0") from None
+    lo_db, hi_db = SY.EBN0_RANGE_DB
+    bad = [v for v in values if not lo_db <= v <= hi_db]  # NaN fails both comparisons, so it is caught too
+    if bad or not values:
+        raise click.BadParameter(f"{quote(','.join(ebn0))}: each value must be a number within {lo_db:g}–{hi_db:g} dB",
+                                 param_hint="--ebn0")
     cfg = SynthConfig(
         link=link, ebn0_db=values, n_frames=n_frames, freq_error_hz=freq_error, clock_ppm=clock_ppm,
         gaussian_bt=link.signal.bt if link.signal.pulse == "gaussian" else None, gap_s=gap, noise_rms=noise_rms, centre_hz=centre_hz, seed=seed,
         start_time=start_time,
     )
-    truth = synthesize(output, cfg, progress=not quiet)
+    truth = synthesize(output, cfg, progress=not quiet, inputs=[("--link profile", link_path)])
     if not quiet:
         meta, data, truth_path = iqdemod.synth.sigmf_paths(output)
         say(f"wrote {meta}, {data} ({truth['n_samples'] / cfg.sample_rate_hz:.2f} s, {len(truth['frames'])} frames) "

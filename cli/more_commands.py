@@ -10,7 +10,9 @@ import numpy as np
 
 import iqdemod
 
-from ._common import link_from_options, link_options, open_output, say
+from iqdemod.errors import quote
+
+from ._common import finite, guard_outputs, link_from_options, link_options, open_output, say
 from .main import main
 
 
@@ -93,7 +95,7 @@ def _json_default(value):
 @main.command()
 @click.argument("capture", type=click.Path(path_type=Path))
 @link_options
-@click.option("--target-ber", type=click.FloatRange(0, 0.5, min_open=True, max_open=True), default=1e-5,
+@click.option("--target-ber", type=finite(0, 0.5, min_open=True, max_open=True), default=1e-5,
               show_default=True, help="BER the margin is measured against.")
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON object instead of the report for people.")
 @click.option("--plot", type=click.Path(dir_okay=False, path_type=Path),
@@ -109,7 +111,9 @@ def health(capture, target_ber, as_json, plot, output, quiet, **link_kw) -> None
     frequency error; the observed frame error rate is compared with them by an
     exact binomial test. Statistical estimates, not a certification.
     """
+    link_path = link_kw.get("link")
     link = link_from_options(link_kw)
+    guard_outputs([("--output", output), ("--plot", plot)], captures=[capture], link=link_path)
     if plot is not None:
         from iqdemod.plots import require_matplotlib
 
@@ -128,25 +132,34 @@ def health(capture, target_ber, as_json, plot, output, quiet, **link_kw) -> None
             say(f"wrote {plot}")
 
 
+CURVE_RANGE_DB = (-50.0, 100.0)
+
+
 def _parse_range(text: str) -> np.ndarray:
     try:
         start, stop, step = (float(v) for v in text.split(":"))
     except ValueError:
-        raise click.BadParameter(f"{text!r}: expected FROM:TO:STEP in dB, e.g. 0:16:1") from None
-    if step <= 0 or stop < start or (stop - start) / step > 10_000:
-        raise click.BadParameter(f"{text!r}: need FROM <= TO and 0 < STEP (at most 10000 points)")
+        raise click.BadParameter(f"{quote(text)}: expected FROM:TO:STEP in dB, e.g. 0:16:1",
+                                 param_hint="--ebn0") from None
+    lo, hi = CURVE_RANGE_DB
+    if not (lo <= start <= hi and lo <= stop <= hi and 0 < step <= hi - lo):  # NaN fails every comparison
+        raise click.BadParameter(f"{quote(text)}: FROM and TO must be within {lo:g}–{hi:g} dB and STEP > 0",
+                                 param_hint="--ebn0")
+    if stop < start or (stop - start) / step > 10_000:
+        raise click.BadParameter(f"{quote(text)}: need FROM <= TO and 0 < STEP (at most 10000 points)",
+                                 param_hint="--ebn0")
     return np.arange(start, stop + step / 2, step)
 
 
 @main.command()
 @link_options
 @click.option("--ebn0", "ebn0_range", default="0:16:1", show_default=True, metavar="FROM:TO:STEP",
-              help="Eb/N0 values to tabulate, dB.")
-@click.option("--freq-error-t", type=float, default=0.0, show_default=True,
+              help="Eb/N0 values to tabulate, dB (FROM and TO within -50–100, at most 10000 points).")
+@click.option("--freq-error-t", type=finite(-1.0, 1.0), default=0.0, show_default=True,
               help="Residual carrier error times symbol time (δf·T) for the mismatched correlator.")
-@click.option("--target-ber", type=click.FloatRange(0, 0.5, min_open=True, max_open=True), default=1e-5,
+@click.option("--target-ber", type=finite(0, 0.5, min_open=True, max_open=True), default=1e-5,
               show_default=True, help="Report the Eb/N0 each scheme needs for this BER.")
-@click.option("--frame-bits", type=click.IntRange(min=1), default=None,
+@click.option("--frame-bits", type=click.IntRange(1, 1 << 20), default=None,
               help="Bits checked per frame for the frame error rate [default: from the link's frame].")
 @click.option("--json", "as_json", is_flag=True, help="Print JSON instead of a table.")
 @click.option("--plot", type=click.Path(dir_okay=False, path_type=Path), help="Write the curves as a PNG.")
@@ -163,6 +176,7 @@ def curves(ebn0_range, freq_error_t, target_ber, frame_bits, as_json, plot, **li
     """
     if link_kw.get("link") is None and link_kw.get("baud") is None and link_kw.get("shift") is None:
         link_kw["baud"] = link_kw["shift"] = 1.0  # no link given: orthogonal tones, h = 1
+    guard_outputs([("--plot", plot)], link=link_kw.get("link"))
     link = link_from_options(link_kw)
     if plot is not None:
         from iqdemod.plots import require_matplotlib

@@ -14,7 +14,9 @@ from iqdemod.errors import IqdemodError
 from iqdemod.link import CaptureFormat, link_to_toml
 from iqdemod.survey import SurveyResult, plot_survey, require_plotting, survey as survey_capture
 
-from ._common import say
+from iqdemod.capture import MAX_SAMPLE_RATE_HZ
+
+from ._common import finite, guard_outputs, say
 from .main import main
 
 __all__ = ["survey"]
@@ -64,8 +66,8 @@ def _json_ready(value):
 @main.command()
 @click.argument("capture", type=click.Path(path_type=Path))
 @click.option("--datatype", help="SigMF datatype of a raw capture: cu8, ci8, ci16_le, ci16_be, cf32_le, cf64_le, …")
-@click.option("--rate", type=click.FloatRange(min=0, min_open=True), help="Sample rate of a raw capture, Hz.")
-@click.option("--max-signals", type=click.IntRange(min=1), default=4, show_default=True,
+@click.option("--rate", type=finite(0, MAX_SAMPLE_RATE_HZ, min_open=True), help="Sample rate of a raw capture, Hz.")
+@click.option("--max-signals", type=click.IntRange(1, 64), default=4, show_default=True,
               help="Report at most this many signals (the strongest).")
 @click.option("--json", "as_json", is_flag=True, help="Print the result as JSON instead of a table.")
 @click.option("--write-link", type=click.Path(dir_okay=False, path_type=Path),
@@ -85,6 +87,7 @@ def survey(capture, datatype, rate, max_signals, as_json, write_link, plot, quie
     goes to stdout; --write-link writes a profile that `iqdemod decode
     CAPTURE --link FILE` accepts.
     """
+    guard_outputs([("--write-link", write_link), ("--plot", plot)], captures=[capture])
     if plot is not None:
         require_plotting()  # fail before the work, not after
     with iqdemod.open_capture(capture, datatype=datatype, sample_rate=rate) as cap:

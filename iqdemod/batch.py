@@ -63,6 +63,7 @@ import json
 import math
 import os
 import signal
+import stat
 import sys
 import threading
 import time
@@ -73,9 +74,9 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any, Iterable, Iterator, Mapping, Sequence
 
-from .errors import IqdemodError, LinkError
+from .errors import IqdemodError, IqdemodWarning, LinkError, OutputError, quote
 from .link import Link, load_link
-from ._io import atomic_writer
+from ._io import atomic_files, atomic_writer, check_distinct, classify_output
 
 __all__ = [
     "CAPTURE_SUFFIXES",
@@ -132,11 +133,29 @@ def _canonical(path: Path) -> Path:
     return path
 
 
+def _is_regular(path: Path) -> bool:
+    """True for a regular file (a link to one counts); a FIFO or device is skipped with a warning.
+
+    Reading a FIFO would stall the whole batch until something writes to it, and a device has
+    no end, so only regular files are captures.
+    """
+    try:
+        mode = os.stat(path).st_mode
+    except OSError:
+        return True  # missing (a dangling link, or half of a pair): its row will say why
+    if stat.S_ISREG(mode):
+        return True
+    if not stat.S_ISDIR(mode):
+        warnings.warn(f"{path}: not a regular file (a FIFO, device or socket): skipped", IqdemodWarning,
+                      stacklevel=3)
+    return False
+
+
 def _walk(folder: Path) -> Iterator[Path]:
     for top, dirs, files in os.walk(folder):
         dirs[:] = sorted(d for d in dirs if not d.startswith("."))
         for name in sorted(files):
-            if _is_capture_name(name):
+            if _is_capture_name(name) and _is_regular(Path(top) / name):
                 yield Path(top) / name
 
 
@@ -158,7 +177,7 @@ def _discover(paths: Iterable[str | os.PathLike]) -> list[_Found]:
             for f in _walk(p):
                 add(f, p)
         elif p.exists() or p.is_symlink():
-            if _is_capture_name(p.name):
+            if _is_capture_name(p.name) and _is_regular(p):
                 add(p, p.parent)
         elif _has_magic(text):
             parts = Path(text).parts
@@ -166,16 +185,16 @@ def _discover(paths: Iterable[str | os.PathLike]) -> list[_Found]:
             root = Path(*lead) if lead else Path(".")
             matches = sorted(glob.glob(text, recursive=True))
             if not matches:
-                raise IqdemodError(f"{text!r}: no file matches this pattern")
+                raise IqdemodError(f"{quote(text)}: no file matches this pattern")
             for m in matches:
                 mp = Path(m)
                 if mp.is_dir():
                     for f in _walk(mp):
                         add(f, root)
-                elif _is_capture_name(mp.name):
+                elif _is_capture_name(mp.name) and _is_regular(mp):
                     add(mp, root)
         else:
-            raise IqdemodError(f"{text!r}: no such file or folder")
+            raise IqdemodError(f"{quote(text)}: no such file or folder")
     return sorted(found.values(), key=lambda f: str(f.path))
 
 
@@ -541,12 +560,27 @@ def _lock_path(report: Path) -> Path:
     return report.with_name(f".{report.name}.lock")
 
 
-def _complete_lines(path: Path) -> Iterator[str]:
-    """The lines of a journal that were written whole (a torn last line is dropped)."""
-    with open(path, "r", encoding="utf-8", newline="") as fh:
-        for line in fh:
-            if line.endswith("\n"):
-                yield line
+def _complete_lines(path: Path, *, strict: bool = True, note: bool = True) -> Iterator[str]:
+    """The lines of a journal that were written whole.
+
+    A last line without its newline (a kill in mid-write, cut anywhere, even inside a
+    multi-byte character) is dropped with a warning. A whole line that is not UTF-8 raises
+    UnicodeDecodeError when `strict`, else it is dropped with a warning (frames journal).
+    """
+    with open(path, "rb") as fh:
+        for raw in fh:
+            if not raw.endswith(b"\n"):
+                if note:
+                    warnings.warn(f"{path}: its last line was cut off (a run stopped while writing it): dropped",
+                                  IqdemodWarning, stacklevel=2)
+                return
+            try:
+                yield raw.decode("utf-8")
+            except UnicodeDecodeError:
+                if strict:
+                    raise
+                if note:
+                    warnings.warn(f"{path}: a line that is not UTF-8 text: dropped", IqdemodWarning, stacklevel=2)
 
 
 def read_report(path: str | os.PathLike) -> list[CaptureRow]:
@@ -576,18 +610,13 @@ def read_report(path: str | os.PathLike) -> list[CaptureRow]:
     return rows
 
 
-def _fsync_dir(folder: Path) -> None:
-    with contextlib.suppress(OSError, AttributeError):
-        fd = os.open(folder, os.O_RDONLY)
-        try:
-            os.fsync(fd)
-        finally:
-            os.close(fd)
+# Ctrl-C and the signals that ask a run to stop (a closed terminal, a quit key, a polite kill)
+_STOP_SIGNALS = tuple(getattr(signal, n) for n in ("SIGINT", "SIGTERM", "SIGHUP", "SIGQUIT") if hasattr(signal, n))
 
 
 @contextlib.contextmanager
 def _signals_deferred() -> Iterator[None]:
-    """Hold Ctrl-C and SIGTERM while a journal entry is written, so that none is ever torn.
+    """Hold Ctrl-C, SIGTERM, SIGHUP and SIGQUIT while a journal entry is written, so that none is ever torn.
 
     Python runs signal handlers in the main thread whichever thread the signal reached, so
     blocking the signal in this thread would not be enough: the handlers are swapped for
@@ -602,7 +631,7 @@ def _signals_deferred() -> Iterator[None]:
         pending.append(signum)
 
     saved = {}
-    for sig in (signal.SIGINT, signal.SIGTERM):
+    for sig in _STOP_SIGNALS:
         old = signal.getsignal(sig)
         if old is not None:  # None: a handler set outside Python, which we could not restore
             saved[sig] = signal.signal(sig, note)
@@ -648,27 +677,40 @@ class _Journal:
 
 
 @contextlib.contextmanager
-def _exclusive(report: Path) -> Iterator[int | None]:
-    """One batch at a time per report (advisory lock on a hidden file beside it); yields its fd."""
+def _exclusive(*outputs: Path) -> Iterator[int | None]:
+    """One batch at a time per report and per frames file (advisory locks on hidden files beside them).
+
+    Yields the first lock's fd (a forked worker closes its copies of all of them).
+    """
     try:
         import fcntl
     except ImportError:  # not POSIX: no lock
         yield None
         return
-    lock = _lock_path(report)
-    fh = open(lock, "a")
-    try:
+    with contextlib.ExitStack() as stack:
+        fds = []
+        for out in outputs:
+            lock = _lock_path(Path(os.path.realpath(out)))  # one lock whatever name (or link) reaches the file
+            fh = stack.enter_context(open(lock, "a"))
+            try:
+                fcntl.flock(fh.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+            except OSError:
+                raise IqdemodError(f"{out}: another batch is writing this file") from None
+            stack.callback(_unlink_quietly, lock)
+            fds.append(fh.fileno())
+        _LOCK_FDS[:] = fds
         try:
-            fcntl.flock(fh.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
-        except OSError:
-            raise IqdemodError(f"{report}: another batch is writing this report") from None
-        try:
-            yield fh.fileno()
+            yield fds[0]
         finally:
-            with contextlib.suppress(OSError):
-                os.unlink(lock)
-    finally:
-        fh.close()
+            _LOCK_FDS[:] = []
+
+
+_LOCK_FDS: list[int] = []  # every lock this process holds, for forked workers to close
+
+
+def _unlink_quietly(path: Path) -> None:
+    with contextlib.suppress(OSError):
+        os.unlink(path)
 
 
 def _carry_over(tasks: list[CaptureTask], report: Path, frames: Path | None) -> dict[str, CaptureRow]:
@@ -692,7 +734,7 @@ def _carry_over(tasks: list[CaptureTask], report: Path, frames: Path | None) -> 
         counts: dict[tuple[int, str], int] = {}
         for i, (_, fp) in enumerate(sources):
             if fp is not None and fp.exists():
-                for line in _complete_lines(fp):
+                for line in _complete_lines(fp, strict=False):
                     with contextlib.suppress(ValueError, AttributeError, TypeError):
                         key = (i, json.loads(line)["capture"])
                         counts[key] = counts.get(key, 0) + 1
@@ -718,7 +760,7 @@ def _carry_over(tasks: list[CaptureTask], report: Path, frames: Path | None) -> 
             for i, (_, fp) in enumerate(sources):
                 if fp is None or not fp.exists() or not any(k[0] == i for k in keep):
                     continue
-                for line in _complete_lines(fp):
+                for line in _complete_lines(fp, strict=False, note=False):  # noted when counted above
                     try:
                         rec = json.loads(line)
                         path = keep.get((i, rec["capture"]))
@@ -744,10 +786,14 @@ def _worker_init(parent_pid: int, lock_fd: int | None) -> None:
     # forked worker would also have inherited the command line's SIGTERM handler; the parent
     # stops a worker with SIGTERM, which must simply end it.
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+    for name in ("SIGHUP", "SIGQUIT"):  # these reach the whole group as well (a closed terminal, a quit key)
+        if hasattr(signal, name):
+            signal.signal(getattr(signal, name), signal.SIG_IGN)
     signal.signal(signal.SIGTERM, signal.SIG_DFL)
-    if lock_fd is not None:  # a forked worker's copy of the report lock must not outlive the parent
-        with contextlib.suppress(OSError):
-            os.close(lock_fd)
+    if lock_fd is not None:  # a forked worker's copies of the locks must not outlive the parent
+        for fd in {lock_fd, *_LOCK_FDS}:
+            with contextlib.suppress(OSError):
+                os.close(fd)
     _one_math_thread()  # the pool already uses every core
 
     # A pool worker holds both ends of its task queue, so it never sees the parent die: when
@@ -903,7 +949,7 @@ class _Cluster:
         try:
             self.client = self.distributed.Client(address, timeout="20s", set_as_default=False)
         except (OSError, TimeoutError, ValueError) as exc:
-            raise IqdemodError(f"cluster {address!r}: cannot connect ({exc})") from None
+            raise IqdemodError(f"cluster {quote(address)}: cannot connect ({exc})") from None
         self.by_key: dict = {}
         self.futures: list = []
         try:
@@ -1029,6 +1075,45 @@ def _folder_links(found: list[_Found], link: Link | None, overrides: Mapping[str
     return out
 
 
+def _check_outputs(report: Path, frames: Path | None, plot, found: list[_Found], links: list[tuple],
+                   inputs: Iterable[tuple[str, Any]]) -> None:
+    """Refuse before any work: an output (journals and locks included) that is an input or another output."""
+    from .capture import capture_files
+
+    outputs = [("report", report), ("report journal", partial_path(report)), ("report lock", _lock_path(report))]
+    if frames is not None:
+        outputs += [("frames file", frames), ("frames journal", partial_path(frames)),
+                    ("frames lock", _lock_path(frames))]
+    outputs.append(("plot", plot))
+    ins = list(inputs)
+    for f in found:
+        ins += [("capture", c) for c in capture_files(f.path)]
+    ins += [("folder link profile", lpath) for lpath in dict.fromkeys(lp for _, lp, _, _ in links if lp)]
+    check_distinct(outputs, ins)
+
+
+def _check_cluster_address(address: str) -> None:
+    """Fail fast, once: a malformed address, or a scheduler that does not answer within 5 s."""
+    import socket
+
+    _require_distributed()
+    from distributed.comm import parse_address, parse_host_port
+
+    try:
+        scheme, location = parse_address(address)
+        host, port = parse_host_port(location)
+    except (ValueError, TypeError) as exc:
+        raise IqdemodError(f"cluster {quote(address)}: not a scheduler address such as tcp://10.0.0.5:8786 "
+                           f"({str(exc)[:80]})") from None
+    if scheme not in ("tcp", "tls"):
+        return  # other transports: the client says what it thinks
+    try:
+        with socket.create_connection((host, port), timeout=5):
+            pass
+    except OSError as exc:
+        raise IqdemodError(f"cluster {quote(address)}: cannot connect ({exc.strerror or exc})") from None
+
+
 def run_batch(
     paths: Iterable[str | os.PathLike],
     link: Link | None,
@@ -1042,6 +1127,7 @@ def run_batch(
     link_overrides: Mapping[str, Any] | None = None,
     plot: str | os.PathLike | None = None,
     progress: bool = False,
+    inputs: Iterable[tuple[str, str | os.PathLike | None]] = (),
 ) -> BatchResult:
     """Assess every capture under `paths` and write the report (and frames).
 
@@ -1074,6 +1160,9 @@ def run_batch(
         Also write the trend figure (:func:`plot_trend`) here.
     progress : bool
         A tqdm bar over the captures, with ETA, on stderr.
+    inputs : iterable of (role, path)
+        Other files this run reads (the ``--link`` profile); with the captures
+        and the folder profiles, none may be an output.
 
     Returns
     -------
@@ -1083,7 +1172,10 @@ def run_batch(
     ------
     IqdemodError
         When nothing is collected, a path does not exist, no link applies,
-        the report is locked by another batch, or the cluster is unreachable.
+        the report or frames file is locked by another batch, or the cluster is
+        unreachable. :class:`~iqdemod.errors.OutputError` when an output (the
+        report, the frames file, their journals, the plot) is an input or
+        another output, or is not a regular file.
         A capture that fails is *not* raised: its row says why.
     KeyboardInterrupt
         After Ctrl-C (or SIGTERM turned into it); every finished capture is
@@ -1096,21 +1188,22 @@ def run_batch(
         raise IqdemodError(f"jobs {jobs}: must be >= 1")
     report = Path(report)
     frames_path = None if frames is None else Path(frames)
-    if frames_path is not None and os.path.abspath(frames_path) == os.path.abspath(report):
-        raise IqdemodError(f"{frames_path}: the frames file and the report must differ")
-    for target in filter(None, (report, frames_path, None if plot is None else Path(plot))):
-        if not (target.parent if str(target.parent) else Path(".")).is_dir():
-            raise IqdemodError(f"{target}: folder {str(target.parent)!r} does not exist")
+    for role, target in (("report", report), ("frames file", frames_path)):
+        if target is not None and classify_output(target).kind != "file":
+            raise OutputError(f"{role} {quote(str(target))}: must be a regular file (its journal "
+                              f"{partial_path(target).name} is kept beside it), not a FIFO, device or -")
     if plot is not None:
+        classify_output(plot)
         from .plots import require_matplotlib
 
         require_matplotlib()
     if cluster is not None:
-        _require_distributed()
+        _check_cluster_address(cluster)
     found = _discover(paths)
     if not found:
         raise IqdemodError("no captures found (looked for SigMF, WAV/FLAC and raw IQ files)")
     links = _folder_links(found, link, link_overrides or {})
+    _check_outputs(report, frames_path, plot, found, links, inputs)
     if link is None and all(lk is None and "no link" in err for lk, _, err, _ in links):
         raise LinkError("no link: give --link FILE (or --baud and --shift), or put a link.toml in the capture folders")
     tasks = []
@@ -1121,7 +1214,7 @@ def run_batch(
             want_frames=frames_path is not None, link_path=lpath, link_error=lerr, transmitter=label,
             size_bytes=size, mtime_ns=mtime, mtime_time=_mtime_time(f.path), settings=_settings_digest(lk, target_ber),
         ))
-    with _exclusive(report) as lock_fd:
+    with _exclusive(*filter(None, (report, frames_path))) as lock_fd:
         if resume:
             rows = _carry_over(tasks, report, frames_path)
         else:
@@ -1165,16 +1258,17 @@ def run_batch(
         ordered = [rows[t.path] for t in tasks]
         labels = label_transmitters(ordered)
         ordered = [dataclasses.replace(r, transmitter=lab) for r, lab in zip(ordered, labels)]
-        with atomic_writer(report, "w") as out:
+        # the frames first and the report that vouches for them last, together or not at all
+        with atomic_files() as files:
+            if frames_path is not None:
+                files.adopt(journal.frames_part, frames_path)
+            out = files.open(report, "w")
             writer = csv.writer(out, lineterminator="\n")
             writer.writerow(COLUMNS)
             for r in ordered:
                 writer.writerow(r.to_csv())
-        if frames_path is not None:
-            os.replace(journal.frames_part, frames_path)
         with contextlib.suppress(FileNotFoundError):
             os.unlink(journal.report_part)
-        _fsync_dir(report.parent if str(report.parent) else Path("."))
     ok = [r for r in ordered if r.ok]
     measured = sorted((r for r in ok if r.margin_db is not None), key=lambda r: r.margin_db)
     if plot is not None:

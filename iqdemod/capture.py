@@ -25,6 +25,7 @@ import json
 import math
 import os
 import re
+import stat
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
@@ -32,7 +33,7 @@ from typing import Iterator
 
 import numpy as np
 
-from .errors import CaptureError
+from .errors import CaptureError, quote
 
 __all__ = [
     "Datatype",
@@ -49,6 +50,12 @@ DEFAULT_BLOCK_SAMPLES = 1 << 20
 _SIGMF_META = ".sigmf-meta"
 _SIGMF_DATA = ".sigmf-data"
 _AUDIO_SUFFIXES = {".wav", ".flac", ".wave"}
+# SigMF metadata beyond this size is refused unread: real files are kilobytes, and a cap keeps
+# an endless file (a link to /dev/zero) from filling the memory.
+MAX_META_BYTES = 4 << 20
+# The highest sample rate accepted, Hz (100 GS/s: far above any receiver we know of, common practice
+# bound; it keeps sample counts and filter designs within floating-point range).
+MAX_SAMPLE_RATE_HZ = 1e11
 
 
 class CaptureWarning(UserWarning):
@@ -110,16 +117,16 @@ def parse_datatype(name: str) -> Datatype:
     m = _DATATYPE.match(text)
     expected = "expected a SigMF complex datatype such as cu8, ci8, ci16_le, ci16_be, cf32_le, cf64_le"
     if not m:
-        raise CaptureError(f"datatype {name!r}: unknown ({expected})")
+        raise CaptureError(f"datatype {quote(name)}: unknown ({expected})")
     kind, fmt, bits, end = m["kind"], m["fmt"], int(m["bits"]), m["end"]
     if kind == "r":
-        raise CaptureError(f"datatype {name!r}: real samples; iqdemod needs complex IQ ({expected})")
+        raise CaptureError(f"datatype {quote(name)}: real samples; iqdemod needs complex IQ ({expected})")
     if fmt == "f" and bits not in (32, 64) or fmt != "f" and bits == 64:
-        raise CaptureError(f"datatype {name!r}: unsupported width ({expected})")
+        raise CaptureError(f"datatype {quote(name)}: unsupported width ({expected})")
     if bits == 8 and end is not None:
-        raise CaptureError(f"datatype {name!r}: 8-bit types take no _le/_be suffix ({expected})")
+        raise CaptureError(f"datatype {quote(name)}: 8-bit types take no _le/_be suffix ({expected})")
     if bits > 8 and end is None:
-        raise CaptureError(f"datatype {name!r}: needs _le or _be ({expected})")
+        raise CaptureError(f"datatype {quote(name)}: needs _le or _be ({expected})")
     order = "|" if bits == 8 else ("<" if end == "le" else ">")
     np_name = f"{order}{fmt}{bits // 8}"
     if fmt == "f":
@@ -456,10 +463,22 @@ def _raw_info(path: Path, data_path: Path, dt: Datatype, rate: float, *, kind: s
 
 def _check_rate(rate, where: str) -> float:
     if isinstance(rate, bool) or not isinstance(rate, (int, float)) or not math.isfinite(rate):
-        raise CaptureError(f"{where}: sample rate {rate!r}: must be a number")
+        raise CaptureError(f"{where}: sample rate {quote(rate)}: must be a finite number")
     if rate <= 0:
         raise CaptureError(f"{where}: sample rate {rate:g} Hz: must be > 0")
+    if rate > MAX_SAMPLE_RATE_HZ:
+        raise CaptureError(f"{where}: sample rate {float(rate):g} Hz: must be at most {MAX_SAMPLE_RATE_HZ:g} Hz")
     return float(rate)
+
+
+def capture_files(path: str | os.PathLike) -> list[Path]:
+    """The files a capture is read from: both files of a SigMF pair, else the file itself.
+
+    Used to keep outputs off the inputs; names that do not exist are included too.
+    """
+    p = Path(path)
+    pair = sigmf_pair(p)
+    return list(pair) if pair is not None else [p]
 
 
 def sigmf_pair(path: Path) -> tuple[Path, Path] | None:
@@ -475,27 +494,52 @@ def sigmf_pair(path: Path) -> tuple[Path, Path] | None:
 def read_sigmf_meta(meta_path: Path) -> dict:
     """Load and check a ``.sigmf-meta`` file against the SigMF core rules we use.
 
+    At most :data:`MAX_META_BYTES` are read, so a huge or endless file (a link
+    to ``/dev/zero``) is refused before it can fill the memory.
+
     Raises
     ------
     CaptureError
-        For unreadable JSON, missing required objects or keys, or bad values.
+        For a file that is not a regular file or is too large, unreadable
+        JSON, missing required objects or keys, or bad values.
     """
     where = str(meta_path)
     try:
-        text = meta_path.read_text(encoding="utf-8")
+        st = os.stat(meta_path)
+        if not stat.S_ISREG(st.st_mode):
+            raise CaptureError(f"{where}: SigMF metadata is not a regular file (a FIFO, device or folder)")
+        with open(meta_path, "rb") as fh:
+            data = fh.read(MAX_META_BYTES + 1)
     except FileNotFoundError:
         raise CaptureError(f"{where}: SigMF metadata file missing") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise CaptureError(f"{where}: cannot read SigMF metadata ({exc.__class__.__name__})") from None
+    except OSError as exc:
+        raise CaptureError(f"{where}: cannot read SigMF metadata ({exc.strerror or exc.__class__.__name__})") from None
+    if len(data) > MAX_META_BYTES:
+        raise CaptureError(f"{where}: SigMF metadata larger than {MAX_META_BYTES // (1 << 20)} MB: refused")
+    try:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError:
+        raise CaptureError(f"{where}: cannot read SigMF metadata (not UTF-8 text)") from None
     return parse_sigmf_meta(text, where)
+
+
+def _no_constant(name: str):
+    # JSON has no NaN or Infinity (RFC 8259 §6); Python's reader would accept them
+    raise ValueError(f"{name} is not a JSON number")
 
 
 def parse_sigmf_meta(text: str, where: str) -> dict:
     """Check SigMF metadata text (see :func:`read_sigmf_meta`); `where` names it in errors."""
+    if len(text) > MAX_META_BYTES:
+        raise CaptureError(f"{where}: SigMF metadata larger than {MAX_META_BYTES // (1 << 20)} MB: refused")
     try:
-        meta = json.loads(text)
+        meta = json.loads(text, parse_constant=_no_constant)
     except json.JSONDecodeError as exc:
         raise CaptureError(f"{where}: broken SigMF metadata: {exc.msg} at line {exc.lineno}") from None
+    except RecursionError:
+        raise CaptureError(f"{where}: broken SigMF metadata: nested too deep") from None
+    except ValueError as exc:  # an integer beyond sys.get_int_max_str_digits, NaN or Infinity
+        raise CaptureError(f"{where}: broken SigMF metadata: {str(exc).splitlines()[0][:120]}") from None
     if not isinstance(meta, dict):
         raise CaptureError(f"{where}: broken SigMF metadata: top level must be an object")
     for key in ("global", "captures", "annotations"):
@@ -514,7 +558,7 @@ def parse_sigmf_meta(text: str, where: str) -> dict:
         raise CaptureError(f"{where}: core:datatype {glob['core:datatype']!r}: must be a string")
     channels = glob.get("core:num_channels", 1)
     if channels != 1:
-        raise CaptureError(f"{where}: core:num_channels {channels!r}: only single-channel recordings are supported")
+        raise CaptureError(f"{where}: core:num_channels {quote(channels)}: only single-channel recordings are supported")
     return meta
 
 
@@ -541,12 +585,13 @@ def _sigmf_capture(path: Path, meta: dict, where: str, data_path: Path, sample_r
     rate = _check_rate(rate, where)
     first = meta["captures"][0] if meta["captures"] else {}
     centre = first.get("core:frequency")
-    if centre is not None and (isinstance(centre, bool) or not isinstance(centre, (int, float))):
-        raise CaptureError(f"{where}: core:frequency {centre!r}: must be a number")
+    if centre is not None and (isinstance(centre, bool) or not isinstance(centre, (int, float))
+                               or not math.isfinite(centre)):
+        raise CaptureError(f"{where}: core:frequency {quote(centre)}: must be a finite number")
     start_time = first.get("core:datetime")
     header = first.get("core:header_bytes", 0)
-    if not isinstance(header, int) or header < 0:
-        raise CaptureError(f"{where}: core:header_bytes {header!r}: must be a whole number >= 0")
+    if isinstance(header, bool) or not isinstance(header, int) or header < 0:
+        raise CaptureError(f"{where}: core:header_bytes {quote(header)}: must be a whole number >= 0")
     info = _raw_info(
         path,
         data_path,
@@ -581,10 +626,15 @@ def _open_sigmf_archive(path: Path, sample_rate: float | None) -> Capture:
             datas = [m for m in members if m.name == base + _SIGMF_DATA]
             if not datas:
                 raise CaptureError(f"{path}: SigMF archive has {metas[0].name} but no {base + _SIGMF_DATA}")
-            text = tar.extractfile(metas[0]).read().decode("utf-8")
+            if metas[0].size > MAX_META_BYTES:
+                raise CaptureError(f"{path}: SigMF archive metadata larger than {MAX_META_BYTES // (1 << 20)} MB: "
+                                   "refused")
+            text = tar.extractfile(metas[0]).read(MAX_META_BYTES + 1).decode("utf-8")
             data = datas[0]
-    except tarfile.ReadError as exc:
+    except (tarfile.ReadError, EOFError) as exc:
         raise CaptureError(f"{path}: not an uncompressed SigMF archive (tar): {exc}") from None
+    except OSError as exc:
+        raise CaptureError(f"{path}: cannot read the SigMF archive ({exc.strerror or exc.__class__.__name__})") from None
     except UnicodeDecodeError:
         raise CaptureError(f"{path}: SigMF archive metadata is not UTF-8 text") from None
     where = f"{path}:{metas[0].name}"

@@ -2,11 +2,14 @@
 
 Every message names the offending value and what was expected, so that the
 command line can print it on one line, e.g. ``sample rate -250000 Hz: must be > 0``.
+A value the user gave is quoted with :func:`quote`, at most 80 characters of it.
 """
 
 from __future__ import annotations
 
-__all__ = ["IqdemodError", "CaptureError", "LinkError"]
+__all__ = ["IqdemodError", "CaptureError", "LinkError", "OutputError", "IqdemodWarning", "quote", "QUOTE_CHARS"]
+
+QUOTE_CHARS = 80
 
 
 class IqdemodError(Exception):
@@ -19,3 +22,33 @@ class CaptureError(IqdemodError):
 
 class LinkError(IqdemodError, ValueError):
     """A link description (profile or flags) has a bad, missing or unknown value."""
+
+
+class OutputError(IqdemodError):
+    """An output cannot be written safely: it is an input, another output, a folder, or its folder is missing."""
+
+
+class IqdemodWarning(UserWarning):
+    """Something was skipped or repaired on the way (a torn journal line, a FIFO in an archive)."""
+
+
+def quote(value: object, limit: int = QUOTE_CHARS) -> str:
+    """``repr`` of a user's value, cut to `limit` characters and marked so.
+
+    >>> quote("buoy-7")
+    "'buoy-7'"
+    >>> quote("x" * 1000, limit=10)
+    "'xxxxxxxx… (1000 characters)"
+    """
+    if isinstance(value, str):
+        text = repr(value[: limit + 1])  # repr of a 10 MB string would copy it whole
+        size = f"{len(value)} characters"
+    else:
+        try:
+            text = repr(value)
+        except ValueError:  # an integer too long to print (sys.get_int_max_str_digits)
+            return f"an integer of about {int(value.bit_length() * 0.30103)} digits"
+        size = f"{len(text)} digits" if isinstance(value, int) else f"{len(text)} characters"
+    if len(text) <= limit:
+        return text
+    return f"{text[: limit - 1]}… ({size})"

@@ -36,8 +36,9 @@ from pathlib import Path
 from typing import Any, Mapping
 
 from .coding import BIT_ORDERS, CODINGS, WHITENINGS, symbols_per_bit
+from .capture import MAX_SAMPLE_RATE_HZ
 from .crc import crc_spec
-from .errors import LinkError
+from .errors import LinkError, quote
 
 __all__ = ["CaptureFormat", "SignalSpec", "FrameSpec", "Link", "load_link", "link_to_toml"]
 
@@ -48,27 +49,47 @@ MIN_BT, MAX_BT = 0.1, 2.0
 MAX_SYNC_BITS = 64
 CRC_ORDERS = ("big", "little")
 LENGTH_COUNTS = ("payload", "payload+crc", "frame")
+# Frequencies (baud, shift, offset, pull-in, absolute centre) beyond this are refused, Hz: far
+# above any radio carrier, and it keeps every product of them finite.
+MAX_FREQUENCY_HZ = 1e12
+# A link profile is a few hundred bytes; beyond this it is refused unread.
+MAX_PROFILE_BYTES = 1 << 20
+# The correlators need at least this many capture samples per symbol (the tuner decimates to
+# about 8 samples per symbol and cannot add samples the capture does not have).
+MIN_SAMPLES_PER_SYMBOL = 8
+# The largest buffer one burst may need (complex64 samples of the longest burst piece at the
+# decimated rate). A plan that would need more is refused before anything is allocated.
+BURST_BUFFER_BUDGET_BYTES = 256 << 20
+# The longest channel filter allowed, taps. The front end's FFT blocks hold 8 × taps samples
+# (complex64, a few copies at a time), so this keeps them near 256 MB.
+MAX_FILTER_TAPS = 1_000_000
 
 
-def _number(name: str, value: Any) -> float:
+def _number(name: str, value: Any, *, limit: float = MAX_FREQUENCY_HZ) -> float:
     if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise LinkError(f"{name} {value!r}: must be a number")
-    if not math.isfinite(value):
-        raise LinkError(f"{name} {value!r}: must be finite")
-    return float(value)
+        raise LinkError(f"{name} {quote(value)}: must be a number")
+    try:
+        x = float(value)
+    except OverflowError:
+        x = math.inf
+    if not math.isfinite(x):
+        raise LinkError(f"{name} {quote(value)}: must be finite")
+    if abs(x) > limit:
+        raise LinkError(f"{name} {x:g}: must be within ±{limit:g}")
+    return x
 
 
-def _quote(value: Any, limit: int = 80) -> str:
-    """`value` for an error message, at most `limit` characters of it."""
-    text = repr(value)
-    return text if len(text) <= limit else text[: limit - 1] + "…"
+def _hex(word: int) -> str:
+    """A sync word in hex, cut like :func:`quote` when it is long."""
+    text = f"{word:#x}"
+    return text if len(text) <= 80 else f"{text[:79]}… ({word.bit_length()} bits)"
 
 
 def _integer(name: str, value: Any) -> int:
     if isinstance(value, bool) or not isinstance(value, int):
         if isinstance(value, float) and value.is_integer():
             return int(value)
-        raise LinkError(f"{name} {value!r}: must be a whole number")
+        raise LinkError(f"{name} {quote(value)}: must be a whole number")
     return int(value)
 
 
@@ -93,9 +114,9 @@ class CaptureFormat:
 
             parse_datatype(self.datatype)
         if self.sample_rate is not None:
-            rate = _number("sample rate", self.sample_rate)
+            rate = _number("sample rate", self.sample_rate, limit=MAX_SAMPLE_RATE_HZ)
             if rate <= 0:
-                raise LinkError(f"sample rate {self.sample_rate:g} Hz: must be > 0")
+                raise LinkError(f"sample rate {rate:g} Hz: must be > 0")
             object.__setattr__(self, "sample_rate", rate)
 
 
@@ -160,20 +181,20 @@ class SignalSpec:
         if self.offset_hz is not None and self.frequency_hz is not None:
             raise LinkError("offset_hz and frequency_hz both given: give one of them")
         if not isinstance(self.invert, bool):
-            raise LinkError(f"invert {self.invert!r}: must be true or false")
+            raise LinkError(f"invert {quote(self.invert)}: must be true or false")
         if self.max_freq_error_hz is not None:
             err = _number("max_freq_error_hz", self.max_freq_error_hz)
             if err < 0:
                 raise LinkError(f"max_freq_error_hz {err:g} Hz: must be >= 0")
             object.__setattr__(self, "max_freq_error_hz", err)
         if self.pulse not in PULSES:
-            raise LinkError(f"pulse {_quote(self.pulse)}: must be one of {', '.join(PULSES)}")
+            raise LinkError(f"pulse {quote(self.pulse)}: must be one of {', '.join(PULSES)}")
         bt = _number("bt", self.bt)
         if not MIN_BT <= bt <= MAX_BT:
             raise LinkError(f"bt {bt:g}: must be within {MIN_BT:g}–{MAX_BT:g} (Gaussian bandwidth × symbol time)")
         object.__setattr__(self, "bt", bt)
         if self.detector is not None and self.detector not in DETECTORS:
-            raise LinkError(f"detector {_quote(self.detector)}: must be one of {', '.join(DETECTORS)}")
+            raise LinkError(f"detector {quote(self.detector)}: must be one of {', '.join(DETECTORS)}")
         n = _integer("detector_symbols", self.detector_symbols)
         if n not in (3, 5, 7):
             raise LinkError(f"detector_symbols {n}: must be 3, 5 or 7 (an odd window; the middle symbol is decided)")
@@ -261,7 +282,7 @@ class FrameSpec:
         if self.sync_word is not None:
             word = _integer("sync_word", self.sync_word)
             if word < 0 or word >= 1 << bits:
-                raise LinkError(f"sync word {word:#x}: does not fit in {bits} bits")
+                raise LinkError(f"sync word {_hex(word)}: does not fit in {bits} bits")
             object.__setattr__(self, "sync_word", word)
         tol = _integer("sync_tolerance", self.sync_tolerance)
         if not 0 <= tol < bits:
@@ -269,14 +290,15 @@ class FrameSpec:
         object.__setattr__(self, "sync_tolerance", tol)
         if isinstance(self.length, str):
             if self.length != "prefix8":
-                raise LinkError(f"length {self.length!r}: must be 1–{MAX_LENGTH_BYTES} or \"prefix8\"")
+                raise LinkError(f"length {quote(self.length)}: must be 1–{MAX_LENGTH_BYTES} or \"prefix8\"")
         else:
             n = _integer("length", self.length)
             if not 1 <= n <= MAX_LENGTH_BYTES:
-                raise LinkError(f"length {n}: must be within 1–{MAX_LENGTH_BYTES} bytes or \"prefix8\"")
+                raise LinkError(f"length {quote(n)}: must be within 1–{MAX_LENGTH_BYTES} bytes or \"prefix8\"")
             object.__setattr__(self, "length", n)
-        if not isinstance(self.crc, str):
-            raise LinkError(f"crc {self.crc!r}: must be a CRC catalogue name such as \"CRC-16/IBM-3740\", or \"none\"")
+        if not isinstance(self.crc, str) or len(self.crc) > 40:  # the catalogue's names are short
+            raise LinkError(f"crc {quote(self.crc)}: must be a CRC catalogue name such as \"CRC-16/IBM-3740\", "
+                            "or \"none\"")
         object.__setattr__(self, "crc", "none" if self.crc.lower() == "none" else crc_spec(self.crc).name)
         self._check_codings()
 
@@ -339,9 +361,32 @@ class Link:
         rate = float(sample_rate)
         if not rate > 0:
             raise LinkError(f"sample rate {rate:g} Hz: must be > 0")
+        if rate > MAX_SAMPLE_RATE_HZ:
+            raise LinkError(f"sample rate {rate:g} Hz: must be at most {MAX_SAMPLE_RATE_HZ:g} Hz")
         sig = self.signal
         if sig.baud >= rate / 2:
             raise LinkError(f"baud {sig.baud:g}: must be below half the sample rate ({rate / 2:g})")
+        if rate / sig.baud < MIN_SAMPLES_PER_SYMBOL:
+            raise LinkError(
+                f"baud {sig.baud:g} at sample rate {rate:g} Hz: {rate / sig.baud:.3g} samples per symbol, the "
+                f"receiver needs at least {MIN_SAMPLES_PER_SYMBOL} (a capture at {MIN_SAMPLES_PER_SYMBOL * sig.baud:g} "
+                "Hz or more)"
+            )
+        _, taps = self._tuner_estimate(rate)
+        if taps > MAX_FILTER_TAPS:
+            raise LinkError(
+                f"baud {sig.baud:g} with shift {sig.shift_hz:g} Hz at sample rate {rate:g} Hz: the tuner's filter "
+                f"would need about {taps:.3g} taps, above the {MAX_FILTER_TAPS:.3g} allowed (so narrow a signal in "
+                "so wide a capture: resample the capture first, or raise the baud)"
+            )
+        need = self.burst_buffer_bytes(rate)
+        if need > BURST_BUFFER_BUDGET_BYTES:
+            raise LinkError(
+                f"baud {sig.baud:g} with shift {sig.shift_hz:g} Hz and carrier pull-in {sig.pull_in_hz:g} Hz at "
+                f"sample rate {rate:g} Hz: one burst would need a {need / 2**20:.3g} MB buffer, above the "
+                f"{BURST_BUFFER_BUDGET_BYTES >> 20} MB budget (the band to keep is too wide for so slow a symbol "
+                "rate: lower the shift or --max-freq-error, or raise the baud)"
+            )
         offset = sig.offset_for(centre_hz)
         edge = abs(offset) + sig.shift_hz / 2
         if edge >= rate / 2:
@@ -350,6 +395,28 @@ class Link:
                 f"from the centre, outside the captured band (±{rate / 2:g} Hz)"
             )
         return offset
+
+    def _tuner_estimate(self, sample_rate: float) -> tuple[float, int]:
+        """(decimated rate in Hz, filter taps) the receiver's front end will choose.
+
+        Its own design rule (:func:`iqdemod.channel.channel_size`), which builds nothing.
+        """
+        from .channel import channel_size  # late: the front end imports this module
+
+        decimation, taps, _, _, _ = channel_size(float(sample_rate), self.signal)
+        return float(sample_rate) / decimation, int(taps)
+
+    def burst_buffer_bytes(self, sample_rate: float) -> float:
+        """Bytes of the buffer that holds the longest burst piece (complex64 at the decimated rate).
+
+        An estimate from the tuner's design rule (see :meth:`_tuner_estimate`).
+        """
+        from .plan import MAX_BURST_SYMBOLS  # late: the plan imports this module
+
+        decimated, _ = self._tuner_estimate(sample_rate)
+        overlap = self.frame.max_bits + 64 if not self.frame.raw else 64
+        symbols = max(MAX_BURST_SYMBOLS, 4 * overlap)
+        return symbols * decimated / self.signal.baud * 8.0
 
     def replace(self, **overrides: Any) -> "Link":
         """A copy with flag-style overrides (see :func:`load_link` for the names)."""
@@ -407,7 +474,7 @@ def _parse_sync(value: Any) -> int | None:
     if value is None or isinstance(value, int) and not isinstance(value, bool):
         return value
     if not isinstance(value, str):
-        raise LinkError(f"sync word {value!r}: must be a hex string such as \"0x9B3C57E1\"")
+        raise LinkError(f"sync word {quote(value)}: must be a hex string such as \"0x9B3C57E1\"")
     text = value.strip().lower()
     if text in ("", "none"):
         return None
@@ -417,7 +484,7 @@ def _parse_sync(value: Any) -> int | None:
             raise ValueError
         return int(digits, 16)
     except ValueError:
-        raise LinkError(f"sync word {value!r}: not hex (expected e.g. \"0x9B3C57E1\")") from None
+        raise LinkError(f"sync word {quote(value)}: not hex (expected e.g. \"0x9B3C57E1\")") from None
 
 
 def _parse_length(value: Any) -> int | str:
@@ -428,7 +495,7 @@ def _parse_length(value: Any) -> int | str:
         try:
             return int(text)
         except ValueError:
-            raise LinkError(f"length {value!r}: must be 1–{MAX_LENGTH_BYTES} or \"prefix8\"") from None
+            raise LinkError(f"length {quote(value)}: must be 1–{MAX_LENGTH_BYTES} or \"prefix8\"") from None
     return value
 
 
@@ -488,35 +555,86 @@ def load_link(path: str | Path | None = None, **overrides: Any) -> Link:
         a value out of range, naming the key.
     """
     tables: dict[str, dict[str, Any]] = {}
-    if path is not None:
-        p = Path(path)
+    if path is None:
+        return _apply_overrides(tables, overrides)
+    p = Path(path)
+    where = f"link profile {quote(str(p))}"
+    try:
+        with open(p, "rb") as fh:  # a FIFO (a shell's <(…)) works too; the cap stops an endless one
+            data = fh.read(MAX_PROFILE_BYTES + 1)
+    except FileNotFoundError:
+        raise LinkError(f"{where}: no such file") from None
+    except OSError as exc:
+        raise LinkError(f"{where}: cannot read it ({exc.strerror or exc.__class__.__name__})") from None
+    if len(data) > MAX_PROFILE_BYTES:
+        raise LinkError(f"{where}: larger than {MAX_PROFILE_BYTES >> 20} MB, not a link profile")
+    try:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError:
+        raise LinkError(f"{where}: cannot read it (not UTF-8 text)") from None
+    try:
+        doc = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise LinkError(f"{where}: TOML syntax error: {str(exc)[:200]}") from None
+    except RecursionError:
+        raise LinkError(f"{where}: TOML nested too deep") from None
+    except ValueError as exc:  # e.g. an integer beyond sys.get_int_max_str_digits
+        raise LinkError(f"{where}: bad TOML value: {str(exc).splitlines()[0][:120]}") from None
+    for name, table in doc.items():
+        if name not in _KEYS:
+            raise LinkError(f"{where}: unknown table [{quote(name)[1:-1]}] (expected capture, signal, frame)")
+        if not isinstance(table, dict):
+            raise LinkError(f"{where}: {name} must be a table [{name}]")
+        for key in table:
+            if key not in _KEYS[name]:
+                raise LinkError(
+                    f"{where}: unknown key {quote(key)} in [{name}] "
+                    f"(expected {', '.join(sorted(_KEYS[name]))})"
+                )
+        tables[name] = dict(table)
+    try:
+        return _apply(tables, overrides)
+    except LinkError as exc:
+        flag_error = _overrides_error(overrides)
+        if flag_error is not None:  # the flags are wrong whatever the profile says: blame them
+            raise flag_error from None
+        raise LinkError(f"{where}: {exc}") from None
+
+
+# Values that complete a link, so that the overrides can be checked on their own.
+_NEUTRAL = {"signal": {"baud": 1.0, "shift_hz": 1.0}}
+
+
+def _overrides_error(overrides: Mapping[str, Any]) -> LinkError | None:
+    """The error the overrides give on their own (on neutral values), naming the flag; None when fine."""
+    given = {k: v for k, v in overrides.items() if v is not None}
+    if not given:
+        return None
+    for name, value in given.items():
         try:
-            text = p.read_text(encoding="utf-8")
-        except FileNotFoundError:
-            raise LinkError(f"link profile {str(p)!r}: no such file") from None
-        except (IsADirectoryError, PermissionError, UnicodeDecodeError) as exc:
-            raise LinkError(f"link profile {str(p)!r}: cannot read it ({exc.__class__.__name__})") from None
-        try:
-            doc = tomllib.loads(text)
-        except tomllib.TOMLDecodeError as exc:
-            raise LinkError(f"link profile {str(p)!r}: TOML syntax error: {exc}") from None
-        for name, table in doc.items():
-            if name not in _KEYS:
-                raise LinkError(f"link profile {str(p)!r}: unknown table [{name}] (expected capture, signal, frame)")
-            if not isinstance(table, dict):
-                raise LinkError(f"link profile {str(p)!r}: {name} must be a table [{name}]")
-            for key in table:
-                if key not in _KEYS[name]:
-                    raise LinkError(
-                        f"link profile {str(p)!r}: unknown key {key!r} in [{name}] "
-                        f"(expected {', '.join(sorted(_KEYS[name]))})"
-                    )
-            tables[name] = dict(table)
-        try:
-            return _apply(tables, overrides)
+            _apply(_NEUTRAL, {name: value})
         except LinkError as exc:
-            raise LinkError(f"link profile {str(p)!r}: {exc}") from None
-    return _apply(tables, overrides)
+            return LinkError(f"{_flag(name)}: {exc}")
+    try:
+        _apply(_NEUTRAL, given)
+    except LinkError as exc:
+        return LinkError(f"{', '.join(_flag(n) for n in given)}: {exc}")
+    return None
+
+
+def _flag(name: str) -> str:
+    """The command line's flag for an override name (``sync_bits`` → ``--sync-bits``)."""
+    return "--" + name.replace("_", "-") if name in OVERRIDES else quote(name)
+
+
+def _apply_overrides(tables: Mapping[str, Mapping[str, Any]], overrides: Mapping[str, Any]) -> Link:
+    """Build from overrides only; a bad value names its flag."""
+    try:
+        return _apply(tables, overrides)
+    except LinkError as exc:
+        if "not given" in str(exc):
+            raise
+        raise (_overrides_error(overrides) or exc) from None
 
 
 def link_to_toml(link: Link, *, comment: str | None = None) -> str:

@@ -22,25 +22,41 @@ from __future__ import annotations
 
 import hashlib
 import json
+import math
 import os
+import shutil
 from dataclasses import dataclass
 from datetime import datetime, timezone
 from pathlib import Path
-from typing import Iterator
+from typing import Iterable, Iterator
 
 import numpy as np
 from scipy.signal import fftconvolve
 
 from .capture import parse_datatype
-from .errors import LinkError
+from .errors import LinkError, OutputError, quote
 from .framing import PREAMBLE_BITS, frame_symbols
-from .link import Link
-from ._io import atomic_writer
+from .link import MAX_FREQUENCY_HZ, Link
+from ._io import atomic_files, check_distinct, classify_output
 
 __all__ = ["SynthConfig", "synthesize", "fsk_burst", "amplitude_for_ebn0", "sigmf_paths", "payload_bit_errors"]
 
 TAIL_BITS = 8
 _BLOCK = 1 << 20
+
+# The ranges the generator accepts (each stated in the command's help).
+EBN0_RANGE_DB = (-50.0, 100.0)
+MAX_FRAMES = 1_000_000
+MAX_CLOCK_PPM = 10_000.0  # 1 %: far beyond any crystal, small enough that the symbol clock stays positive
+GAUSSIAN_BT_RANGE = (0.1, 10.0)  # below 0.1 the pulse spans hundreds of symbols (GMSK uses 0.3–0.5)
+MAX_GAP_S = 3600.0
+NOISE_RMS_RANGE = (1e-6, 10.0)
+MAX_PREAMBLE_BITS = 100_000
+MAX_SEED = 2**63 - 1
+# One burst is built whole as a waveform, about 64 bytes per sample on the way (time, index,
+# frequency, phase and the complex result); a burst needing more than this is refused.
+BURST_MEMORY_BUDGET_BYTES = 1 << 30
+_BYTES_PER_BURST_SAMPLE = 64
 
 
 def amplitude_for_ebn0(ebn0_db: float, *, noise_var: float, sample_rate_hz: float, baud: float) -> float:
@@ -141,20 +157,50 @@ class SynthConfig:
     def __post_init__(self) -> None:
         if not self.ebn0_db:
             raise LinkError("ebn0_db: give at least one Eb/N0 value")
-        object.__setattr__(self, "ebn0_db", tuple(float(v) for v in self.ebn0_db))
-        if self.n_frames < 1:
-            raise LinkError(f"frames {self.n_frames}: must be >= 1")
-        if self.gaussian_bt is not None and not self.gaussian_bt > 0:
-            raise LinkError(f"gaussian BT {self.gaussian_bt}: must be > 0")
-        if not self.noise_rms > 0:
-            raise LinkError(f"noise_rms {self.noise_rms}: must be > 0")
+        lo_db, hi_db = EBN0_RANGE_DB
+        values = []
+        for v in self.ebn0_db:
+            x = _finite("Eb/N0", v, "dB")
+            if not lo_db <= x <= hi_db:
+                raise LinkError(f"Eb/N0 {x:g} dB: must be within {lo_db:g}–{hi_db:g} dB")
+            values.append(x)
+        object.__setattr__(self, "ebn0_db", tuple(values))
+        n = _whole("frames", self.n_frames)
+        if not 1 <= n <= MAX_FRAMES:
+            raise LinkError(f"frames {n}: must be within 1–{MAX_FRAMES}")
+        fe = _finite("carrier error", self.freq_error_hz, "Hz")
+        if abs(fe) > MAX_FREQUENCY_HZ:
+            raise LinkError(f"carrier error {fe:g} Hz: must be within ±{MAX_FREQUENCY_HZ:g} Hz")
+        ppm = _finite("clock error", self.clock_ppm, "ppm")
+        if abs(ppm) > MAX_CLOCK_PPM:
+            raise LinkError(f"clock error {ppm:g} ppm: must be within ±{MAX_CLOCK_PPM:g} ppm")
+        if self.gaussian_bt is not None:
+            bt = _finite("gaussian BT", self.gaussian_bt, "")
+            if not GAUSSIAN_BT_RANGE[0] <= bt <= GAUSSIAN_BT_RANGE[1]:
+                raise LinkError(f"gaussian BT {bt:g}: must be within {GAUSSIAN_BT_RANGE[0]:g}–{GAUSSIAN_BT_RANGE[1]:g}")
+        rms = _finite("noise_rms", self.noise_rms, "")
+        if not NOISE_RMS_RANGE[0] <= rms <= NOISE_RMS_RANGE[1]:
+            raise LinkError(f"noise_rms {rms:g}: must be within {NOISE_RMS_RANGE[0]:g}–{NOISE_RMS_RANGE[1]:g}")
         if self.link.capture.sample_rate is None:
             raise LinkError("sample rate not given: set [capture] sample_rate or --rate")
-        lo, hi = self.gap_s
-        if not 0 <= lo <= hi:
-            raise LinkError(f"gap {self.gap_s}: need 0 <= low <= high seconds")
-        if self.preamble_bits < 0:
-            raise LinkError(f"preamble bits {self.preamble_bits}: must be >= 0")
+        lo, hi = (_finite("gap", g, "s") for g in self.gap_s)
+        if not 0 <= lo <= hi <= MAX_GAP_S:
+            raise LinkError(f"gap {lo:g} {hi:g} s: need 0 <= low <= high <= {MAX_GAP_S:g} seconds")
+        lead = _finite("lead", self.lead_s, "s")
+        if not 0 <= lead <= MAX_GAP_S:
+            raise LinkError(f"lead {lead:g} s: must be within 0–{MAX_GAP_S:g} seconds")
+        if self.centre_hz is not None:
+            c = _finite("centre frequency", self.centre_hz, "Hz")
+            if not 0 < c <= MAX_FREQUENCY_HZ:
+                raise LinkError(f"centre frequency {c:g} Hz: must be within (0, {MAX_FREQUENCY_HZ:g}] Hz")
+        pre = _whole("preamble bits", self.preamble_bits)
+        if not 0 <= pre <= MAX_PREAMBLE_BITS:
+            raise LinkError(f"preamble bits {pre}: must be within 0–{MAX_PREAMBLE_BITS}")
+        if self.start_time is not None and (not isinstance(self.start_time, str) or len(self.start_time) > 64):
+            raise LinkError(f"start time {quote(self.start_time)}: must be an RFC 3339 time of at most 64 characters")
+        seed = _whole("seed", self.seed)
+        if not 0 <= seed <= MAX_SEED:
+            raise LinkError(f"seed {quote(seed)}: must be within 0–{MAX_SEED}")
 
     @property
     def datatype(self) -> str:
@@ -165,13 +211,37 @@ class SynthConfig:
         return float(self.link.capture.sample_rate)
 
 
+def _finite(name: str, value, unit: str) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float, np.integer, np.floating)):
+        raise LinkError(f"{name} {quote(value)}: must be a number")
+    try:
+        x = float(value)
+    except OverflowError:
+        x = math.inf
+    if not math.isfinite(x):
+        raise LinkError(f"{name} {quote(value)}{' ' + unit if unit else ''}: must be finite")
+    return x
+
+
+def _whole(name: str, value) -> int:
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)):
+        raise LinkError(f"{name} {quote(value)}: must be a whole number")
+    return int(value)
+
+
 def sigmf_paths(output: str | os.PathLike) -> tuple[Path, Path, Path]:
     """(meta, data, truth) paths for an output base name (a SigMF suffix is stripped)."""
-    p = Path(output)
+    text = os.fspath(output)
+    p = Path(text)
     name = p.name
+    if not name or text.endswith(os.sep) or text == "-":
+        raise OutputError(f"output {quote(text)}: expected a base name such as captures/night (not empty, "
+                          "not a folder, not -)")
     for suffix in (".sigmf-meta", ".sigmf-data", ".sigmf"):
         if name.endswith(suffix):
             name = name[: -len(suffix)]
+    if not name:
+        raise OutputError(f"output {quote(text)}: the base name before the SigMF suffix is empty")
     base = p.with_name(name)
     return (
         base.with_name(name + ".sigmf-meta"),
@@ -277,7 +347,8 @@ def _blocks(cfg: SynthConfig, plans: list[dict], total: int) -> Iterator[np.ndar
         yield block
 
 
-def synthesize(output: str | os.PathLike, cfg: SynthConfig, *, progress: bool = False) -> dict:
+def synthesize(output: str | os.PathLike, cfg: SynthConfig, *, progress: bool = False,
+               inputs: Iterable[tuple[str, str | os.PathLike]] = ()) -> dict:
     """Write a synthetic SigMF capture and its truth file.
 
     Parameters
@@ -288,35 +359,84 @@ def synthesize(output: str | os.PathLike, cfg: SynthConfig, *, progress: bool = 
     cfg : SynthConfig
     progress : bool
         Show a tqdm bar on stderr.
+    inputs : iterable of (role, path)
+        Files this run reads (a link profile): none of the outputs may be one of them.
 
     Returns
     -------
     dict
         The truth document (also written to the truth file).
+
+    Raises
+    ------
+    LinkError
+        For settings out of range, or a burst too long to build within the memory budget.
+    OutputError
+        When an output is an input or another output, or the capture would not fit in the free space.
+
+    Notes
+    -----
+    The three files become visible together: each is written to a temporary
+    file first, then they are renamed data, truth, metadata; if a rename fails
+    the ones done are undone (:class:`iqdemod._io.FileSet`).
     """
     fs = cfg.sample_rate_hz
     offset = cfg.link.check_rate(fs, cfg.centre_hz)
-    parse_datatype(cfg.datatype)
+    edge = abs(offset + cfg.freq_error_hz) + cfg.link.signal.shift_hz / 2
+    if edge >= fs / 2:
+        raise LinkError(f"carrier error {cfg.freq_error_hz:g} Hz: the tones would reach {edge:g} Hz from the "
+                        f"centre, outside the captured band (±{fs / 2:g} Hz)")
+    dt = parse_datatype(cfg.datatype)
     rng = np.random.default_rng(cfg.seed)
     plans = _plan_bursts(cfg, rng)
     total = plans[-1]["start_sample"] + plans[-1]["n_samples"] + int(np.ceil(max(cfg.gap_s[1], 0.01) * fs))
+    longest = max(p["n_samples"] for p in plans)
+    if longest * _BYTES_PER_BURST_SAMPLE > BURST_MEMORY_BUDGET_BYTES:
+        raise LinkError(f"one burst would be {longest} samples ({cfg.link.signal.baud:g} baud at {fs:g} Hz), needing "
+                        f"about {longest * _BYTES_PER_BURST_SAMPLE / 2**30:.3g} GB to build; the budget is "
+                        f"{BURST_MEMORY_BUDGET_BYTES >> 30} GB: raise the baud or lower the rate")
     meta_path, data_path, truth_path = sigmf_paths(output)
     meta_path.parent.mkdir(parents=True, exist_ok=True)
+    check_distinct([("capture metadata", meta_path), ("capture data", data_path), ("truth file", truth_path)],
+                   list(inputs))
+    size = total * dt.sample_bytes
+    target = classify_output(data_path)
+    if target.kind == "file":
+        free = shutil.disk_usage(target.path.parent).free
+        if size > free:
+            raise OutputError(f"{data_path}: the capture would take {size / 1e9:.3g} GB, but only "
+                              f"{free / 1e9:.3g} GB are free there")
     sha = hashlib.sha512()
     bar = None
     if progress:
         from tqdm import tqdm
 
         bar = tqdm(total=total, unit="S", unit_scale=True, desc="synth", leave=False)
-    with atomic_writer(data_path, "wb") as fh:
+    # data, truth, then the metadata that vouches for the data: all three appear together or none
+    with atomic_files() as files:
+        fh = files.open(data_path, "wb")
         for block in _blocks(cfg, plans, total):
             raw = _to_raw(block, cfg.datatype)
             sha.update(raw)
             fh.write(raw)
             if bar is not None:
                 bar.update(len(block))
-    if bar is not None:
-        bar.close()
+        if bar is not None:
+            bar.close()
+        truth, meta = _documents(cfg, plans, meta_path, total, offset, sha.hexdigest())
+        out = files.open(truth_path, "w")
+        json.dump(truth, out, indent=1)
+        out.write("\n")
+        out = files.open(meta_path, "w")
+        json.dump(meta, out, indent=1)
+        out.write("\n")
+    return truth
+
+
+def _documents(cfg: SynthConfig, plans: list[dict], meta_path: Path, total: int, offset: float,
+               sha512: str) -> tuple[dict, dict]:
+    """(truth, SigMF metadata) of a generated capture."""
+    fs = cfg.sample_rate_hz
     start_time = cfg.start_time or datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
     capture = {"core:sample_start": 0, "core:datetime": start_time}
     if cfg.centre_hz is not None:
@@ -328,7 +448,7 @@ def synthesize(output: str | os.PathLike, cfg: SynthConfig, *, progress: bool = 
             "core:version": "1.2.0",
             "core:description": cfg.description,
             "core:recorder": "iqdemod synth",
-            "core:sha512": sha.hexdigest(),
+            "core:sha512": sha512,
         },
         "captures": [capture],
         "annotations": [
@@ -342,9 +462,6 @@ def synthesize(output: str | os.PathLike, cfg: SynthConfig, *, progress: bool = 
             for p in plans
         ],
     }
-    with atomic_writer(meta_path, "w") as fh:
-        json.dump(meta, fh, indent=1)
-        fh.write("\n")
     rate_tx = cfg.link.signal.baud * (1 + cfg.clock_ppm * 1e-6)
     truth = {
         "capture": meta_path.name,
@@ -371,10 +488,7 @@ def synthesize(output: str | os.PathLike, cfg: SynthConfig, *, progress: bool = 
             for p in plans
         ],
     }
-    with atomic_writer(truth_path, "w") as fh:
-        json.dump(truth, fh, indent=1)
-        fh.write("\n")
-    return truth
+    return truth, meta
 
 
 def payload_bit_errors(frames, truth: dict, *, tolerance_symbols: float = 1.0) -> tuple[int, int, int]:
