@@ -33,6 +33,12 @@ def health_text(r) -> str:
     rows = []
     head = (f"{r.capture}: {r.duration_s:.2f} s, {r.bursts} burst(s), {r.frames} frame(s), "
             f"{r.frames_crc_ok} with good CRC")
+    pulse = f"Gaussian BT {r.bt:g}" if r.pulse == "gaussian" else "rectangular pulse"
+    frame = "raw bits (no sync word)" if r.sync_word is None else (
+        f"sync word {r.sync_word} ({r.sync_bits} bits), "
+        + ("length byte" if r.frame_length == "prefix8" else f"{r.frame_length}-byte payload") + f", {r.crc}")
+    head += (f"\n  link: {r.baud:g} Bd, shift {r.shift_hz:g} Hz (h = {r.h:.3g}), {pulse}, {r.detector} detector; "
+             f"{frame}" + (f"\n  recording started {r.start_time}" if r.start_time else ""))
     if r.ebn0_db is not None:
         lo, hi = r.ebn0_db_ci90
         rows.append(("Eb/N0", _db(r.ebn0_db), f"90 % interval {lo:.2f} … {hi:.2f} dB, {r.ebn0_method}"))

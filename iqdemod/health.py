@@ -98,6 +98,11 @@ class HealthReport:
     image_rejection_db: float | None = None
     image_rejection_after_db: float | None = None
     pb_model: str = "noncoherent-fsk"
+    shift_hz: float | None = None
+    sync_word: str | None = None
+    sync_bits: int | None = None
+    frame_length: int | str | None = None
+    crc: str | None = None
     pulse: str = "rect"
     bt: float | None = None
     detector: str = "per-symbol"
@@ -204,6 +209,7 @@ class HealthAccumulator:
         if not 0 < target_ber < 0.5:
             raise IqdemodError(f"target BER {target_ber:g}: must be within (0, 0.5)")
         plan = self.plan
+        spec = plan.link.frame
         sig = plan.link.signal
         corr = _correction_db(plan)
         symbol_t = 1.0 / sig.baud
@@ -278,6 +284,9 @@ class HealthAccumulator:
             mismatch_loss_db=mismatch, clipped_fraction=float(clipped_fraction), h=sig.h, baud=sig.baud, frame_bits=frame_bits,
             decision_gain_db=-corr, warnings=tuple(warnings), start_time=start_time,
             **_front_end_fields(front_end),
+            shift_hz=sig.shift_hz, sync_word=None if spec.sync_word is None else f"{spec.sync_word:#x}",
+            sync_bits=None if spec.sync_word is None else spec.sync_bits,
+            frame_length=None if spec.raw else spec.length, crc=None if spec.raw else spec.crc,
             pb_model=_pb_model(plan), pulse=sig.pulse, bt=sig.bt if sig.pulse == "gaussian" else None,
             detector="multi-symbol" if plan.sequence is not None else "per-symbol",
             detector_symbols=sig.detector_symbols if plan.sequence is not None else None,

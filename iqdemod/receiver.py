@@ -26,6 +26,7 @@ from .bursts import RawBurst
 from .capture import Capture, CaptureInfo, DEFAULT_BLOCK_SAMPLES, open_capture
 from .channel import FrontEndReport, channelize, flush_channel, front_end_report
 from .demod import Burst, Frame, demodulate_burst, drop_repeats
+from .errors import IqdemodError, quote
 from .link import Link
 from .plan import ReceiverPlan, plan_receiver
 from .sync import sync_candidates
@@ -189,16 +190,22 @@ def decode(
     block_samples: int = DEFAULT_BLOCK_SAMPLES,
     progress: bool = False,
     summary: DecodeSummary | None = None,
+    start_time: str | None = None,
 ) -> Iterator[Frame]:
     """Decode the frames of a capture, in time order.
 
     Parameters
     ----------
     path : str, Path or Capture
-        A capture file (see :func:`iqdemod.open_capture`) or an open capture.
+        A capture file (see :func:`iqdemod.open_capture`) or an open capture
+        (also a :class:`iqdemod.live.LiveCapture` read as it arrives).
     link : Link
         From :func:`iqdemod.load_link`. Its ``capture`` table supplies datatype
         and rate for raw files.
+    start_time : str, optional
+        When the capture began (RFC 3339, e.g. ``2026-11-30T22:15:07Z``), for
+        raw files that do not say; it overrides a SigMF ``core:datetime``.
+        Frames then carry ``time_utc``.
 
     Yields
     ------
@@ -212,6 +219,11 @@ def decode(
         cap = path if isinstance(path, Capture) else stack.enter_context(
             open_capture(path, datatype=link.capture.datatype, sample_rate=link.capture.sample_rate)
         )
+        if start_time is not None:
+            if _parse_utc(start_time) is None:
+                raise IqdemodError(f"start time {quote(start_time)}: expected an RFC 3339 time such as "
+                                   "2026-11-30T22:15:07Z")
+            cap.info = dataclasses.replace(cap.info, start_time=start_time)
         for burst in iter_bursts(cap, link, block_samples=block_samples, progress=progress):
             if summary is not None:
                 summary.add(burst)
