@@ -277,7 +277,8 @@ def _transmissions(raw: RawBurst, x: np.ndarray, raw_start: int, found: list[tup
             continue  # a sync-like pattern inside a frame already decoded
         a = max(0, int(np.floor(pos - PREAMBLE_SYMBOLS * T)))
         b = min(len(x), int(np.ceil(pos + (spec.max_bits + 2) * T)))
-        burst = _one_transmission(raw, x, raw_start, a, b, pos, plan, capture, delta0, sums0)
+        burst = _one_transmission(raw, x, raw_start, a, b, pos, plan, capture, delta0, sums0,
+                                  alone=len(found) == 1)
         if burst is None:
             continue
         if spec.length == "prefix8" and burst.frames and burst.frames[0].crc_ok:
@@ -306,14 +307,17 @@ def _transmissions(raw: RawBurst, x: np.ndarray, raw_start: int, found: list[tup
 
 
 def _one_transmission(raw: RawBurst, x: np.ndarray, raw_start: int, a: int, b: int, sync_pos: float,
-                      plan: ReceiverPlan, capture: str, delta0: float, sums0: np.ndarray) -> Burst | None:
+                      plan: ReceiverPlan, capture: str, delta0: float, sums0: np.ndarray, *,
+                      alone: bool = False) -> Burst | None:
     """Carrier, timing and frame of the transmission whose sync word starts at `sync_pos` in x[a:b]."""
     sig = plan.link.signal
     rate = plan.rate_hz
     seg = x[a:b]
     if len(seg) < 4 * plan.period:
         return None
-    delta = coarse_offset(seg, rate, baud=sig.baud, shift_hz=sig.shift_hz, pull_in_hz=sig.pull_in_hz)
+    # alone in its buffer, the transmission's carrier is the buffer's: no second look
+    delta = delta0 if alone else coarse_offset(seg, rate, baud=sig.baud, shift_hz=sig.shift_hz,
+                                               pull_in_hz=sig.pull_in_hz)
     if abs(delta - delta0) < sig.baud / 1024:  # the buffer's own estimate: reuse its running sums
         sums = sums0[:, a : b + 1] - sums0[:, a : a + 1]
     else:

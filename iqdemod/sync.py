@@ -17,6 +17,7 @@ if TYPE_CHECKING:
 
 __all__ = ["sync_candidates", "sync_scores", "merge_candidates", "SYNC_THRESHOLD"]
 
+SCORE_STEP = 2  # samples between the sync search's score evaluations
 SYNC_THRESHOLD = 0.5  # a candidate needs half the score of a noise-free sync word; a candidate costs only a look
 
 
@@ -49,6 +50,11 @@ def sync_candidates(sums: np.ndarray, plan: ReceiverPlan, *, threshold: float = 
         return []
     radius = max(1, int(len(sync_symbols(plan.link.frame)) * plan.period / 2))
     out: list[tuple[float, float]] = []
+    # only local maxima can be candidates (a peak is some samples wide): few to look at in Python
+    inner = above[(above > 0) & (above < len(norm) - 1)]
+    peaks = inner[(norm[inner] >= norm[inner - 1]) & (norm[inner] >= norm[inner + 1])]
+    edges = above[(above == 0) | (above == len(norm) - 1)]
+    above = np.concatenate([peaks, edges])
     order = above[np.argsort(-norm[above], kind="stable")]
     taken = np.zeros(len(norm), bool)
     for t in order:
@@ -71,7 +77,12 @@ def merge_candidates(a: list[tuple[float, float]], b: list[tuple[float, float]],
 
 
 def sync_scores(sums: np.ndarray, plan: ReceiverPlan) -> np.ndarray:
-    """The normalised sync-word score at every start sample (see :func:`sync_candidates`)."""
+    """The normalised sync-word score at every start sample (see :func:`sync_candidates`).
+
+    The score is evaluated every ``SCORE_STEP`` samples (a sync word's peak is
+    several samples wide, and its position is refined by the transmission's
+    own timing) and held in between.
+    """
     T = plan.period
     pattern = sync_symbols(plan.link.frame).astype(np.float64) * 2 - 1
     n_sync = len(pattern)
@@ -82,15 +93,18 @@ def sync_scores(sums: np.ndarray, plan: ReceiverPlan) -> np.ndarray:
     if m - span < 1:
         return np.zeros(0)
     frac = T - whole
-    z = (1.0 - frac) * sums[:, whole : whole + m] + frac * sums[:, whole + 1 : whole + 1 + m] - sums[:, :m]
+    k = SCORE_STEP
+    z = ((1.0 - frac) * sums[:, whole : whole + m : k] + frac * sums[:, whole + 1 : whole + 1 + m : k]
+         - sums[:, :m:k])
     p = z.real**2 + z.imag**2
     d = p[1] - p[0]
     e = p[1] + p[0]
-    offsets = np.round(np.arange(n_sync) * T).astype(np.intp)
-    width = m - span
+    offsets = np.round(np.arange(n_sync) * T / k).astype(np.intp)
+    width = (m - span - 1) // k + 1
+    width = min(width, len(d) - int(offsets[-1]))
     score = np.zeros(width)
     energy = np.zeros(width)
     for s_i, o in zip(pattern, offsets):
         score += s_i * d[o : o + width]
         energy += e[o : o + width]
-    return score / np.maximum(energy, 1e-300)
+    return np.repeat(score / np.maximum(energy, 1e-300), k)[: m - span]
