@@ -334,52 +334,54 @@ def _kaiser(ripple_db: float, width: float) -> tuple[int, float]:
     return n | 1, beta
 
 
-def _block(plan: ChannelPlan, xb: np.ndarray, new: int, moments: FrontEndMoments,
-           block_start: int, spec: np.ndarray | None = None) -> tuple[np.ndarray, FrontEndMoments]:
-    """One overlap-save block.
+def _step(moments: FrontEndMoments, mean: complex, dc: complex, power: float, pseudo: complex, new: int
+          ) -> tuple[FrontEndMoments, complex]:
+    """The running moments after one block, and the IQ compensator w its samples get.
 
-    `xb` holds N samples from global index `block_start` on; the `new` samples
-    after the lead are fresh. Samples before index 0 (the first block) and
-    after the input's end (the last one) are zeros that must stay zeros.
-    `spec`, when given, is the FFT of a whole block already taken (in a batch);
-    the block's spectrum is changed in place.
+    `power` and `pseudo` are the block's own Σ|x − dc|² and Σ(x − dc)² over its
+    `new` samples. The imbalance is corrected only once the moments can tell it
+    from their own noise: for a circular signal |ΣP|/ΣC has a standard error
+    of about 1/√n, and a correction fitted to that noise would add an image
+    rather than remove one.
     """
+    c_tot, p_tot = moments.power + power, moments.pseudo + pseudo
+    n_tot = moments.n + new
+    w = _compensator(c_tot, p_tot) if abs(p_tot) > IMBALANCE_SIGMAS * c_tot / math.sqrt(max(n_tot, 1)) else 0j
+    # what the correction leaves: y = x − w·x* has E y² = P − 2wC + w²P*, E|y|² = (1 + |w|²)C − 2Re(w*P)
+    p_after = pseudo - 2 * w * power + w * w * pseudo.conjugate()
+    c_after = (1 + abs(w) ** 2) * power - 2 * (w.conjugate() * pseudo).real
+    return FrontEndMoments(
+        blocks=moments.blocks + 1, dc_estimate=dc, n=n_tot, dc_sum=moments.dc_sum + mean * new,
+        power=c_tot, pseudo=p_tot, pseudo_after=moments.pseudo_after + p_after,
+        power_after=moments.power_after + c_after,
+    ), w
+
+
+def _dc_line(moments: FrontEndMoments, mean: complex) -> complex:
+    """The DC line after a block of this mean: block means averaged over the last DC_BLOCKS blocks
+    (all of them at first), so that a signal sitting on the centre keeps its own low frequencies."""
+    weight = max(1.0 / (moments.blocks + 1), 1.0 / DC_BLOCKS)
+    return moments.dc_estimate + weight * (mean - moments.dc_estimate)
+
+
+def _block(plan: ChannelPlan, xb: np.ndarray, new: int, moments: FrontEndMoments,
+           block_start: int) -> tuple[np.ndarray, FrontEndMoments]:
+    """One overlap-save block that is not all input: the stream's first (zeros before sample 0)
+    or its last (zeros after the end). `xb` holds N samples from global index `block_start` on;
+    the `new` samples after the lead are fresh. The zeros must stay zeros, so the DC line is
+    removed in time from the real samples only."""
     from scipy import fft as _fft
 
     n = plan.fft_size
     lo = max(0, -block_start)
     hi = n - plan.hop + new
-    whole = lo == 0 and hi == n
-    if whole:
-        if spec is None:
-            spec = _fft.fft(xb)
-        mean = complex(spec[0]) / n
-    else:  # a partial block (the first or the last): the mean of its real samples only
-        mean = complex(xb[lo:hi].mean()) if hi > lo else 0j
-    # The DC line: block means averaged over the last DC_BLOCKS blocks (all of them at first),
-    # so that a signal sitting on the centre keeps its own low frequencies.
-    weight = max(1.0 / (moments.blocks + 1), 1.0 / DC_BLOCKS)
-    dc = moments.dc_estimate + weight * (mean - moments.dc_estimate)
-    if whole:
-        spec[0] -= np.complex64(n * dc)  # x − dc, for free
-    else:
-        xb = xb.copy()
-        xb[lo:hi] -= np.complex64(dc)
-        spec = _fft.fft(xb)
-    # moments of the new samples about the DC line (their sum taken as `new` times the block mean)
+    mean = complex(xb[lo:hi].mean()) if hi > lo else 0j
+    dc = _dc_line(moments, mean)
+    xb = xb.copy()
+    xb[lo:hi] -= np.complex64(dc)
+    spec = _fft.fft(xb)
     fresh = xb[n - plan.hop : n - plan.hop + new]
-    if whole:
-        power = float(np.vdot(fresh, fresh).real) - 2 * new * (dc.conjugate() * mean).real + new * abs(dc) ** 2
-        pseudo = complex(np.dot(fresh, fresh)) - 2 * new * dc * mean + new * dc * dc
-    else:  # already centred
-        power = float(np.vdot(fresh, fresh).real)
-        pseudo = complex(np.dot(fresh, fresh))
-    c_tot, p_tot = moments.power + power, moments.pseudo + pseudo
-    n_tot = moments.n + new
-    # Correct only an imbalance the moments can tell from their own noise: for a circular
-    # signal |ΣP|/ΣC has a standard error of about 1/√n, and a correction fitted to that noise
-    # would add an image rather than remove one.
-    w = _compensator(c_tot, p_tot) if abs(p_tot) > IMBALANCE_SIGMAS * c_tot / math.sqrt(max(n_tot, 1)) else 0j
+    moments, w = _step(moments, mean, dc, float(np.vdot(fresh, fresh).real), complex(np.dot(fresh, fresh)), new)
     sel, mirror, resp = plan.bins
     y_spec = spec[sel]
     if abs(w) > 1e-9:
@@ -388,20 +390,46 @@ def _block(plan: ChannelPlan, xb: np.ndarray, new: int, moments: FrontEndMoments
     # the mix was relative to the block start: bring it to the global sample index
     turn = (plan.centre_bin * block_start) % n
     y *= np.complex64(np.exp(-2j * np.pi * turn / n))
-    # what the correction leaves: y = x − w·x* has E y² = P − 2wC + w²P*, E|y|² = (1 + |w|²)C − 2Re(w*P)...
-    p_after = pseudo - 2 * w * power + w * w * pseudo.conjugate()
-    c_after = (1 + abs(w) ** 2) * power - 2 * (w.conjugate() * pseudo).real
-    moments = FrontEndMoments(
-        blocks=moments.blocks + 1,
-        dc_estimate=dc,
-        n=moments.n + new,
-        dc_sum=moments.dc_sum + mean * new,
-        power=c_tot,
-        pseudo=p_tot,
-        pseudo_after=moments.pseudo_after + p_after,
-        power_after=moments.power_after + c_after,
-    )
     return y, moments
+
+
+def _whole_blocks(plan: ChannelPlan, rows: np.ndarray, moments: FrontEndMoments, n_out: int
+                  ) -> tuple[np.ndarray, FrontEndMoments]:
+    """Overlap-save blocks that are whole input (no zeros before or after), as rows of one array.
+
+    The same arithmetic as :func:`_block`, done for all rows at once: one FFT,
+    one gather, one inverse FFT. Only the running DC line and IQ moments go
+    block by block, in order. `n_out` is the index of the first row's first output.
+    """
+    from scipy import fft as _fft
+
+    n, hop, d = plan.fft_size, plan.hop, plan.decimation
+    lead = n - hop
+    count = rows.shape[0]
+    specs = _fft.fft(rows, axis=1, workers=FFT_WORKERS)
+    means = specs[:, 0].astype(np.complex128) / n
+    ws = np.zeros(count, np.complex128)
+    dcs = np.zeros(count, np.complex128)
+    for r in range(count):
+        mean = complex(means[r])
+        dc = _dc_line(moments, mean)
+        fresh = rows[r, lead:]  # their moments about the DC line (their sum taken as hop × the block mean)
+        power = float(np.vdot(fresh, fresh).real) - 2 * hop * (dc.conjugate() * mean).real + hop * abs(dc) ** 2
+        pseudo = complex(np.dot(fresh, fresh)) - 2 * hop * dc * mean + hop * dc * dc
+        moments, ws[r] = _step(moments, mean, dc, power, pseudo, hop)
+        dcs[r] = dc
+    specs[:, 0] -= (n * dcs).astype(np.complex64)  # x − dc, for free
+    sel, mirror, resp = plan.bins
+    y_spec = specs[:, sel]
+    if np.any(np.abs(ws) > 1e-9):
+        y_spec -= ws.astype(np.complex64)[:, None] * np.conj(specs[:, mirror])
+    y_spec *= resp
+    y = _fft.ifft(y_spec, axis=1, workers=FFT_WORKERS)[:, plan.lead_outputs :]
+    # the mix was relative to each block's start: bring it to the global sample index
+    starts = (n_out + np.arange(count) * (hop // d)) * d - lead
+    turns = (plan.centre_bin * starts) % n
+    y *= np.exp(-2j * np.pi * turns / n).astype(np.complex64)[:, None]
+    return y.reshape(-1), moments
 
 
 def channelize(x: np.ndarray, plan: ChannelPlan, state: ChannelState) -> tuple[np.ndarray, ChannelState]:
@@ -453,21 +481,19 @@ def _advance(x: np.ndarray, plan: ChannelPlan, state: ChannelState, *, final: bo
     pos = 0
     while True:
         avail = total - pos
-        if avail >= n and pos >= len(held):
-            # several whole blocks inside this read: one FFT call for all of them (rows overlap)
-            count = min(BATCH, (avail - n) // hop + 1)
-            first = pos - len(held)
-            rows = np.lib.stride_tricks.as_strided(x[first:], shape=(count, n),
-                                                   strides=(hop * x.strides[0], x.strides[0]), writeable=False)
-            from scipy import fft as _fft
-
-            specs = _fft.fft(rows, axis=1, workers=FFT_WORKERS)
-            for r in range(count):
-                block_start = n_out * d - lead
-                y, moments = _block(plan, rows[r], hop, moments, block_start, spec=specs[r])
-                out.append(y)
-                n_out += len(y)
-                pos += hop
+        if avail >= n and n_out * d - lead >= 0:  # a block after the first: all input, no leading zeros
+            # whole blocks of input: one FFT call for up to BATCH of them (rows overlap)
+            if pos >= len(held):
+                count = min(BATCH, (avail - n) // hop + 1)
+                first = pos - len(held)
+                rows = np.lib.stride_tricks.as_strided(x[first:], shape=(count, n),
+                                                       strides=(hop * x.strides[0], x.strides[0]), writeable=False)
+            else:  # one block across the held samples and this read
+                count, rows = 1, take(pos, pos + n)[None, :]
+            y, moments = _whole_blocks(plan, rows, moments, n_out)
+            out.append(y)
+            n_out += len(y)
+            pos += count * hop
             continue
         if avail >= n:
             xb, new = take(pos, pos + n), hop
