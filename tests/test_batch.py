@@ -159,8 +159,13 @@ def test_acceptance_report(local_run, archive):
                 "margin_db", "size_bytes", "mtime_ns"):
         assert all(r[col] != "" for r in good), col
     tx = {int(Path(r["capture"]).name[3:5]): r["transmitter"] for r in good}  # odd: +300 Hz, even: +2500 Hz
-    assert {v for k, v in tx.items() if k % 2} == {tx[1]} and tx[1].startswith("tx1 (+3")
-    assert {v for k, v in tx.items() if not k % 2} == {tx[0]} and tx[0].startswith("tx2 (+25")
+    def label_hz(label: str) -> float:  # "tx2 (+2499 Hz)" -> 2499.0
+        return float(label.split("(")[1].split(" Hz")[0])
+
+    assert {v for k, v in tx.items() if k % 2} == {tx[1]} and tx[1].startswith("tx1 (")
+    assert {v for k, v in tx.items() if not k % 2} == {tx[0]} and tx[0].startswith("tx2 (")
+    # each label carries its transmitter's measured carrier error (the generator's +300 and +2500 Hz)
+    assert label_hz(tx[1]) == pytest.approx(300, abs=50) and label_hz(tx[0]) == pytest.approx(2500, abs=50)
     recs = read_jsonl(frames)
     assert len(recs) == sum(int(r["frame_records"]) for r in rows) == 32
     assert {r["capture"] for r in recs} == {r["capture"] for r in good}
