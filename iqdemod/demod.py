@@ -248,6 +248,12 @@ def demodulate_burst(raw: RawBurst, plan: ReceiverPlan, *, capture: str = "") ->
     delta = coarse_offset(core, rate, baud=sig.baud, shift_hz=sig.shift_hz, pull_in_hz=sig.pull_in_hz)
     sums = tone_sums(x, rate, plan.tones_hz, offset_hz=delta)
     if not plan.link.frame.raw:
+        if plan.sequence is None and len(x) < 1.6 * plan.link.frame.max_bits * plan.period:
+            # Too short to hold two frames: the buffer is one transmission, synchronised whole (the
+            # quick way); only when that finds no good frame are its sync words looked for.
+            whole = _whole(raw, x, raw_start, (core0, core1), plan, capture, delta, sums, 0)
+            if any(f.crc_ok for b in whole for f in b.frames):
+                return whole
         found = sync_candidates(sums, plan)
         if len(x) > 1.5 * plan.link.frame.max_bits * plan.period:
             # Several transmissions may share the buffer, each with its own carrier error, and
