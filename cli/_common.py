@@ -27,7 +27,7 @@ class Finite(click.FloatRange):
     def _describe_range(self) -> str:
         lo = "" if self.min is None or self.min <= -sys.float_info.max else f"{self.min:g}{'<' if self.min_open else '<='}"
         hi = "" if self.max is None or self.max >= sys.float_info.max else f"{'<' if self.max_open else '<='}{self.max:g}"
-        return f"{lo}x{hi}"
+        return f"{lo}x{hi}" if lo or hi else "finite"
 
     def convert(self, value, param, ctx):
         rv = super().convert(value, param, ctx)
