@@ -60,6 +60,31 @@ class OutputTarget:
     exists: bool
 
 
+def read_small_text(path: str | os.PathLike, limit: int, error: type[Exception], where: str, what: str,
+                    *, regular_only: bool = False) -> str:
+    """A small text file (metadata, a profile) read whole, but never more than `limit` bytes.
+
+    Reading at most limit + 1 bytes keeps an endless file (a link to /dev/zero) from filling
+    memory; `error` (the package's own, e.g. CaptureError) says what went wrong, `where` first
+    and `what` naming the kind of file.
+    """
+    try:
+        if regular_only and not stat.S_ISREG(os.stat(path).st_mode):
+            raise error(f"{where}: {what} is not a regular file (a FIFO, device or folder)")
+        with open(path, "rb") as fh:  # a FIFO (a shell's <(…)) works too where allowed; the cap stops an endless one
+            data = fh.read(limit + 1)
+    except FileNotFoundError:
+        raise error(f"{where}: {what} missing (no such file)") from None
+    except OSError as exc:
+        raise error(f"{where}: cannot read {what} ({exc.strerror or exc.__class__.__name__})") from None
+    if len(data) > limit:
+        raise error(f"{where}: {what} larger than {limit >> 20} MB: refused")
+    try:
+        return data.decode("utf-8")
+    except UnicodeDecodeError:
+        raise error(f"{where}: cannot read {what} (not UTF-8 text)") from None
+
+
 def classify_output(path: str | os.PathLike) -> OutputTarget:
     """Decide how `path` is written (see the module notes).
 

@@ -25,7 +25,6 @@ import json
 import math
 import os
 import re
-import stat
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
@@ -33,6 +32,7 @@ from typing import Iterator
 
 import numpy as np
 
+from ._io import read_small_text
 from .errors import CaptureError, quote
 
 __all__ = [
@@ -504,22 +504,7 @@ def read_sigmf_meta(meta_path: Path) -> dict:
         JSON, missing required objects or keys, or bad values.
     """
     where = str(meta_path)
-    try:
-        st = os.stat(meta_path)
-        if not stat.S_ISREG(st.st_mode):
-            raise CaptureError(f"{where}: SigMF metadata is not a regular file (a FIFO, device or folder)")
-        with open(meta_path, "rb") as fh:
-            data = fh.read(MAX_META_BYTES + 1)
-    except FileNotFoundError:
-        raise CaptureError(f"{where}: SigMF metadata file missing") from None
-    except OSError as exc:
-        raise CaptureError(f"{where}: cannot read SigMF metadata ({exc.strerror or exc.__class__.__name__})") from None
-    if len(data) > MAX_META_BYTES:
-        raise CaptureError(f"{where}: SigMF metadata larger than {MAX_META_BYTES // (1 << 20)} MB: refused")
-    try:
-        text = data.decode("utf-8")
-    except UnicodeDecodeError:
-        raise CaptureError(f"{where}: cannot read SigMF metadata (not UTF-8 text)") from None
+    text = read_small_text(meta_path, MAX_META_BYTES, CaptureError, where, "SigMF metadata file", regular_only=True)
     return parse_sigmf_meta(text, where)
 
 

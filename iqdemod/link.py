@@ -38,6 +38,7 @@ from typing import Any, Mapping
 from .coding import BIT_ORDERS, CODINGS, WHITENINGS, symbols_per_bit
 from .capture import MAX_SAMPLE_RATE_HZ
 from .crc import crc_spec
+from ._io import read_small_text
 from .errors import LinkError, quote
 
 __all__ = ["CaptureFormat", "SignalSpec", "FrameSpec", "Link", "load_link", "link_to_toml"]
@@ -559,19 +560,7 @@ def load_link(path: str | Path | None = None, **overrides: Any) -> Link:
         return _apply_overrides(tables, overrides)
     p = Path(path)
     where = f"link profile {quote(str(p))}"
-    try:
-        with open(p, "rb") as fh:  # a FIFO (a shell's <(…)) works too; the cap stops an endless one
-            data = fh.read(MAX_PROFILE_BYTES + 1)
-    except FileNotFoundError:
-        raise LinkError(f"{where}: no such file") from None
-    except OSError as exc:
-        raise LinkError(f"{where}: cannot read it ({exc.strerror or exc.__class__.__name__})") from None
-    if len(data) > MAX_PROFILE_BYTES:
-        raise LinkError(f"{where}: larger than {MAX_PROFILE_BYTES >> 20} MB, not a link profile")
-    try:
-        text = data.decode("utf-8")
-    except UnicodeDecodeError:
-        raise LinkError(f"{where}: cannot read it (not UTF-8 text)") from None
+    text = read_small_text(p, MAX_PROFILE_BYTES, LinkError, where, "file")
     try:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
