@@ -822,9 +822,10 @@ def _one_math_thread() -> int:
     """
     import ctypes
 
-    from . import channel
+    from . import channel, receiver
 
     channel.FFT_WORKERS = 1  # the front end's FFT threads, likewise
+    receiver.PIPELINE = False  # and its read-ahead thread
     try:
         with open("/proc/self/maps", encoding="utf-8") as fh:
             paths = {line.split(None, 5)[5].strip() for line in fh if line.count(" ") >= 5 and "/" in line}

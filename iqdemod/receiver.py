@@ -16,6 +16,8 @@ from __future__ import annotations
 import contextlib
 import dataclasses
 import datetime
+import queue
+import threading
 from pathlib import Path
 from typing import Iterator
 
@@ -78,17 +80,28 @@ class Receiver:
 
     def feed(self, block: np.ndarray) -> list[Burst]:
         """Process one block of input samples; return the bursts it completed."""
-        y, self._tuner = channelize(block, self.plan.tuner, self._tuner)
-        found, self._detector = _bursts.detect(y, self.plan.detector, self._detector)
-        return [burst for raw in found for burst in self._finish(raw)]
+        return self.take(self.tune(block))
 
     def flush(self) -> list[Burst]:
         """End of input: hand out the bursts still open."""
-        y, self._tuner = flush_channel(self.plan.tuner, self._tuner)
-        found, self._detector = _bursts.detect(y, self.plan.detector, self._detector)
-        bursts = [burst for raw in found for burst in self._finish(raw)]
+        bursts = self.take(self.tune_end())
         found, self._detector = _bursts.flush(self.plan.detector, self._detector)
         return bursts + [burst for raw in found for burst in self._finish(raw)]
+
+    def tune(self, block: np.ndarray) -> np.ndarray:
+        """The front end alone on one block: its channel samples (the first half of :meth:`feed`)."""
+        y, self._tuner = channelize(block, self.plan.tuner, self._tuner)
+        return y
+
+    def tune_end(self) -> np.ndarray:
+        """The front end's last channel samples, at the end of input."""
+        y, self._tuner = flush_channel(self.plan.tuner, self._tuner)
+        return y
+
+    def take(self, y: np.ndarray) -> list[Burst]:
+        """Channel samples in, the bursts they completed out (the second half of :meth:`feed`)."""
+        found, self._detector = _bursts.detect(y, self.plan.detector, self._detector)
+        return [burst for raw in found for burst in self._finish(raw)]
 
     @property
     def front_end(self) -> FrontEndReport:
@@ -172,15 +185,70 @@ def drive(rx: "Receiver", capture: Capture, *, block_samples: int = DEFAULT_BLOC
 
         bar = tqdm(total=capture.info.n_samples or None, unit="S", unit_scale=True, desc=Path(capture.info.path).name,
                    leave=False, delay=1.0)
-    try:
+    def channel() -> Iterator[tuple[np.ndarray, int]]:
         for block in capture.blocks(block_samples):
-            yield from rx.feed(block)
-            if bar is not None:
-                bar.update(len(block))
-        yield from rx.flush()
+            yield rx.tune(block), len(block)
+        yield rx.tune_end(), 0
+
+    # Reading and the front end run one block ahead in a second thread while this one
+    # demodulates: the FFTs and reads release the interpreter lock, the per-burst work
+    # mostly holds it, so both cores work. The order of everything is unchanged.
+    source = _ahead(channel()) if PIPELINE else channel()
+    try:
+        for y, n in source:
+            yield from rx.take(y)
+            if bar is not None and n:
+                bar.update(n)
+        found, rx._detector = _bursts.flush(rx.plan.detector, rx._detector)
+        for raw in found:
+            yield from rx._finish(raw)
     finally:
+        if hasattr(source, "close"):
+            source.close()
         if bar is not None:
             bar.close()
+
+
+PIPELINE = True  # batch workers, one process per core, turn this off
+
+
+def _ahead(items: Iterator, depth: int = 2) -> Iterator:
+    """`items` produced by a second thread, at most `depth` ahead; its exceptions come through here."""
+    done = object()
+    slots: queue.Queue = queue.Queue(maxsize=depth)
+    stop = threading.Event()
+
+    def put(item) -> bool:
+        while not stop.is_set():
+            try:
+                slots.put(item, timeout=0.1)
+                return True
+            except queue.Full:
+                continue
+        return False
+
+    def run() -> None:
+        try:
+            for item in items:
+                if not put((None, item)):
+                    return
+            put((None, done))
+        except BaseException as exc:  # handed to the consumer, raised there
+            put((exc, None))
+
+    worker = threading.Thread(target=run, name="iqdemod-front-end", daemon=True)
+    worker.start()
+    try:
+        while True:
+            exc, item = slots.get()
+            if exc is not None:
+                raise exc
+            if item is done:
+                return
+            yield item
+    finally:
+        stop.set()
+        worker.join(timeout=5.0)
 
 
 def decode(
