@@ -35,6 +35,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Mapping
 
+import numpy as np
+
 from .coding import BIT_ORDERS, CODINGS, WHITENINGS, symbols_per_bit
 from .capture import MAX_SAMPLE_RATE_HZ
 from .crc import crc_spec
@@ -66,18 +68,26 @@ BURST_BUFFER_BUDGET_BYTES = 256 << 20
 MAX_FILTER_TAPS = 1_000_000
 
 
-def _number(name: str, value: Any, *, limit: float = MAX_FREQUENCY_HZ) -> float:
-    if isinstance(value, bool) or not isinstance(value, (int, float)):
+def finite_number(name: str, value: Any, *, limit: float = math.inf, unit: str = "") -> float:
+    """`value` as a finite float within ±`limit`, or a LinkError naming `name` (and the value, cut short).
+
+    Python and numpy numbers are accepted; a bool is not a number here.
+    """
+    if isinstance(value, bool) or not isinstance(value, (int, float, np.integer, np.floating)):
         raise LinkError(f"{name} {quote(value)}: must be a number")
     try:
         x = float(value)
     except OverflowError:
         x = math.inf
     if not math.isfinite(x):
-        raise LinkError(f"{name} {quote(value)}: must be finite")
+        raise LinkError(f"{name} {quote(value)}{' ' + unit if unit else ''}: must be finite")
     if abs(x) > limit:
         raise LinkError(f"{name} {x:g}: must be within ±{limit:g}")
     return x
+
+
+def _number(name: str, value: Any, *, limit: float = MAX_FREQUENCY_HZ) -> float:
+    return finite_number(name, value, limit=limit)
 
 
 def _hex(word: int) -> str:

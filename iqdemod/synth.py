@@ -22,7 +22,6 @@ from __future__ import annotations
 
 import hashlib
 import json
-import math
 import os
 import shutil
 from dataclasses import dataclass
@@ -36,7 +35,7 @@ from scipy.signal import fftconvolve
 from .capture import parse_datatype
 from .errors import LinkError, OutputError, quote
 from .framing import PREAMBLE_BITS, frame_symbols
-from .link import MAX_FREQUENCY_HZ, Link
+from .link import MAX_FREQUENCY_HZ, Link, finite_number
 from ._io import atomic_files, check_distinct, classify_output
 
 __all__ = ["SynthConfig", "synthesize", "fsk_burst", "amplitude_for_ebn0", "sigmf_paths", "payload_bit_errors"]
@@ -212,15 +211,7 @@ class SynthConfig:
 
 
 def _finite(name: str, value, unit: str) -> float:
-    if isinstance(value, bool) or not isinstance(value, (int, float, np.integer, np.floating)):
-        raise LinkError(f"{name} {quote(value)}: must be a number")
-    try:
-        x = float(value)
-    except OverflowError:
-        x = math.inf
-    if not math.isfinite(x):
-        raise LinkError(f"{name} {quote(value)}{' ' + unit if unit else ''}: must be finite")
-    return x
+    return finite_number(name, value, unit=unit)
 
 
 def _whole(name: str, value) -> int:
