@@ -252,3 +252,13 @@ def test_other_commands_fail_cleanly_too(bad_inputs, args, message):
     assert res.exit_code == 1, res.output
     assert res.stderr.startswith("Error: ") and message in res.stderr and "Traceback" not in res.stderr
     assert len(res.stderr.strip().splitlines()) == 1
+
+
+def test_python_dash_m_lists_every_command():
+    """`python -m iqdemod_cli` is the same command line as the installed script."""
+    import subprocess
+    import sys
+
+    out = subprocess.run([sys.executable, "-m", "iqdemod_cli", "--help"], capture_output=True, text=True, check=True)
+    for name in ("batch", "curves", "decode", "health", "survey", "synth"):
+        assert f"  {name} " in out.stdout
