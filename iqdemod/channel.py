@@ -301,7 +301,7 @@ def channel_size(sample_rate_hz: float, signal: SignalSpec) -> tuple[int, int, i
     stopband = min(stopband, out_rate / 2)
     if stopband - passband < 1e-3 * fs:  # no room for a transition: the capture band is the channel
         passband = max(stopband - 1e-3 * fs, 0.0)
-    n_taps, _ = _kaiser(STOPBAND_DB, (stopband - passband) / (fs / 2))
+    n_taps = _kaiser_taps(STOPBAND_DB, (stopband - passband) / (fs / 2))
     target = max(MIN_FFT, 8 * n_taps)
     bins = 1 << max(1, math.ceil(math.log2(target / decimation)))
     return decimation, n_taps, bins * decimation, passband, stopband
@@ -318,20 +318,20 @@ def plan_channel(sample_rate_hz: float, signal: SignalSpec, offset_hz: float) ->
     """
     fs = float(sample_rate_hz)
     decimation, n_taps, fft_size, passband, stopband = channel_size(fs, signal)
-    _, beta = _kaiser(STOPBAND_DB, (stopband - passband) / (fs / 2))
     from scipy import signal as _sig  # filter design only
 
+    beta = _sig.kaiser_beta(STOPBAND_DB)  # Kaiser's β depends on the attenuation alone
     taps = _sig.firwin(n_taps, (passband + stopband) / 2, window=("kaiser", beta), fs=fs)
     taps = taps / taps.sum()
     return ChannelPlan(fs, float(offset_hz), decimation, taps, passband, stopband, fft_size)
 
 
-def _kaiser(ripple_db: float, width: float) -> tuple[int, float]:
-    """Kaiser's formulas for the length and β of a window design (odd length: integer delay)."""
+def _kaiser_taps(ripple_db: float, width: float) -> int:
+    """Kaiser's formula for the length of a window design (odd: an integer delay)."""
     from scipy import signal as _sig
 
-    n, beta = _sig.kaiserord(ripple_db, width)
-    return n | 1, beta
+    n, _ = _sig.kaiserord(ripple_db, width)
+    return n | 1
 
 
 def _step(moments: FrontEndMoments, mean: complex, dc: complex, power: float, pseudo: complex, new: int
@@ -382,14 +382,7 @@ def _block(plan: ChannelPlan, xb: np.ndarray, new: int, moments: FrontEndMoments
     spec = _fft.fft(xb)
     fresh = xb[n - plan.hop : n - plan.hop + new]
     moments, w = _step(moments, mean, dc, float(np.vdot(fresh, fresh).real), complex(np.dot(fresh, fresh)), new)
-    sel, mirror, resp = plan.bins
-    y_spec = spec[sel]
-    if abs(w) > 1e-9:
-        y_spec = y_spec - np.complex64(w) * np.conj(spec[mirror])
-    y = _fft.ifft(y_spec * resp)[plan.lead_outputs :]
-    # the mix was relative to the block start: bring it to the global sample index
-    turn = (plan.centre_bin * block_start) % n
-    y *= np.complex64(np.exp(-2j * np.pi * turn / n))
+    y = _to_channel(plan, spec[None, :], np.array([w]), np.array([block_start]))
     return y, moments
 
 
@@ -419,17 +412,26 @@ def _whole_blocks(plan: ChannelPlan, rows: np.ndarray, moments: FrontEndMoments,
         moments, ws[r] = _step(moments, mean, dc, power, pseudo, hop)
         dcs[r] = dc
     specs[:, 0] -= (n * dcs).astype(np.complex64)  # x − dc, for free
+    starts = (n_out + np.arange(count) * (hop // d)) * d - lead
+    return _to_channel(plan, specs, ws, starts), moments
+
+
+def _to_channel(plan: ChannelPlan, specs: np.ndarray, ws: np.ndarray, starts: np.ndarray) -> np.ndarray:
+    """Blocks' spectra (rows) to channel samples: the image undone (y = x − w·x*, in bins),
+    the filter's response, the inverse FFT, and the mix brought from each block's start
+    (`starts`, global input indices) to the global sample index."""
+    from scipy import fft as _fft
+
+    n = plan.fft_size
     sel, mirror, resp = plan.bins
     y_spec = specs[:, sel]
     if np.any(np.abs(ws) > 1e-9):
         y_spec -= ws.astype(np.complex64)[:, None] * np.conj(specs[:, mirror])
     y_spec *= resp
     y = _fft.ifft(y_spec, axis=1, workers=FFT_WORKERS)[:, plan.lead_outputs :]
-    # the mix was relative to each block's start: bring it to the global sample index
-    starts = (n_out + np.arange(count) * (hop // d)) * d - lead
     turns = (plan.centre_bin * starts) % n
     y *= np.exp(-2j * np.pi * turns / n).astype(np.complex64)[:, None]
-    return y.reshape(-1), moments
+    return y.reshape(-1)
 
 
 def channelize(x: np.ndarray, plan: ChannelPlan, state: ChannelState) -> tuple[np.ndarray, ChannelState]:
