@@ -301,14 +301,12 @@ def _transmissions(raw: RawBurst, x: np.ndarray, raw_start: int, found: list[tup
     # keep each frame once: two candidates may land on one sync word (different spans)
     out.sort(key=lambda bu: bu.sample)
     kept: list[Burst] = []
-    seen: list[int] = []
+    last = -np.inf
     half = 0.5 * plan.sample_rate_hz / plan.link.signal.baud
     for burst in out:
-        frames = tuple(f for f in burst.frames if all(abs(f.sample - s) > half for s in seen))
-        if not frames:
-            continue
-        seen.extend(f.sample for f in frames)
-        kept.append(dataclasses.replace(burst, frames=frames))
+        burst, last = drop_repeats(burst, last, half)
+        if burst.frames:
+            kept.append(burst)
     return [dataclasses.replace(bu, piece=raw.piece + i) for i, bu in enumerate(kept)]
 
 

@@ -84,9 +84,12 @@ class Receiver:
 
     def flush(self) -> list[Burst]:
         """End of input: hand out the bursts still open."""
-        bursts = self.take(self.tune_end())
+        return self.take(self.tune_end()) + self.close_detector()
+
+    def close_detector(self) -> list[Burst]:
+        """After the front end's last samples went through :meth:`take`: the bursts the detector still holds."""
         found, self._detector = _bursts.flush(self.plan.detector, self._detector)
-        return bursts + [burst for raw in found for burst in self._finish(raw)]
+        return [burst for raw in found for burst in self._finish(raw)]
 
     def tune(self, block: np.ndarray) -> np.ndarray:
         """The front end alone on one block: its channel samples (the first half of :meth:`feed`)."""
@@ -185,6 +188,7 @@ def drive(rx: "Receiver", capture: Capture, *, block_samples: int = DEFAULT_BLOC
 
         bar = tqdm(total=capture.info.n_samples or None, unit="S", unit_scale=True, desc=Path(capture.info.path).name,
                    leave=False, delay=1.0)
+
     def channel() -> Iterator[tuple[np.ndarray, int]]:
         for block in capture.blocks(block_samples):
             yield rx.tune(block), len(block)
@@ -199,12 +203,9 @@ def drive(rx: "Receiver", capture: Capture, *, block_samples: int = DEFAULT_BLOC
             yield from rx.take(y)
             if bar is not None and n:
                 bar.update(n)
-        found, rx._detector = _bursts.flush(rx.plan.detector, rx._detector)
-        for raw in found:
-            yield from rx._finish(raw)
+        yield from rx.close_detector()
     finally:
-        if hasattr(source, "close"):
-            source.close()
+        source.close()
         if bar is not None:
             bar.close()
 
