@@ -48,26 +48,17 @@ def sync_candidates(sums: np.ndarray, plan: ReceiverPlan, *, threshold: float = 
     above = np.flatnonzero(norm >= threshold)
     if above.size == 0:
         return []
-    radius = max(1, int(len(sync_symbols(plan.link.frame)) * plan.period / 2))
-    out: list[tuple[float, float]] = []
     # only local maxima can be candidates (a peak is some samples wide): few to look at in Python
     inner = above[(above > 0) & (above < len(norm) - 1)]
     peaks = inner[(norm[inner] >= norm[inner - 1]) & (norm[inner] >= norm[inner + 1])]
     edges = above[(above == 0) | (above == len(norm) - 1)]
-    above = np.concatenate([peaks, edges])
-    order = above[np.argsort(-norm[above], kind="stable")]
-    taken = np.zeros(len(norm), bool)
-    for t in order:
-        if taken[t]:
-            continue
-        taken[max(0, t - radius) : t + radius + 1] = True
-        out.append((float(t), float(norm[t])))
-    return out
+    return merge_candidates([(float(t), float(norm[t])) for t in np.concatenate([peaks, edges])], [], plan)
 
 
 def merge_candidates(a: list[tuple[float, float]], b: list[tuple[float, float]], plan: ReceiverPlan
                       ) -> list[tuple[float, float]]:
-    """Two candidate lists as one, strongest first, keeping the best of those within half a sync word."""
+    """Two candidate lists as one, strongest first, keeping the best of those within half a sync word
+    (the one non-maximum suppression of the sync search; ties keep the earlier)."""
     radius = len(sync_symbols(plan.link.frame)) * plan.period / 2
     out: list[tuple[float, float]] = []
     for pos, score in sorted(a + b, key=lambda c: -c[1]):
