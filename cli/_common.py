@@ -13,7 +13,7 @@ import click
 import iqdemod
 from iqdemod._io import atomic_writer, check_distinct
 from iqdemod.capture import MAX_SAMPLE_RATE_HZ, capture_files
-from iqdemod.link import MAX_FREQUENCY_HZ, MAX_SYNC_BITS
+from iqdemod.link import MAX_BT, MAX_FREQUENCY_HZ, MAX_SYNC_BITS, MIN_BT
 from iqdemod.errors import quote
 
 EXIT_OK, EXIT_FAILED, EXIT_USAGE = 0, 1, 2
@@ -57,8 +57,9 @@ _LINK_OPTIONS = [
     click.option("--invert/--no-invert", default=None, help="Bit 1 is the lower tone (default: the upper tone)."),
     click.option("--max-freq-error", type=finite(0, MAX_FREQUENCY_HZ),
                  help="Largest carrier error searched for, Hz [default: shift/2]."),
-    click.option("--gaussian", type=click.FloatRange(0.1, 2.0), metavar="BT",
-                 help="Gaussian frequency pulse (GFSK) with this bandwidth-time product, 0.1–2 [default: rectangular]."),
+    click.option("--gaussian", type=finite(MIN_BT, MAX_BT), metavar="BT",
+                 help=f"Gaussian frequency pulse (GFSK) with this bandwidth-time product, {MIN_BT:g}–{MAX_BT:g} "
+                      "[default: rectangular]."),
     click.option("--detector", type=click.Choice(["per-symbol", "multi-symbol"]),
                  help="Symbol decisions: one-symbol correlators, or phase-continuous hypotheses over a window "
                       "[default: multi-symbol for a Gaussian pulse or a non-integer h]."),

@@ -101,7 +101,7 @@ from .coding import bytes_to_bits, manchester_decode, whiten
 from .crc import CRC_CATALOGUE, CrcSpec, crc_final, crc_init, crc_table, crc_update
 from .errors import CaptureError, IqdemodError
 from .framing import find_frames
-from .link import CaptureFormat, FrameSpec, Link, SignalSpec
+from .link import MAX_BT, MIN_BT, PULSES, CaptureFormat, FrameSpec, Link, SignalSpec
 from .receiver import iter_bursts
 from .sequence import phase_trajectory, plan_sequence
 from .tune import STOPBAND_DB, TunerPlan, tune
@@ -288,12 +288,12 @@ class SignalFound:
     beyond_carson_db: float | None = None
 
     def __post_init__(self) -> None:
-        if self.pulse not in (None, "rect", "gaussian"):
+        if self.pulse is not None and self.pulse not in PULSES:
             raise IqdemodError(f"pulse {self.pulse!r}: must be 'rect', 'gaussian' or None")
         if (self.pulse == "gaussian") != (self.bt is not None):
             raise IqdemodError(f"bt {self.bt!r} with pulse {self.pulse!r}: a Gaussian pulse needs a BT, others none")
-        if self.bt is not None and not 0.1 <= self.bt <= 2.0:
-            raise IqdemodError(f"bt {self.bt!r}: must be within 0.1–2")
+        if self.bt is not None and not MIN_BT <= self.bt <= MAX_BT:
+            raise IqdemodError(f"bt {self.bt!r}: must be within {MIN_BT:g}–{MAX_BT:g}")
         if not self.baud > 0:
             raise IqdemodError(f"baud {self.baud!r}: must be > 0")
         if not self.tone_high_hz > self.tone_low_hz:
