@@ -10,7 +10,26 @@ from . import predict as P
 from ._io import atomic_writer
 from .errors import IqdemodError
 
-__all__ = ["plot_health", "plot_curves", "new_figure", "save_figure", "require_matplotlib"]
+__all__ = ["plot_health", "plot_curves", "new_figure", "save_figure", "require_matplotlib", "PALETTE", "series_colour"]
+
+#: The project's own plot colours, named for the harbour they were chosen on: every plot takes its
+#: colours from here (series in this order), never from a plotting library's default cycle.
+PALETTE = {
+    "deep water": "#16425b",
+    "buoy orange": "#d9731a",
+    "harbour red": "#a62b2b",
+    "kelp": "#4f7d33",
+    "mooring violet": "#5e4b8b",
+    "slate": "#6b7b83",
+    "sand": "#b8962e",
+    "lagoon": "#2f8f8a",
+}
+
+
+def series_colour(i: int) -> str:
+    """The colour of the i-th data series (cycles through :data:`PALETTE`)."""
+    colours = tuple(PALETTE.values())
+    return colours[i % len(colours)]
 
 
 def require_matplotlib() -> None:
