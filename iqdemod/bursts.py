@@ -146,10 +146,13 @@ def plan_detector(rate_hz: float, *, baud: float, band_hz: float, max_symbols: i
 
 
 def _frame_power(x: np.ndarray, plan: DetectorPlan) -> np.ndarray:
+    """Mean power of the signal band's bins in each detector frame (float64, one per frame)."""
+    from scipy import fft as _fft  # single precision, no upcast: numpy's FFT would work in complex128
+
     frames = x.reshape(-1, plan.frame_len)
-    spec = np.fft.fft(frames, axis=1)
+    spec = _fft.fft(frames, axis=1)[:, plan.band_bins]
     power = spec.real**2 + spec.imag**2
-    return power[:, plan.band_bins].mean(axis=1) / plan.frame_len
+    return power.mean(axis=1, dtype=np.float64) / plan.frame_len
 
 
 @functools.lru_cache(maxsize=64)
@@ -225,16 +228,21 @@ def _advance(state: DetectorState, y: np.ndarray, plan: DetectorPlan, *, final: 
     block = BLOCK_FRAMES * fl
     next_frame = state.next_frame
     bursts: list[RawBurst] = []
+    # the frame statistics of every whole block available, in one transform
+    a0 = next_frame * fl - state.pending_start
+    whole = (len(pending) - a0) // block
+    powers = _frame_power(pending[a0 : a0 + whole * block], plan) if whole else np.zeros(0)
     while True:
         a = next_frame * fl - state.pending_start
         avail = len(pending) - a
         if avail >= block:
             n_frames = BLOCK_FRAMES
+            power = powers[(a - a0) // fl : (a - a0) // fl + n_frames]
         elif final and avail >= fl:
             n_frames = avail // fl
+            power = _frame_power(pending[a : a + n_frames * fl], plan)
         else:
             break
-        power = _frame_power(pending[a : a + n_frames * fl], plan)
         # Minimum statistics find the floor even on a busy channel; the quiet frames under
         # that guard then give the precise value. The block's own frames count, so the
         # first block is judged too.
