@@ -351,7 +351,7 @@ class _Sync(NamedTuple):
 
 
 def _synchronise(raw: RawBurst, x: np.ndarray, x_start: int, core: tuple[int, int], plan: ReceiverPlan,
-                 delta: float, sums: np.ndarray, *, end: float | None = None) -> _Sync:
+                 delta: float, sums: np.ndarray, *, end: float | None = None, timing: Timing | None = None) -> _Sync:
     """Timing, decisions and the refined carrier of one transmission in `x` (coarse carrier `delta`).
 
     The decisions are the one-symbol correlator bank's, or, when the link asks
@@ -359,11 +359,13 @@ def _synchronise(raw: RawBurst, x: np.ndarray, x_start: int, core: tuple[int, in
     also gives the decision statistics kept in the burst. `end`, where the
     transmission is known to end (samples of x), keeps the symbols after it
     out of the multi-symbol detector's windows: its hypotheses would take the
-    silence there for signal.
+    silence there for signal. `timing`, when the caller has it already, is
+    ``symbol_timing(sums, plan.period)``.
     """
     rate = plan.rate_hz
     core0, core1 = core
-    timing = symbol_timing(sums, plan.period)
+    if timing is None:
+        timing = symbol_timing(sums, plan.period)
     starts = symbol_starts(timing, len(x))
     z = correlate(sums, starts, timing.period_samples)
     # Decision-directed refinement of the carrier on the symbols the detector saw; the coarse
@@ -421,7 +423,7 @@ def _whole(raw: RawBurst, x: np.ndarray, raw_start: int, core: tuple[int, int], 
     timing = symbol_timing(sums, plan.period)
     if timing.breaks and depth < 3:
         return _split(raw, raw_start - raw.start, x, timing.breaks, plan, capture, depth)
-    sync = _synchronise(raw, x, raw_start, core, plan, delta, sums)
+    sync = _synchronise(raw, x, raw_start, core, plan, delta, sums, timing=timing)
     return [dataclasses.replace(sync.burst, frames=tuple(_frames_of(sync, plan, raw_start, capture)))]
 
 

@@ -88,8 +88,7 @@ class Receiver:
 
     def close_detector(self) -> list[Burst]:
         """After the front end's last samples went through :meth:`take`: the bursts the detector still holds."""
-        found, self._detector = _bursts.flush(self.plan.detector, self._detector)
-        return [burst for raw in found for burst in self._finish(raw)]
+        return [burst for raw in self.detect_end() for burst in self.demodulate(raw)]
 
     def tune(self, block: np.ndarray) -> np.ndarray:
         """The front end alone on one block: its channel samples (the first half of :meth:`feed`)."""
@@ -103,15 +102,25 @@ class Receiver:
 
     def take(self, y: np.ndarray) -> list[Burst]:
         """Channel samples in, the bursts they completed out (the second half of :meth:`feed`)."""
+        return [burst for raw in self.detect(y) for burst in self.demodulate(raw)]
+
+    def detect(self, y: np.ndarray) -> list[RawBurst]:
+        """The burst detector alone: channel samples in, the detector buffers they completed out."""
         found, self._detector = _bursts.detect(y, self.plan.detector, self._detector)
-        return [burst for raw in found for burst in self._finish(raw)]
+        return found
+
+    def detect_end(self) -> list[RawBurst]:
+        """End of input, after the front end's last samples went through :meth:`detect`: the buffers still open."""
+        found, self._detector = _bursts.flush(self.plan.detector, self._detector)
+        return found
 
     @property
     def front_end(self) -> FrontEndReport:
         """DC level and IQ imbalance measured on the samples fed so far."""
         return front_end_report(self._tuner.moments)
 
-    def _finish(self, raw: RawBurst) -> list[Burst]:
+    def demodulate(self, raw: RawBurst) -> list[Burst]:
+        """One detector buffer demodulated: its transmissions, in time order, frames not yet handed out."""
         out = []
         half = 0.5 * self.plan.sample_rate_hz / self.plan.link.signal.baud
         for burst in demodulate_burst(raw, self.plan, capture=self._name):
@@ -189,21 +198,21 @@ def drive(rx: "Receiver", capture: Capture, *, block_samples: int = DEFAULT_BLOC
         bar = tqdm(total=capture.info.n_samples or None, unit="S", unit_scale=True, desc=Path(capture.info.path).name,
                    leave=False, delay=1.0)
 
-    def channel() -> Iterator[tuple[np.ndarray, int]]:
+    def buffers() -> Iterator[tuple[list[RawBurst], int]]:
         for block in capture.blocks(block_samples):
-            yield rx.tune(block), len(block)
-        yield rx.tune_end(), 0
+            yield rx.detect(rx.tune(block)), len(block)
+        yield rx.detect(rx.tune_end()) + rx.detect_end(), 0
 
-    # Reading and the front end run one block ahead in a second thread while this one
-    # demodulates: the FFTs and reads release the interpreter lock, the per-burst work
-    # mostly holds it, so both cores work. The order of everything is unchanged.
-    source = _ahead(channel()) if PIPELINE else channel()
+    # Reading, the front end and the burst detector run one block ahead in a second thread
+    # while this one demodulates: the FFTs and reads release the interpreter lock, the
+    # per-burst work mostly holds it, so both cores work. The order of everything is unchanged.
+    source = _ahead(buffers()) if PIPELINE else buffers()
     try:
-        for y, n in source:
-            yield from rx.take(y)
+        for found, n in source:
+            for raw in found:
+                yield from rx.demodulate(raw)
             if bar is not None and n:
                 bar.update(n)
-        yield from rx.close_detector()
     finally:
         source.close()
         if bar is not None:
