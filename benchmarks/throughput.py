@@ -1,13 +1,26 @@
-"""Decode throughput against the floor of one pass over the samples, measured in the same run.
+"""Decode throughput against the floor of one pass over the samples, each ratio measured in one run.
 
-Generates (once, cached in --workdir) a cf32_le capture with the project's generator: 1.024 MS/s,
-9600 baud, the signal 137 kHz off centre, 600 bursts with gaps, about 60 s. Then it times:
+Generates (once, cached in --workdir) 60 s captures with the project's own generator (harbour-buoy
+telemetry: 1.024 MS/s, 9600 baud, the signal 137 kHz off centre, 600 bursts with gaps):
 
-- the floor: read the file in 8 MiB chunks and multiply by a precomputed complex64 oscillator;
-- `decode`, end to end (reading, tuning, burst detection, demodulation, framing, Eb/N0).
+- ``cf32``: complex float32 whose noise peaks pass 1.0 (about 0.6 % of samples: floats have no
+  full scale, so the reader must not treat them as clipped);
+- ``ci16``: complex int16 (ci16_le);
+- ``cu8``: complex unsigned 8-bit.
 
-It prints MS/s of both, their ratio, the real-time factor, and the peak RSS of each phase.
-Usage: python benchmarks/throughput.py [--workdir DIR] [--seconds 60] [--frames 600]
+For each it times, in the same process and alternately:
+
+- the floor: read the file in 8 MiB chunks, convert to complex64 (nothing for cf32), and multiply
+  by a precomputed complex64 oscillator: the least any decoder must do per sample;
+- ``iqdemod.decode``, in process (reading, front end, bursts, demodulation, framing, Eb/N0).
+
+Then, on the cf32 capture: the command line end to end (``iqdemod decode … --quiet -o /dev/null``,
+start-up included) against the same floor, and k = 1, 2, 4 links decoded in one pass (the extra
+links tuned to empty channels of the same capture), as the ratio of each time to one link's.
+
+It prints one JSON object. Usage:
+    python benchmarks/throughput.py [--workdir DIR] [--repeat 3] [--datatypes cf32,ci16,cu8]
+                                    [--links 1,2,4] [--no-cli]
 """
 
 from __future__ import annotations
@@ -16,6 +29,7 @@ import argparse
 import json
 import os
 import resource
+import subprocess
 import sys
 import time
 from pathlib import Path
@@ -26,26 +40,35 @@ import iqdemod
 from iqdemod.synth import SynthConfig, synthesize
 
 CHUNK_BYTES = 8 << 20
+RATE = 1_024_000
+OFFSET = 137_000
+LINK_KW = dict(baud=9600, shift=9600, sync="0x9B3C57E1", length=24, crc="CRC-16/IBM-3740")
+DATATYPES = {"cf32": "cf32_le", "ci16": "ci16_le", "cu8": "cu8"}
+# cf32: noise σ per component 0.34 puts about 0.6 % of samples past ±1.0; the integer types keep
+# the usual headroom (noise well inside full scale)
+NOISE_RMS = {"cf32": 0.48, "ci16": 0.05, "cu8": 0.05}
+EMPTY_OFFSETS = (-300_000, -150_000, 300_000)  # extra links' channels: noise only
 
 
-def make_capture(workdir: Path, seconds: float, frames: int) -> Path:
-    base = workdir / f"throughput_{int(seconds)}s_{frames}f"
+def make_capture(workdir: Path, kind: str, seconds: float, frames: int) -> Path:
+    base = workdir / f"throughput_{kind}_{int(seconds)}s_{frames}f"
     meta = base.with_name(base.name + ".sigmf-meta")
     if meta.exists():
         return meta
-    link = iqdemod.load_link(None, datatype="cf32_le", rate=1_024_000, offset=137_000, baud=9600, shift=9600,
-                             sync="0x9B3C57E1", length=24, crc="CRC-16/IBM-3740")
+    link = iqdemod.load_link(None, datatype=DATATYPES[kind], rate=RATE, offset=OFFSET, **LINK_KW)
     burst_s = (32 + 32 + 8 * 24 + 16 + 8) / 9600
     gap = max(0.0, seconds / frames - burst_s)
     synthesize(base, SynthConfig(link=link, ebn0_db=(14.0, 18.0), n_frames=frames, freq_error_hz=1200.0,
-                                 clock_ppm=50.0, gap_s=(0.5 * gap, 1.5 * gap), seed=60))
+                                 clock_ppm=50.0, gap_s=(0.5 * gap, 1.5 * gap), noise_rms=NOISE_RMS[kind],
+                                 centre_hz=869_437_500.0, seed=60))
     return meta
 
 
-def floor_pass(data: Path) -> tuple[float, int]:
-    """Read in 8 MiB chunks, multiply by a precomputed oscillator; return (seconds, samples)."""
-    n_chunk = CHUNK_BYTES // 8
-    osc = np.exp(-2j * np.pi * 137_000 / 1_024_000 * np.arange(n_chunk)).astype(np.complex64)
+def floor_pass(data: Path, kind: str) -> tuple[float, int]:
+    """Read in 8 MiB chunks, convert to complex64, multiply by an oscillator; (seconds, samples)."""
+    width = {"cf32": 8, "ci16": 4, "cu8": 2}[kind]
+    n_chunk = CHUNK_BYTES // width
+    osc = np.exp(-2j * np.pi * OFFSET / RATE * np.arange(n_chunk)).astype(np.complex64)
     buf = bytearray(CHUNK_BYTES)
     out = np.empty(n_chunk, np.complex64)
     total = 0
@@ -55,10 +78,85 @@ def floor_pass(data: Path) -> tuple[float, int]:
             got = fh.readinto(buf)
             if not got:
                 break
-            x = np.frombuffer(buf, dtype=np.complex64, count=got // 8)
-            np.multiply(x, osc[: len(x)], out=out[: len(x)])
-            total += len(x)
+            n = got // width
+            if kind == "cf32":
+                x = np.frombuffer(buf, dtype=np.complex64, count=n)
+            elif kind == "ci16":
+                pairs = np.frombuffer(buf, dtype="<i2", count=2 * n).astype(np.float32)
+                x = pairs.view(np.complex64) * np.float32(1 / 32768)
+            else:
+                pairs = np.frombuffer(buf, dtype=np.uint8, count=2 * n).astype(np.float32)
+                x = (pairs - np.float32(127.5)).view(np.complex64) * np.float32(1 / 127.5)
+            np.multiply(x, osc[:n], out=out[:n])
+            total += n
     return time.perf_counter() - t0, total
+
+
+def best_of(repeat: int, fn) -> tuple[float, object]:
+    best, result = float("inf"), None
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        result = fn()
+        best = min(best, time.perf_counter() - t0)
+    return best, result
+
+
+def links_for(k: int) -> dict[str, iqdemod.Link]:
+    offsets = (OFFSET, *EMPTY_OFFSETS)[:k]
+    return {f"channel-{i}": iqdemod.load_link(None, offset=off, **LINK_KW) for i, off in enumerate(offsets)}
+
+
+def in_process(meta: Path, kind: str, repeat: int) -> dict:
+    data = meta.with_name(meta.name.replace(".sigmf-meta", ".sigmf-data"))
+    link = iqdemod.load_link(None, offset=OFFSET, **LINK_KW)
+    floor_pass(data, kind)  # warm the page cache so both see the same storage
+    t_floor = t_dec = float("inf")
+    frames = []
+    n = 0
+    for _ in range(repeat):  # alternate, so that both see the same load on a shared machine
+        t, n = floor_pass(data, kind)
+        t_floor = min(t_floor, t)
+        t, frames = best_of(1, lambda: list(iqdemod.decode(meta, link)))
+        t_dec = min(t_dec, t)
+    return {
+        "samples": n,
+        "floor_msps": round(n / t_floor / 1e6, 1),
+        "decode_msps": round(n / t_dec / 1e6, 2),
+        "ratio_decode_to_floor": round(t_floor / t_dec, 4),
+        "realtime_factor": round(n / RATE / t_dec, 1),
+        "frames": len(frames),
+        "frames_crc_ok": sum(f.crc_ok for f in frames),
+    }
+
+
+def command_line(meta: Path, repeat: int) -> dict:
+    data = meta.with_name(meta.name.replace(".sigmf-meta", ".sigmf-data"))
+    cmd = [sys.executable, "-m", "iqdemod_cli", "decode", str(meta), "--quiet", "-o", os.devnull,
+           "--offset", str(OFFSET), "--baud", "9600", "--shift", "9600", "--sync", "0x9B3C57E1",
+           "--length", "24", "--crc", "CRC-16/IBM-3740"]
+    t_floor = t_cli = float("inf")
+    n = 0
+    for _ in range(repeat):
+        t, n = floor_pass(data, "cf32")
+        t_floor = min(t_floor, t)
+        t0 = time.perf_counter()
+        subprocess.run(cmd, check=True)
+        t_cli = min(t_cli, time.perf_counter() - t0)
+    return {"cli_msps": round(n / t_cli / 1e6, 2), "floor_msps": round(n / t_floor / 1e6, 1),
+            "ratio_cli_to_floor": round(t_floor / t_cli, 4), "cli_seconds": round(t_cli, 2)}
+
+
+def several_links(meta: Path, ks: list[int], repeat: int) -> dict:
+    times: dict[int, float] = {k: float("inf") for k in ks}
+    found: dict[int, int] = {}
+    for _ in range(repeat):  # alternate the k's, so that each sees the same load
+        for k in ks:
+            t, frames = best_of(1, lambda: list(iqdemod.decode(meta, links_for(k))))
+            times[k] = min(times[k], t)
+            found[k] = sum(f.crc_ok for f in frames)
+    base = times[min(ks)]
+    return {f"links_{k}": {"seconds": round(times[k], 3), "ratio_to_one_link": round(times[k] / base, 3),
+                           "frames_crc_ok": found[k]} for k in ks}
 
 
 def main() -> None:
@@ -66,44 +164,23 @@ def main() -> None:
     ap.add_argument("--workdir", type=Path, default=Path(os.environ.get("TMPDIR", "/tmp")) / "iqdemod-bench")
     ap.add_argument("--seconds", type=float, default=60.0)
     ap.add_argument("--frames", type=int, default=600)
-    ap.add_argument("--repeat", type=int, default=2, help="runs of each; the best is kept")
+    ap.add_argument("--repeat", type=int, default=3, help="alternating runs of each; the best is kept")
+    ap.add_argument("--datatypes", default="cf32,ci16,cu8")
+    ap.add_argument("--links", default="1,2,4")
+    ap.add_argument("--no-cli", action="store_true", help="skip the command-line measurement")
     args = ap.parse_args()
     args.workdir.mkdir(parents=True, exist_ok=True)
-    meta = make_capture(args.workdir, args.seconds, args.frames)
-    data = meta.with_name(meta.name.replace(".sigmf-meta", ".sigmf-data"))
-    link = iqdemod.load_link(None, offset=137_000, baud=9600, shift=9600, sync="0x9B3C57E1", length=24,
-                             crc="CRC-16/IBM-3740")
-    floor_pass(data)  # warm the page cache so both see the same storage
-    best_floor = best_dec = float("inf")
-    frames = good = n = 0
-    for _ in range(args.repeat):
-        t, n = floor_pass(data)
-        best_floor = min(best_floor, t)
-        rss_floor = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
-        t0 = time.perf_counter()
-        got = list(iqdemod.decode(meta, link))
-        best_dec = min(best_dec, time.perf_counter() - t0)
-        frames, good = len(got), sum(f.crc_ok for f in got)
-    rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
-    fs = 1_024_000
-    floor_msps = n / best_floor / 1e6
-    dec_msps = n / best_dec / 1e6
-    result = {
-        "capture": meta.name,
-        "samples": n,
-        "duration_s": n / fs,
-        "floor_msps": round(floor_msps, 1),
-        "decode_msps": round(dec_msps, 2),
-        "ratio_decode_to_floor": round(dec_msps / floor_msps, 4),
-        "realtime_factor": round(n / fs / best_dec, 1),
-        "frames": frames,
-        "frames_crc_ok": good,
-        "peak_rss_mb_after_floor": round(rss_floor / 1024, 1),
-        "peak_rss_mb": round(rss / 1024, 1),
-        "python": sys.version.split()[0],
-        "numpy": np.__version__,
-        "cpu_count": os.cpu_count(),
-    }
+    kinds = [k for k in args.datatypes.split(",") if k]
+    result: dict = {"python": sys.version.split()[0], "numpy": np.__version__, "cpu_count": os.cpu_count()}
+    metas = {kind: make_capture(args.workdir, kind, args.seconds, args.frames) for kind in set(kinds) | {"cf32"}}
+    for kind in kinds:
+        result[kind] = in_process(metas[kind], kind, args.repeat)
+    if not args.no_cli:
+        result["command_line_cf32"] = command_line(metas["cf32"], args.repeat)
+    ks = sorted({int(k) for k in args.links.split(",") if k})
+    if ks:
+        result["several_links_cf32"] = several_links(metas["cf32"], ks, args.repeat)
+    result["peak_rss_mb"] = round(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024, 1)
     print(json.dumps(result, indent=1))
 
 

@@ -20,7 +20,7 @@ __version__ = "0.1.0"
 # command's --help) does not pay for scipy before any work needs it.
 _HOMES = {
     "open_capture": "capture", "Capture": "capture", "CaptureInfo": "capture",
-    "load_link": "link", "Link": "link", "SignalSpec": "link", "FrameSpec": "link",
+    "load_link": "link", "load_links": "link", "Link": "link", "SignalSpec": "link", "FrameSpec": "link",
     "decode": "receiver", "iter_bursts": "receiver", "Burst": "receiver", "Frame": "receiver",
     "assess": "health", "HealthReport": "health",
 }
@@ -50,6 +50,7 @@ __all__ = [
     "Capture",
     "CaptureInfo",
     "load_link",
+    "load_links",
     "Link",
     "SignalSpec",
     "FrameSpec",

@@ -60,16 +60,16 @@ import numpy as np
 
 from .link import SignalSpec
 
-__all__ = ["ChannelPlan", "ChannelState", "FrontEndMoments", "FrontEndReport", "plan_channel", "channel_size", "channelize",
+__all__ = ["ChannelPlan", "ChannelState", "FrontEndMoments", "FrontEndReport", "plan_channel", "plan_channels",
+           "channel_size", "channelize", "channelize_many", "flush_channels",
            "flush_channel", "STOPBAND_DB"]
 
 STOPBAND_DB = 70.0
-MIN_FFT = 1 << 14
-DC_BLOCKS = 16
-IMBALANCE_SIGMAS = 4.0
+MIN_FFT = 1 << 14  # smallest block: keeps the per-block overhead small against the FFT itself
+DC_BLOCKS = 16  # the DC line is the mean of about this many blocks' means
+IMBALANCE_SIGMAS = 4.0  # an IQ imbalance is corrected once the moments show it this many standard errors out
 BATCH = 16  # whole blocks transformed in one FFT call
-# Threads of the FFT: both cores help one decode; a batch, with a process per core, sets 1.
-FFT_WORKERS = max(1, min(2, os.cpu_count() or 1))  # an IQ imbalance is corrected once the moments show it this many standard errors out  # the DC line is the mean of about this many blocks' means  # smallest block: keeps the per-block overhead small against the FFT itself
+FFT_WORKERS = max(1, min(2, os.cpu_count() or 1))
 
 
 @dataclass(frozen=True, eq=False)
@@ -91,6 +91,11 @@ class ChannelPlan:
         Edges of the flat band and of the stop band, Hz from the signal centre.
     fft_size : int
         N, samples per FFT block, a multiple of D.
+    lead_samples : int
+        Samples each block shares with the one before (a multiple of D, at
+        least the filter's length − 1); −1 for the filter's own length rounded
+        up to whole outputs. Several channels cut from one FFT pass
+        (:func:`plan_channels`) share N and the lead, so they share the blocks.
     """
 
     sample_rate_hz: float
@@ -100,12 +105,17 @@ class ChannelPlan:
     passband_hz: float
     stopband_hz: float
     fft_size: int
+    lead_samples: int = -1
 
     def __post_init__(self) -> None:
         if self.fft_size % self.decimation:
             raise ValueError(f"FFT size {self.fft_size} is not a multiple of the decimation {self.decimation}")
         if len(self.taps) > self.fft_size // 2:
             raise ValueError(f"filter of {len(self.taps)} taps is too long for FFT blocks of {self.fft_size}")
+        if self.lead_samples >= 0 and (self.lead_samples % self.decimation or self.lead_samples < len(self.taps) - 1
+                                       or self.lead_samples >= self.fft_size):
+            raise ValueError(f"lead of {self.lead_samples} samples: must be a multiple of {self.decimation}, at "
+                             f"least {len(self.taps) - 1} and below {self.fft_size}")
 
     @property
     def output_rate_hz(self) -> float:
@@ -124,6 +134,8 @@ class ChannelPlan:
     @property
     def lead_outputs(self) -> int:
         """Outputs at the start of each block spoilt by the circular wrap, discarded."""
+        if self.lead_samples >= 0:
+            return self.lead_samples // self.decimation
         return -(-(len(self.taps) - 1) // self.decimation)
 
     @property
@@ -158,7 +170,7 @@ class ChannelPlan:
     def initial_state(self) -> "ChannelState":
         """The state before the first sample: the lead of the first block is zeros."""
         lead = self.lead_outputs * self.decimation
-        return ChannelState(pending=np.zeros(lead, np.complex64), n_in=0, n_out=0, moments=FrontEndMoments())
+        return ChannelState(pending=np.zeros(lead, np.complex64), n_in=0, next_sample=0, moments=FrontEndMoments())
 
 
 @dataclass(frozen=True)
@@ -205,14 +217,16 @@ class ChannelState:
         (the lead of zeros before the first sample included).
     n_in : int
         Input samples fed so far.
-    n_out : int
-        Output samples handed out so far (the index of the next one).
+    next_sample : int
+        Input index of the next output's sample: a channel of decimation D has
+        handed out ``next_sample // D`` outputs (every channel of one pass
+        stops on a multiple of each D).
     moments : FrontEndMoments
     """
 
     pending: np.ndarray
     n_in: int
-    n_out: int
+    next_sample: int
     moments: FrontEndMoments
 
 
@@ -326,6 +340,31 @@ def plan_channel(sample_rate_hz: float, signal: SignalSpec, offset_hz: float) ->
     return ChannelPlan(fs, float(offset_hz), decimation, taps, passband, stopband, fft_size)
 
 
+def plan_channels(sample_rate_hz: float, signals: "list[tuple[SignalSpec, float]]") -> tuple[ChannelPlan, ...]:
+    """Plans for several signals of one capture that share one FFT pass (one block grid).
+
+    Each channel keeps its own decimation and filter (:func:`plan_channel`);
+    the blocks' size N is a power of two times the least common multiple of the
+    decimations, and every block overlaps the one before by the longest filter,
+    rounded up to that multiple, so each block's FFT serves every channel. One
+    signal gets exactly :func:`plan_channel`'s plan.
+
+    Parameters
+    ----------
+    signals : list of (SignalSpec, float)
+        Each signal with its offset from the capture centre, Hz.
+    """
+    plans = [plan_channel(sample_rate_hz, sig, off) for sig, off in signals]
+    if len(plans) <= 1:
+        return tuple(plans)
+    step = math.lcm(*(p.decimation for p in plans))
+    longest = max(len(p.taps) for p in plans)
+    lead = -(-(longest - 1) // step) * step
+    target = max(MIN_FFT, 8 * longest, 2 * lead)
+    fft_size = step << max(1, math.ceil(math.log2(target / step)))
+    return tuple(dataclasses.replace(p, fft_size=fft_size, lead_samples=lead) for p in plans)
+
+
 def _kaiser_taps(ripple_db: float, width: float) -> int:
     """Kaiser's formula for the length of a window design (odd: an integer delay)."""
     from scipy import signal as _sig
@@ -364,14 +403,15 @@ def _dc_line(moments: FrontEndMoments, mean: complex) -> complex:
     return moments.dc_estimate + weight * (mean - moments.dc_estimate)
 
 
-def _block(plan: ChannelPlan, xb: np.ndarray, new: int, moments: FrontEndMoments,
-           block_start: int) -> tuple[np.ndarray, FrontEndMoments]:
+def _block(plans: tuple[ChannelPlan, ...], xb: np.ndarray, new: int, moments: FrontEndMoments,
+           block_start: int) -> tuple[list[np.ndarray], FrontEndMoments]:
     """One overlap-save block that is not all input: the stream's first (zeros before sample 0)
     or its last (zeros after the end). `xb` holds N samples from global index `block_start` on;
     the `new` samples after the lead are fresh. The zeros must stay zeros, so the DC line is
     removed in time from the real samples only."""
     from scipy import fft as _fft
 
+    plan = plans[0]
     n = plan.fft_size
     lo = max(0, -block_start)
     hi = n - plan.hop + new
@@ -379,24 +419,25 @@ def _block(plan: ChannelPlan, xb: np.ndarray, new: int, moments: FrontEndMoments
     dc = _dc_line(moments, mean)
     xb = xb.copy()
     xb[lo:hi] -= np.complex64(dc)
-    spec = _fft.fft(xb)
+    spec = _fft.fft(xb)[None, :]
     fresh = xb[n - plan.hop : n - plan.hop + new]
     moments, w = _step(moments, mean, dc, float(np.vdot(fresh, fresh).real), complex(np.dot(fresh, fresh)), new)
-    y = _to_channel(plan, spec[None, :], np.array([w]), np.array([block_start]))
-    return y, moments
+    ws, starts = np.array([w]), np.array([block_start])
+    return [_to_channel(p, spec, ws, starts) for p in plans], moments
 
 
-def _whole_blocks(plan: ChannelPlan, rows: np.ndarray, moments: FrontEndMoments, n_out: int
-                  ) -> tuple[np.ndarray, FrontEndMoments]:
+def _whole_blocks(plans: tuple[ChannelPlan, ...], rows: np.ndarray, moments: FrontEndMoments, next_sample: int
+                  ) -> tuple[list[np.ndarray], FrontEndMoments]:
     """Overlap-save blocks that are whole input (no zeros before or after), as rows of one array.
 
     The same arithmetic as :func:`_block`, done for all rows at once: one FFT,
-    one gather, one inverse FFT. Only the running DC line and IQ moments go
-    block by block, in order. `n_out` is the index of the first row's first output.
+    then per channel one gather and one inverse FFT. Only the running DC line
+    and IQ moments go block by block, in order. `next_sample` is the input
+    index of the first row's first fresh sample.
     """
     from scipy import fft as _fft
 
-    n, hop, d = plan.fft_size, plan.hop, plan.decimation
+    n, hop = plans[0].fft_size, plans[0].hop
     lead = n - hop
     count = rows.shape[0]
     specs = _fft.fft(rows, axis=1, workers=FFT_WORKERS)
@@ -412,8 +453,8 @@ def _whole_blocks(plan: ChannelPlan, rows: np.ndarray, moments: FrontEndMoments,
         moments, ws[r] = _step(moments, mean, dc, power, pseudo, hop)
         dcs[r] = dc
     specs[:, 0] -= (n * dcs).astype(np.complex64)  # x − dc, for free
-    starts = (n_out + np.arange(count) * (hop // d)) * d - lead
-    return _to_channel(plan, specs, ws, starts), moments
+    starts = next_sample + np.arange(count) * hop - lead
+    return [_to_channel(p, specs, ws, starts) for p in plans], moments
 
 
 def _to_channel(plan: ChannelPlan, specs: np.ndarray, ws: np.ndarray, starts: np.ndarray) -> np.ndarray:
@@ -428,7 +469,7 @@ def _to_channel(plan: ChannelPlan, specs: np.ndarray, ws: np.ndarray, starts: np
     if np.any(np.abs(ws) > 1e-9):
         y_spec -= ws.astype(np.complex64)[:, None] * np.conj(specs[:, mirror])
     y_spec *= resp
-    y = _fft.ifft(y_spec, axis=1, workers=FFT_WORKERS)[:, plan.lead_outputs :]
+    y = _fft.ifft(y_spec, axis=1, workers=FFT_WORKERS, overwrite_x=True)[:, plan.lead_outputs :]
     turns = (plan.centre_bin * starts) % n
     y *= np.exp(-2j * np.pi * turns / n).astype(np.complex64)[:, None]
     return y.reshape(-1)
@@ -454,17 +495,36 @@ def channelize(x: np.ndarray, plan: ChannelPlan, state: ChannelState) -> tuple[n
         out the rest.
     state : ChannelState
     """
-    return _advance(np.asarray(x, dtype=np.complex64), plan, state, final=False)
+    ys, state = channelize_many(x, (plan,), state)
+    return ys[0], state
 
 
 def flush_channel(plan: ChannelPlan, state: ChannelState) -> tuple[np.ndarray, ChannelState]:
     """End of input: the outputs for the samples still held (zeros after the last sample)."""
-    return _advance(np.zeros(0, np.complex64), plan, state, final=True)
+    ys, state = flush_channels((plan,), state)
+    return ys[0], state
 
 
-def _advance(x: np.ndarray, plan: ChannelPlan, state: ChannelState, *, final: bool
-             ) -> tuple[np.ndarray, ChannelState]:
-    n, hop, d = plan.fft_size, plan.hop, plan.decimation
+def channelize_many(x: np.ndarray, plans: tuple[ChannelPlan, ...], state: ChannelState
+                    ) -> tuple[list[np.ndarray], ChannelState]:
+    """:func:`channelize` for several channels of one capture in one pass: one FFT per block serves all.
+
+    `plans` come from :func:`plan_channels` (one block grid); the state from
+    ``plans[0].initial_state()``. Returns each channel's samples, in the plans' order.
+    The DC line and the IQ correction are the capture's, so every channel shares them.
+    """
+    return _advance(np.asarray(x, dtype=np.complex64), tuple(plans), state, final=False)
+
+
+def flush_channels(plans: tuple[ChannelPlan, ...], state: ChannelState) -> tuple[list[np.ndarray], ChannelState]:
+    """End of input for :func:`channelize_many`."""
+    return _advance(np.zeros(0, np.complex64), tuple(plans), state, final=True)
+
+
+def _advance(x: np.ndarray, plans: tuple[ChannelPlan, ...], state: ChannelState, *, final: bool
+             ) -> tuple[list[np.ndarray], ChannelState]:
+    plan = plans[0]
+    n, hop = plan.fft_size, plan.hop
     lead = n - hop
     held = state.pending
     total = len(held) + len(x)  # samples available from the next block's start
@@ -478,12 +538,12 @@ def _advance(x: np.ndarray, plan: ChannelPlan, state: ChannelState, *, final: bo
         return np.concatenate([held[a:], x[: b - len(held)]])
 
     moments = state.moments
-    n_out = state.n_out
-    out: list[np.ndarray] = []
+    next_sample = state.next_sample
+    out: list[list[np.ndarray]] = [[] for _ in plans]
     pos = 0
     while True:
         avail = total - pos
-        if avail >= n and n_out * d - lead >= 0:  # a block after the first: all input, no leading zeros
+        if avail >= n and next_sample - lead >= 0:  # a block after the first: all input, no leading zeros
             # whole blocks of input: one FFT call for up to BATCH of them (rows overlap)
             if pos >= len(held):
                 count = min(BATCH, (avail - n) // hop + 1)
@@ -492,32 +552,55 @@ def _advance(x: np.ndarray, plan: ChannelPlan, state: ChannelState, *, final: bo
                                                        strides=(hop * x.strides[0], x.strides[0]), writeable=False)
             else:  # one block across the held samples and this read
                 count, rows = 1, take(pos, pos + n)[None, :]
-            y, moments = _whole_blocks(plan, rows, moments, n_out)
-            out.append(y)
-            n_out += len(y)
+            ys, moments = _whole_blocks(plans, rows, moments, next_sample)
+            next_sample += count * hop
             pos += count * hop
-            continue
-        if avail >= n:
-            xb, new = take(pos, pos + n), hop
-        elif final and avail > lead:
-            xb = np.zeros(n, np.complex64)
-            xb[:avail] = take(pos, total)
-            new = avail - lead
+        elif avail >= n or (final and avail > lead):
+            if avail >= n:
+                xb, new = take(pos, pos + n), hop
+            else:
+                xb = np.zeros(n, np.complex64)
+                xb[:avail] = take(pos, total)
+                new = avail - lead
+            ys, moments = _block(plans, xb, new, moments, next_sample - lead)
+            if new < hop:  # the last block: outputs m with m·D inside the input only
+                ys = [y[: -(-new // p.decimation)] for y, p in zip(ys, plans)]
+            next_sample += hop
+            pos += hop
         else:
             break
-        block_start = n_out * d - lead  # global index of xb[0]
-        y, moments = _block(plan, xb, new, moments, block_start)
-        if new < hop:  # the last block: outputs m with m·D inside the input only
-            y = y[: -(-new // d)]
-        out.append(y)
-        n_out += len(y)
-        pos += hop
+        for o, y in zip(out, ys):
+            o.append(y)
     # keep what the next block needs, as a copy: never a view of the caller's block
     rest = np.zeros(0, np.complex64) if final or pos >= total else np.array(take(pos, total), np.complex64)
-    y = np.concatenate(out) if len(out) > 1 else (out[0] if out else np.zeros(0, np.complex64))
-    if plan.fine_hz and len(y):
-        from .tune import fine_rotation
+    result = []
+    for o, p in zip(out, plans):
+        y = np.concatenate(o) if len(o) > 1 else (o[0] if o else np.zeros(0, np.complex64))
+        if p.fine_hz and len(y):
+            y = y * _fine_rotation(p, state.next_sample // p.decimation, len(y))
+        result.append(y.astype(np.complex64, copy=False))
+    return result, dataclasses.replace(state, pending=rest, n_in=state.n_in + len(x), next_sample=next_sample,
+                                       moments=moments)
 
-        y = y * fine_rotation(plan, state.n_out, len(y))
-    y = y.astype(np.complex64, copy=False)
-    return y, dataclasses.replace(state, pending=rest, n_in=state.n_in + len(x), n_out=n_out, moments=moments)
+
+def _fine_rotation(plan: ChannelPlan, n_out: int, count: int) -> np.ndarray:
+    """exp(−j2π·fine·t) at outputs n_out … n_out + count − 1 (t at each output's centre): the part
+    of the mix to 0 Hz below half an FFT bin, done at the output rate."""
+    d = plan.decimation
+    step = plan.fine_hz * d / plan.sample_rate_hz  # cycles per output sample
+    start = np.mod(plan.fine_hz * (n_out * d - plan.delay_samples) / plan.sample_rate_hz, 1.0)
+    return _rotation_steps(step, count) * np.complex64(np.exp(-2j * np.pi * start))
+
+
+@functools.lru_cache(maxsize=32)
+def _rotation_table(step: float, length: int) -> np.ndarray:
+    k = np.arange(length, dtype=np.float64)
+    table = np.exp(-2j * np.pi * np.mod(step * k, 1.0)).astype(np.complex64)
+    table.setflags(write=False)
+    return table
+
+
+def _rotation_steps(step: float, count: int) -> np.ndarray:
+    """exp(−j2π·step·k) for k < count: exact phases from k, not a recurrence; tables kept per step."""
+    length = 1 << max(16, (max(count, 1) - 1).bit_length())
+    return _rotation_table(step, length)[:count]

@@ -87,6 +87,8 @@ class Frame:
         ISO 8601 UTC time of `t_s` (the capture's start time + t_s), when known.
     crc_bits : int
         Width of the link's CRC (for the hex fields).
+    link : str or None
+        The name of the link that found it, when several links are decoded in one pass.
     """
 
     capture: str
@@ -113,6 +115,7 @@ class Frame:
     clock_ppm: float | None = None
     time_utc: str | None = None
     crc_bits: int = 0
+    link: str | None = None
 
     @property
     def raw(self) -> bool:
@@ -122,6 +125,8 @@ class Frame:
         """The JSON Lines record of this frame (the decode output contract)."""
         ebn0 = None if self.ebn0_db is None or not np.isfinite(self.ebn0_db) else round(float(self.ebn0_db), 2)
         rec = {"capture": self.capture, "t_s": round(self.t_s, 7), "sample": self.sample, "burst": self.burst}
+        if self.link is not None:
+            rec["link"] = self.link
         if self.raw:
             rec.update(n_bits=int(len(self.bits)), bits_hex=bits_to_bytes(self.bits).hex())
         else:

@@ -33,7 +33,7 @@ import math
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Mapping
+from typing import Any, Mapping, Sequence
 
 import numpy as np
 
@@ -43,7 +43,7 @@ from .crc import crc_spec
 from ._io import read_small_text
 from .errors import LinkError, quote
 
-__all__ = ["CaptureFormat", "SignalSpec", "FrameSpec", "Link", "load_link", "link_to_toml"]
+__all__ = ["CaptureFormat", "SignalSpec", "FrameSpec", "Link", "load_link", "load_links", "link_to_toml"]
 
 MAX_LENGTH_BYTES = 4096
 PULSES = ("rect", "gaussian")
@@ -57,6 +57,7 @@ LENGTH_COUNTS = ("payload", "payload+crc", "frame")
 MAX_FREQUENCY_HZ = 1e12
 # A link profile is a few hundred bytes; beyond this it is refused unread.
 MAX_PROFILE_BYTES = 1 << 20
+MAX_SIGNALS = 64  # links decoded in one pass from one profile
 # The correlators need at least this many capture samples per symbol (the tuner decimates to
 # about 8 samples per symbol and cannot add samples the capture does not have).
 MIN_SAMPLES_PER_SYMBOL = 8
@@ -551,7 +552,8 @@ def load_link(path: str | Path | None = None, **overrides: Any) -> Link:
     Parameters
     ----------
     path : str or Path, optional
-        A TOML link profile.
+        A TOML link profile (one ``[signal]`` table; for a profile with
+        several ``[[signal]]`` entries see :func:`load_links`).
     **overrides
         Values that replace the profile's: ``datatype``, ``rate``, ``offset``,
         ``frequency``, ``baud``, ``shift``, ``invert``, ``max_freq_error``,
@@ -565,10 +567,42 @@ def load_link(path: str | Path | None = None, **overrides: Any) -> Link:
         On TOML syntax (with its line), an unknown table or key, a wrong type or
         a value out of range, naming the key.
     """
-    tables: dict[str, dict[str, Any]] = {}
     if path is None:
-        return _apply_overrides(tables, overrides)
-    p = Path(path)
+        return _apply_overrides({}, overrides)
+    where, entries = _read_profile(Path(path))
+    if len(entries) != 1:
+        raise LinkError(f"{where}: holds {len(entries)} [[signal]] entries; give it where several links are taken")
+    return _link_from_tables(entries[0][1], overrides, where)
+
+
+def load_links(paths: "Sequence[str | Path]", **overrides: Any) -> dict[str, Link]:
+    """Several links for one pass over a capture, by name, from profiles with one or more signals.
+
+    A profile's ``[signal]`` table gives one link, named by its ``name`` key or
+    else the file's stem; each ``[[signal]]`` entry of a profile gives one
+    link (named by its ``name`` key, else ``stem-1``, ``stem-2``, …), sharing
+    the profile's ``[capture]`` and ``[frame]`` tables. The overrides apply to
+    every link (see :func:`load_link`).
+
+    Raises
+    ------
+    LinkError
+        As :func:`load_link`; also on two links of the same name.
+    """
+    out: dict[str, Link] = {}
+    for path in paths:
+        where, entries = _read_profile(Path(path))
+        for name, tables in entries:
+            if name in out:
+                raise LinkError(f"{where}: a second link named {quote(name)} (give each [signal] its own name)")
+            out[name] = _link_from_tables(tables, overrides, where)
+    if not out:
+        raise LinkError("no link profile given")
+    return out
+
+
+def _read_profile(p: Path) -> tuple[str, list[tuple[str, dict[str, dict[str, Any]]]]]:
+    """A profile's tables, checked: (where, [(link name, tables) per signal entry])."""
     where = f"link profile {quote(str(p))}"
     text = read_small_text(p, MAX_PROFILE_BYTES, LinkError, where, "file")
     try:
@@ -579,18 +613,41 @@ def load_link(path: str | Path | None = None, **overrides: Any) -> Link:
         raise LinkError(f"{where}: TOML nested too deep") from None
     except ValueError as exc:  # e.g. an integer beyond sys.get_int_max_str_digits
         raise LinkError(f"{where}: bad TOML value: {str(exc).splitlines()[0][:120]}") from None
+    signals = doc.get("signal")
+    many = isinstance(signals, list)
+    if many and (not signals or len(signals) > MAX_SIGNALS or not all(isinstance(t, dict) for t in signals)):
+        raise LinkError(f"{where}: [[signal]] must hold 1 to {MAX_SIGNALS} tables")
+    tables: dict[str, dict[str, Any]] = {}
     for name, table in doc.items():
         if name not in _KEYS:
             raise LinkError(f"{where}: unknown table [{quote(name)[1:-1]}] (expected capture, signal, frame)")
+        if name == "signal" and many:
+            continue
         if not isinstance(table, dict):
             raise LinkError(f"{where}: {name} must be a table [{name}]")
-        for key in table:
-            if key not in _KEYS[name]:
-                raise LinkError(
-                    f"{where}: unknown key {quote(key)} in [{name}] "
-                    f"(expected {', '.join(sorted(_KEYS[name]))})"
-                )
         tables[name] = dict(table)
+    entries = []
+    for i, sig in enumerate(signals if many else [tables.get("signal", {})]):
+        sig = dict(sig)
+        default = f"{p.stem}-{i + 1}" if many else p.stem
+        label = sig.pop("name", default)
+        if not isinstance(label, str) or not label or len(label) > 64:
+            raise LinkError(f"{where}: signal name {quote(label)}: must be text of 1 to 64 characters")
+        one = {k: v for k, v in tables.items() if k != "signal"}
+        if sig or not many:
+            one["signal"] = sig
+        for table_name, table in one.items():
+            for key in table:
+                if key not in _KEYS[table_name]:
+                    raise LinkError(
+                        f"{where}: unknown key {quote(key)} in [{table_name}] "
+                        f"(expected {', '.join(sorted(_KEYS[table_name] | ({'name'} if table_name == 'signal' else set())))})"
+                    )
+        entries.append((label, one))
+    return where, entries
+
+
+def _link_from_tables(tables: dict[str, dict[str, Any]], overrides: Mapping[str, Any], where: str) -> Link:
     try:
         return _apply(tables, overrides)
     except LinkError as exc:

@@ -15,7 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from . import bursts as _bursts
-from .channel import ChannelPlan, plan_channel
+from .channel import ChannelPlan, plan_channels
 from .correlate import tone_sums, window_weights
 from .framing import sync_symbols
 from .link import Link
@@ -150,11 +150,23 @@ def plan_receiver(link: Link, sample_rate_hz: float, centre_hz: float | None = N
     LinkError
         When the signal does not fit the capture (see :meth:`Link.check_rate`).
     """
-    offset = link.check_rate(sample_rate_hz, centre_hz)
+    return plan_receivers((link,), sample_rate_hz, centre_hz)[0]
+
+
+def plan_receivers(links: "tuple[Link, ...]", sample_rate_hz: float, centre_hz: float | None = None
+                   ) -> tuple[ReceiverPlan, ...]:
+    """:func:`plan_receiver` for several links of one capture, their front ends sharing one FFT pass
+    (:func:`iqdemod.channel.plan_channels`); one link gets exactly :func:`plan_receiver`'s plan."""
+    offsets = [link.check_rate(sample_rate_hz, centre_hz) for link in links]
+    tuners = plan_channels(sample_rate_hz, [(link.signal, off) for link, off in zip(links, offsets)])
+    return tuple(ReceiverPlan(link, float(sample_rate_hz), off, centre_hz, tuner, _detector_for(link, tuner))
+                 for link, off, tuner in zip(links, offsets, tuners))
+
+
+def _detector_for(link: Link, tuner: ChannelPlan) -> _bursts.DetectorPlan:
     sig = link.signal
-    tuner = plan_channel(sample_rate_hz, sig, offset)
     overlap = link.frame.max_bits + 64 if not link.frame.raw else 64
-    detector = _bursts.plan_detector(
+    return _bursts.plan_detector(
         tuner.output_rate_hz,
         baud=sig.baud,
         band_hz=sig.shift_hz / 2 + sig.pull_in_hz + sig.baud / 2,
@@ -162,4 +174,3 @@ def plan_receiver(link: Link, sample_rate_hz: float, centre_hz: float | None = N
         overlap_symbols=overlap,
         settle_samples=-(-len(tuner.taps) // tuner.decimation),
     )
-    return ReceiverPlan(link, float(sample_rate_hz), offset, centre_hz, tuner, detector)

@@ -19,18 +19,18 @@ import datetime
 import queue
 import threading
 from pathlib import Path
-from typing import Iterator
+from typing import Iterator, Mapping, Sequence
 
 import numpy as np
 
 from . import bursts as _bursts
 from .bursts import RawBurst
 from .capture import Capture, CaptureInfo, DEFAULT_BLOCK_SAMPLES, open_capture
-from .channel import FrontEndReport, channelize, flush_channel, front_end_report
+from .channel import FrontEndReport, channelize_many, flush_channels, front_end_report
 from .demod import Burst, Frame, demodulate_burst, drop_repeats
 from .errors import IqdemodError, quote
 from .link import Link
-from .plan import ReceiverPlan, plan_receiver
+from .plan import ReceiverPlan, plan_receiver, plan_receivers
 from .sync import sync_candidates
 
 __all__ = ["ReceiverPlan", "Burst", "Frame", "Receiver", "DecodeSummary", "plan_receiver", "iter_bursts", "drive",
@@ -59,80 +59,129 @@ def _utc(start: datetime.datetime, t_s: float) -> str:
 class Receiver:
     """Streaming receiver for one capture: feed blocks, collect bursts.
 
-    The explicit states of the tuner and the burst detector live here between
-    calls; every stage underneath is a pure function of (input, state).
+    The explicit states of the front end and the burst detectors live here
+    between calls; every stage underneath is a pure function of (input, state).
+    Several links (signals of the same capture) share one read and one FFT
+    pass of the front end (:func:`iqdemod.channel.channelize_many`); each has
+    its own channel, detector and demodulator, and its frames carry its name.
 
     Parameters
     ----------
-    link : Link
+    link : Link, or a sequence of them, or a mapping of name to Link
+        A mapping names the links, and the frames then carry ``link``.
     info : CaptureInfo
         Sample rate, centre frequency and name of the capture.
     """
 
-    def __init__(self, link: Link, info: CaptureInfo):
-        self.plan = plan_receiver(link, info.sample_rate_hz, info.centre_hz)
+    def __init__(self, link: "Link | Sequence[Link] | Mapping[str, Link]", info: CaptureInfo):
+        links, self.names = _named_links(link)
+        self.plans = plan_receivers(links, info.sample_rate_hz, info.centre_hz)
+        self.plan = self.plans[0]
         self.info = info
+        self._tuners = tuple(p.tuner for p in self.plans)
         self._tuner = self.plan.tuner.initial_state()
-        self._detector = self.plan.detector.initial_state()
-        self._last_frame_sample = -np.inf
+        self._detectors = [p.detector.initial_state() for p in self.plans]
+        self._last_frame_sample = [-np.inf] * len(self.plans)
         self._name = Path(info.path).name
         self._start = _parse_utc(info.start_time)
 
     def feed(self, block: np.ndarray) -> list[Burst]:
-        """Process one block of input samples; return the bursts it completed."""
-        return self.take(self.tune(block))
+        """Process one block of input samples; return the bursts it completed (every link's)."""
+        return [b for k, raw in self.detect_all(self.tune_all(block)) for b in self.demodulate(raw, k)]
 
     def flush(self) -> list[Burst]:
-        """End of input: hand out the bursts still open."""
-        return self.take(self.tune_end()) + self.close_detector()
+        """End of input: hand out the bursts still open (every link's)."""
+        found = self.detect_all(self.tune_end_all()) + self.detect_end_all()
+        return [b for k, raw in found for b in self.demodulate(raw, k)]
+
+    def tune(self, block: np.ndarray) -> np.ndarray:
+        """The front end alone on one block: the first link's channel samples."""
+        return self.tune_all(block)[0]
+
+    def tune_end(self) -> np.ndarray:
+        """The front end's last channel samples (the first link's), at the end of input."""
+        return self.tune_end_all()[0]
+
+    def tune_all(self, block: np.ndarray) -> list[np.ndarray]:
+        """The front end on one block: every link's channel samples, from one FFT pass."""
+        ys, self._tuner = channelize_many(block, self._tuners, self._tuner)
+        return ys
+
+    def tune_end_all(self) -> list[np.ndarray]:
+        """Every link's last channel samples, at the end of input."""
+        ys, self._tuner = flush_channels(self._tuners, self._tuner)
+        return ys
+
+    def take(self, y: np.ndarray, link: int = 0) -> list[Burst]:
+        """One link's channel samples in, the bursts they completed out."""
+        return [burst for raw in self.detect(y, link) for burst in self.demodulate(raw, link)]
+
+    def detect(self, y: np.ndarray, link: int = 0) -> list[RawBurst]:
+        """The burst detector alone: one link's channel samples in, the detector buffers they completed out."""
+        found, self._detectors[link] = _bursts.detect(y, self.plans[link].detector, self._detectors[link])
+        return found
+
+    def detect_end(self, link: int = 0) -> list[RawBurst]:
+        """End of input, after the front end's last samples went through :meth:`detect`: the buffers still open."""
+        found, self._detectors[link] = _bursts.flush(self.plans[link].detector, self._detectors[link])
+        return found
+
+    def detect_all(self, ys: list[np.ndarray]) -> list[tuple[int, RawBurst]]:
+        """Every link's detector on its channel samples: (link index, buffer) pairs, in order of start."""
+        return self._in_order([(k, raw) for k, y in enumerate(ys) for raw in self.detect(y, k)])
+
+    def detect_end_all(self) -> list[tuple[int, RawBurst]]:
+        return self._in_order([(k, raw) for k in range(len(self.plans)) for raw in self.detect_end(k)])
+
+    def _in_order(self, found: list[tuple[int, RawBurst]]) -> list[tuple[int, RawBurst]]:
+        if len(self.plans) > 1:
+            found.sort(key=lambda item: item[1].start * self.plans[item[0]].tuner.decimation)
+        return found
 
     def close_detector(self) -> list[Burst]:
         """After the front end's last samples went through :meth:`take`: the bursts the detector still holds."""
         return [burst for raw in self.detect_end() for burst in self.demodulate(raw)]
-
-    def tune(self, block: np.ndarray) -> np.ndarray:
-        """The front end alone on one block: its channel samples (the first half of :meth:`feed`)."""
-        y, self._tuner = channelize(block, self.plan.tuner, self._tuner)
-        return y
-
-    def tune_end(self) -> np.ndarray:
-        """The front end's last channel samples, at the end of input."""
-        y, self._tuner = flush_channel(self.plan.tuner, self._tuner)
-        return y
-
-    def take(self, y: np.ndarray) -> list[Burst]:
-        """Channel samples in, the bursts they completed out (the second half of :meth:`feed`)."""
-        return [burst for raw in self.detect(y) for burst in self.demodulate(raw)]
-
-    def detect(self, y: np.ndarray) -> list[RawBurst]:
-        """The burst detector alone: channel samples in, the detector buffers they completed out."""
-        found, self._detector = _bursts.detect(y, self.plan.detector, self._detector)
-        return found
-
-    def detect_end(self) -> list[RawBurst]:
-        """End of input, after the front end's last samples went through :meth:`detect`: the buffers still open."""
-        found, self._detector = _bursts.flush(self.plan.detector, self._detector)
-        return found
 
     @property
     def front_end(self) -> FrontEndReport:
         """DC level and IQ imbalance measured on the samples fed so far."""
         return front_end_report(self._tuner.moments)
 
-    def demodulate(self, raw: RawBurst) -> list[Burst]:
-        """One detector buffer demodulated: its transmissions, in time order, frames not yet handed out."""
+    def demodulate(self, raw: RawBurst, link: int = 0) -> list[Burst]:
+        """One detector buffer of a link demodulated: its transmissions, in time order, frames not yet handed out."""
         out = []
-        half = 0.5 * self.plan.sample_rate_hz / self.plan.link.signal.baud
-        for burst in demodulate_burst(raw, self.plan, capture=self._name):
-            if self._start is not None and burst.frames:
-                burst = dataclasses.replace(burst, frames=tuple(
-                    dataclasses.replace(f, time_utc=_utc(self._start, f.t_s)) for f in burst.frames))
+        plan, name = self.plans[link], self.names[link]
+        half = 0.5 * plan.sample_rate_hz / plan.link.signal.baud
+        for burst in demodulate_burst(raw, plan, capture=self._name):
+            if burst.frames and (self._start is not None or name is not None):
+                burst = dataclasses.replace(burst, frames=tuple(dataclasses.replace(
+                    f, time_utc=None if self._start is None else _utc(self._start, f.t_s), link=name)
+                    for f in burst.frames))
             if burst.piece:  # pieces of a long burst overlap: drop frames already handed out
-                burst, self._last_frame_sample = drop_repeats(burst, self._last_frame_sample, half)
+                burst, self._last_frame_sample[link] = drop_repeats(burst, self._last_frame_sample[link], half)
             elif burst.frames:
-                self._last_frame_sample = max(self._last_frame_sample, max(f.sample for f in burst.frames))
+                self._last_frame_sample[link] = max(self._last_frame_sample[link], max(f.sample for f in burst.frames))
             out.append(burst)
         return out
+
+
+def _named_links(link) -> tuple[tuple[Link, ...], tuple[str | None, ...]]:
+    """The links to decode and their names (None: unnamed)."""
+    if isinstance(link, Link):
+        return (link,), (None,)
+    if isinstance(link, Mapping):
+        items = list(link.items())
+        names: tuple[str | None, ...] = tuple(str(k) for k, _ in items)
+        links = tuple(v for _, v in items)
+    else:
+        links = tuple(link)
+        names = (None,) * len(links)
+    if not links:
+        raise IqdemodError("no link to decode")
+    for item in links:
+        if not isinstance(item, Link):
+            raise TypeError(f"expected a Link, got {type(item).__name__}")
+    return links, names
 
 
 class DecodeSummary:
@@ -160,7 +209,7 @@ class DecodeSummary:
 
 def iter_bursts(
     capture: Capture,
-    link: Link,
+    link: "Link | Sequence[Link] | Mapping[str, Link]",
     *,
     block_samples: int = DEFAULT_BLOCK_SAMPLES,
     progress: bool = False,
@@ -171,7 +220,7 @@ def iter_bursts(
     ----------
     capture : Capture
         From :func:`iqdemod.open_capture`.
-    link : Link
+    link : Link, or several (see :class:`Receiver`)
     block_samples : int
         Samples read per block; the results do not depend on it.
     progress : bool
@@ -198,10 +247,10 @@ def drive(rx: "Receiver", capture: Capture, *, block_samples: int = DEFAULT_BLOC
         bar = tqdm(total=capture.info.n_samples or None, unit="S", unit_scale=True, desc=Path(capture.info.path).name,
                    leave=False, delay=1.0)
 
-    def buffers() -> Iterator[tuple[list[RawBurst], int]]:
+    def buffers() -> Iterator[tuple[list[tuple[int, RawBurst]], int]]:
         for block in capture.blocks(block_samples):
-            yield rx.detect(rx.tune(block)), len(block)
-        yield rx.detect(rx.tune_end()) + rx.detect_end(), 0
+            yield rx.detect_all(rx.tune_all(block)), len(block)
+        yield rx.detect_all(rx.tune_end_all()) + rx.detect_end_all(), 0
 
     # Reading, the front end and the burst detector run one block ahead in a second thread
     # while this one demodulates: the FFTs and reads release the interpreter lock, the
@@ -209,8 +258,8 @@ def drive(rx: "Receiver", capture: Capture, *, block_samples: int = DEFAULT_BLOC
     source = _ahead(buffers()) if PIPELINE else buffers()
     try:
         for found, n in source:
-            for raw in found:
-                yield from rx.demodulate(raw)
+            for k, raw in found:
+                yield from rx.demodulate(raw, k)
             if bar is not None and n:
                 bar.update(n)
     finally:
@@ -263,7 +312,7 @@ def _ahead(items: Iterator, depth: int = 2) -> Iterator:
 
 def decode(
     path: str | Path | Capture,
-    link: Link,
+    link: "Link | Sequence[Link] | Mapping[str, Link]",
     *,
     block_samples: int = DEFAULT_BLOCK_SAMPLES,
     progress: bool = False,
@@ -277,9 +326,12 @@ def decode(
     path : str, Path or Capture
         A capture file (see :func:`iqdemod.open_capture`) or an open capture
         (also a :class:`iqdemod.live.LiveCapture` read as it arrives).
-    link : Link
-        From :func:`iqdemod.load_link`. Its ``capture`` table supplies datatype
-        and rate for raw files.
+    link : Link, or a sequence of them, or a mapping of name to Link
+        From :func:`iqdemod.load_link` (or :func:`iqdemod.load_links`). The
+        first link's ``capture`` table supplies datatype and rate for raw
+        files. Several links are decoded in one pass over the capture; named
+        ones tag their frames with ``link``, and frames of different links
+        come interleaved as their bursts end.
     start_time : str, optional
         When the capture began (RFC 3339, e.g. ``2026-11-30T22:15:07Z``), for
         raw files that do not say; it overrides a SigMF ``core:datetime``.
@@ -293,9 +345,10 @@ def decode(
     summary : DecodeSummary, optional
         Filled in as the capture is read.
     """
+    first = _named_links(link)[0][0]
     with contextlib.ExitStack() as stack:
         cap = path if isinstance(path, Capture) else stack.enter_context(
-            open_capture(path, datatype=link.capture.datatype, sample_rate=link.capture.sample_rate)
+            open_capture(path, datatype=first.capture.datatype, sample_rate=first.capture.sample_rate)
         )
         if start_time is not None:
             if _parse_utc(start_time) is None:
