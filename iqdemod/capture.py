@@ -227,9 +227,7 @@ def pile_up(comp: np.ndarray, lo: float, hi: float) -> int:
     """
     if not lo < hi:  # a constant block (or an empty one) is no clipping
         return 0
-    # every component of a small block, one in PILE_UP_STRIDE of a large one (at least ~2000 looked at)
-    look = comp[:: min(PILE_UP_STRIDE, max(1, comp.size // 2048))]
-    at = [v for v in (hi, lo) if v != 0 and np.count_nonzero(look == v) >= PILE_UP_HITS]
+    at = [v for v in (hi, lo) if v != 0 and np.count_nonzero(_look(comp) == v) >= PILE_UP_HITS]
     if not at:
         return 0
     pairs = comp.reshape(-1, 2)
@@ -237,6 +235,33 @@ def pile_up(comp: np.ndarray, lo: float, hi: float) -> int:
     for v in at:
         mask |= (pairs == v).any(axis=1)
     return int(mask.sum())
+
+
+def _look(comp: np.ndarray) -> np.ndarray:
+    """Every component of a small block, one in PILE_UP_STRIDE of a large one (at least ~2000 looked at)."""
+    return comp[:: min(PILE_UP_STRIDE, max(1, comp.size // 2048))]
+
+
+def _float_block(comp: np.ndarray) -> tuple[np.ndarray, int, int]:
+    """float32 components to complex64: (samples, non-finite samples zeroed, clipped samples).
+
+    One reduction over the block (a sum: NaN and Inf propagate through it)
+    and a look at the strided components cost the common case; the block's
+    own extremes are found only when the look holds a repeated extreme, so
+    the count is exactly :func:`pile_up`'s.
+    """
+    bad = 0
+    with np.errstate(over="ignore", invalid="ignore"):
+        finite = np.isfinite(np.add.reduce(comp, dtype=np.float32))
+    if not finite:  # NaN or Inf somewhere (or a sum past float32's range: then nothing is counted)
+        comp = comp.copy()
+        bad_pairs = ~np.isfinite(comp).reshape(-1, 2).all(axis=1)
+        bad = int(bad_pairs.sum())
+        comp.reshape(-1, 2)[bad_pairs] = 0.0
+    look = _look(comp)
+    suspect = any(v != 0 and np.count_nonzero(look == v) >= PILE_UP_HITS for v in (look.max(), look.min()))
+    clipped = pile_up(comp, comp.min(), comp.max()) if suspect else 0
+    return comp.view(np.complex64), bad, clipped
 
 
 class _Converter:
@@ -263,18 +288,8 @@ class _Converter:
                 comp = buf.astype(np.float32, copy=False)  # native cf32: no copy at all
             if comp.size == 0:
                 return comp.view(np.complex64), 0, 0
-            # floats have no full scale: min and max only look for NaN/Inf (both propagate),
-            # whatever the capture's scale
-            lo, hi = comp.min(), comp.max()
-            bad = 0
-            if not (np.isfinite(lo) and np.isfinite(hi)):
-                comp = comp.copy()
-                finite = np.isfinite(comp)
-                bad_pairs = ~finite.reshape(-1, 2).all(axis=1)
-                bad = int(bad_pairs.sum())
-                comp.reshape(-1, 2)[bad_pairs] = 0.0
-                lo, hi = comp.min(), comp.max()
-            return comp.view(np.complex64), bad, pile_up(comp, lo, hi)
+            # floats have no full scale: only a pile-up at one extreme counts as clipping
+            return _float_block(comp)
         lo, hi = dt.full_scale
         clipped = 0
         if buf.size and (buf.min() <= lo or buf.max() >= hi):
