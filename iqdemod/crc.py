@@ -47,6 +47,7 @@ _ENTRIES = [
     CrcSpec("CRC-32/ISCSI", 32, 0x1EDC6F41, 0xFFFFFFFF, True, True, 0xFFFFFFFF, 0xE3069283),
 ]
 CRC_CATALOGUE: dict[str, CrcSpec] = {spec.name: spec for spec in _ENTRIES}
+_BY_FOLDED_NAME = {key.lower(): spec for key, spec in CRC_CATALOGUE.items()}
 
 
 def crc_spec(name: str) -> CrcSpec:
@@ -57,9 +58,9 @@ def crc_spec(name: str) -> CrcSpec:
     LinkError
         For a name not in :data:`CRC_CATALOGUE`.
     """
-    for key, spec in CRC_CATALOGUE.items():
-        if key.lower() == str(name).strip().lower():
-            return spec
+    spec = _BY_FOLDED_NAME.get(str(name).strip().lower())
+    if spec is not None:
+        return spec
     raise LinkError(f"CRC {name!r}: unknown (known: {', '.join(CRC_CATALOGUE)}, or \"none\")")
 
 

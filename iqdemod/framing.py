@@ -24,7 +24,6 @@ from dataclasses import dataclass
 from typing import NamedTuple
 
 import numpy as np
-from numpy.lib.stride_tricks import sliding_window_view
 
 from .coding import bits_to_bytes as _pack, bytes_to_bits, manchester_decode, manchester_encode, manchester_soft, whiten
 from .crc import crc_compute, crc_spec
@@ -215,9 +214,21 @@ def sync_errors(bits: np.ndarray, spec: FrameSpec) -> np.ndarray:
     n = spec.sync_bits
     if len(bits) < n:
         return np.zeros(0, dtype=np.int64)
-    pattern = int_to_bits(spec.sync_word, n).astype(np.int8)
-    windows = sliding_window_view(np.asarray(bits, dtype=np.int8), n)
-    return np.count_nonzero(windows != pattern, axis=1)
+    return _distances(np.asarray(bits), int_to_bits(spec.sync_word, n))
+
+
+def _distances(symbols: np.ndarray, pattern: np.ndarray) -> np.ndarray:
+    """Hamming distance of `pattern` against `symbols` at every start (0/1 arrays; int array).
+
+    With ±1 symbols, agreements minus disagreements is their correlation c, so
+    the distance is (n − c)/2: one correlation, exact in floating point (whole
+    numbers far below 2⁵³).
+    """
+    n = len(pattern)
+    if len(symbols) < n:
+        return np.zeros(0, dtype=np.int64)
+    corr = np.correlate(2.0 * symbols - 1.0, 2.0 * np.asarray(pattern, np.float64) - 1.0, mode="valid")
+    return np.rint((n - corr) / 2).astype(np.int64)
 
 
 def _candidates(dist: np.ndarray, tolerance: int, n: int):
@@ -282,7 +293,7 @@ def _find_coded(chips: np.ndarray, spec: FrameSpec, stats) -> list[FrameHit]:
     n = len(pattern)
     if len(chips) < n:
         return []
-    dist = np.count_nonzero(sliding_window_view(chips.astype(np.int8), n) != pattern, axis=1)
+    dist = _distances(chips, pattern)
     if stats is not None:
         z0, z1 = (np.asarray(z, dtype=np.float64) for z in stats)
         if z0.shape != chips.shape or z1.shape != chips.shape:
