@@ -373,34 +373,42 @@ def _kaiser_taps(ripple_db: float, width: float) -> int:
     return n | 1
 
 
-def _step(moments: FrontEndMoments, mean: complex, dc: complex, power: float, pseudo: complex, new: int
-          ) -> tuple[FrontEndMoments, complex]:
-    """The running moments after one block, and the IQ compensator w its samples get.
+def _steps(moments: FrontEndMoments, means: np.ndarray, sums: np.ndarray, squares: np.ndarray, new: int,
+           fresh_sums: np.ndarray | None = None) -> tuple[FrontEndMoments, np.ndarray, np.ndarray]:
+    """The running moments after a run of blocks, and the DC line and IQ compensator w of each.
 
-    `power` and `pseudo` are the block's own Σ|x − dc|² and Σ(x − dc)² over its
-    `new` samples. The imbalance is corrected only once the moments can tell it
-    from their own noise: for a circular signal |ΣP|/ΣC has a standard error
-    of about 1/√n, and a correction fitted to that noise would add an image
-    rather than remove one.
+    Block r has `new` fresh samples with mean ``means[r]``, Σ|x|² ``sums[r]``
+    and Σx² ``squares[r]`` (and Σx ``fresh_sums[r]``, else taken as `new` × the
+    block mean). Its DC line is the block means averaged over the
+    last DC_BLOCKS blocks (all of them at first), so that a signal sitting on
+    the centre keeps its own low frequencies; its moments are taken about that
+    line. The imbalance is corrected only once the moments can tell it from
+    their own noise: for a circular signal |ΣP|/ΣC has a standard error of
+    about 1/√n, and a correction fitted to that noise would add an image
+    rather than remove one. The loop is over plain numbers, block by block in
+    order (each block's w depends on all before it).
     """
-    c_tot, p_tot = moments.power + power, moments.pseudo + pseudo
-    n_tot = moments.n + new
-    w = _compensator(c_tot, p_tot) if abs(p_tot) > IMBALANCE_SIGMAS * c_tot / math.sqrt(max(n_tot, 1)) else 0j
-    # what the correction leaves: y = x − w·x* has E y² = P − 2wC + w²P*, E|y|² = (1 + |w|²)C − 2Re(w*P)
-    p_after = pseudo - 2 * w * power + w * w * pseudo.conjugate()
-    c_after = (1 + abs(w) ** 2) * power - 2 * (w.conjugate() * pseudo).real
-    return FrontEndMoments(
-        blocks=moments.blocks + 1, dc_estimate=dc, n=n_tot, dc_sum=moments.dc_sum + mean * new,
-        power=c_tot, pseudo=p_tot, pseudo_after=moments.pseudo_after + p_after,
-        power_after=moments.power_after + c_after,
-    ), w
-
-
-def _dc_line(moments: FrontEndMoments, mean: complex) -> complex:
-    """The DC line after a block of this mean: block means averaged over the last DC_BLOCKS blocks
-    (all of them at first), so that a signal sitting on the centre keeps its own low frequencies."""
-    weight = max(1.0 / (moments.blocks + 1), 1.0 / DC_BLOCKS)
-    return moments.dc_estimate + weight * (mean - moments.dc_estimate)
+    blocks, dc, n_tot, dc_sum = moments.blocks, moments.dc_estimate, moments.n, moments.dc_sum
+    c_tot, p_tot, p_after_tot, c_after_tot = moments.power, moments.pseudo, moments.pseudo_after, moments.power_after
+    ws = np.zeros(len(means), np.complex128)
+    dcs = np.zeros(len(means), np.complex128)
+    totals = (means * new if fresh_sums is None else fresh_sums).tolist()
+    for r, (mean, c_raw, p_raw, total) in enumerate(zip(means.tolist(), sums.tolist(), squares.tolist(), totals)):
+        dc = dc + max(1.0 / (blocks + 1), 1.0 / DC_BLOCKS) * (mean - dc)
+        # the block's moments about the DC line
+        power = c_raw - 2 * (dc.conjugate() * total).real + new * abs(dc) ** 2
+        pseudo = p_raw - 2 * dc * total + new * dc * dc
+        c_tot, p_tot, n_tot = c_tot + power, p_tot + pseudo, n_tot + new
+        w = _compensator(c_tot, p_tot) if abs(p_tot) > IMBALANCE_SIGMAS * c_tot / math.sqrt(max(n_tot, 1)) else 0j
+        # what the correction leaves: y = x − w·x* has E y² = P − 2wC + w²P*, E|y|² = (1 + |w|²)C − 2Re(w*P)
+        p_after_tot += pseudo - 2 * w * power + w * w * pseudo.conjugate()
+        c_after_tot += (1 + abs(w) ** 2) * power - 2 * (w.conjugate() * pseudo).real
+        dc_sum += mean * new
+        blocks += 1
+        ws[r], dcs[r] = w, dc
+    moments = FrontEndMoments(blocks=blocks, dc_estimate=dc, n=n_tot, dc_sum=dc_sum, power=c_tot, pseudo=p_tot,
+                              pseudo_after=p_after_tot, power_after=c_after_tot)
+    return moments, ws, dcs
 
 
 def _block(plans: tuple[ChannelPlan, ...], xb: np.ndarray, new: int, moments: FrontEndMoments,
@@ -416,13 +424,13 @@ def _block(plans: tuple[ChannelPlan, ...], xb: np.ndarray, new: int, moments: Fr
     lo = max(0, -block_start)
     hi = n - plan.hop + new
     mean = complex(xb[lo:hi].mean()) if hi > lo else 0j
-    dc = _dc_line(moments, mean)
-    xb = xb.copy()
-    xb[lo:hi] -= np.complex64(dc)
-    spec = _fft.fft(xb)[None, :]
     fresh = xb[n - plan.hop : n - plan.hop + new]
-    moments, w = _step(moments, mean, dc, float(np.vdot(fresh, fresh).real), complex(np.dot(fresh, fresh)), new)
-    ws, starts = np.array([w]), np.array([block_start])
+    moments, ws, dcs = _steps(moments, np.array([mean]), np.array([np.vdot(fresh, fresh).real]),
+                              np.array([np.dot(fresh, fresh)]), new, np.array([fresh.sum(dtype=np.complex128)]))
+    xb = xb.copy()
+    xb[lo:hi] -= np.complex64(dcs[0])
+    spec = _fft.fft(xb)[None, :]
+    starts = np.array([block_start])
     return [_to_channel(p, spec, ws, starts) for p in plans], moments
 
 
@@ -442,16 +450,10 @@ def _whole_blocks(plans: tuple[ChannelPlan, ...], rows: np.ndarray, moments: Fro
     count = rows.shape[0]
     specs = _fft.fft(rows, axis=1, workers=FFT_WORKERS)
     means = specs[:, 0].astype(np.complex128) / n
-    ws = np.zeros(count, np.complex128)
-    dcs = np.zeros(count, np.complex128)
-    for r in range(count):
-        mean = complex(means[r])
-        dc = _dc_line(moments, mean)
-        fresh = rows[r, lead:]  # their moments about the DC line (their sum taken as hop × the block mean)
-        power = float(np.vdot(fresh, fresh).real) - 2 * hop * (dc.conjugate() * mean).real + hop * abs(dc) ** 2
-        pseudo = complex(np.dot(fresh, fresh)) - 2 * hop * dc * mean + hop * dc * dc
-        moments, ws[r] = _step(moments, mean, dc, power, pseudo, hop)
-        dcs[r] = dc
+    fresh = [rows[r, lead:] for r in range(count)]
+    sums = np.array([np.vdot(f, f).real for f in fresh])
+    squares = np.array([np.dot(f, f) for f in fresh])
+    moments, ws, dcs = _steps(moments, means, sums, squares, hop)
     specs[:, 0] -= (n * dcs).astype(np.complex64)  # x − dc, for free
     starts = next_sample + np.arange(count) * hop - lead
     return [_to_channel(p, specs, ws, starts) for p in plans], moments
