@@ -1,7 +1,8 @@
 """Pass 2 of the survey: when each candidate band is on, and which bands are one signal.
 
-Each candidate band is tuned to 0 Hz, decimated and watched by an energy
-detector with hysteresis (a squelch on the band's power, its noise floor
+Each candidate band is tuned to 0 Hz and decimated by the receiver's own front
+end (:mod:`iqdemod.channel`, with its DC removal and IQ-image correction), and
+watched by an energy detector with hysteresis (a squelch on the band's power, its noise floor
 seeded from the averaged spectrum); the bursts' times are kept, and the first
 few bursts as short excerpts. Bands that are on at the same times (pieces of
 one spectrum, or the two tone lobes of a wide-shift signal, which start
@@ -19,12 +20,12 @@ from typing import Sequence
 
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
-from scipy import signal as _sig
 
 from ..capture import Capture
+from ..channel import ChannelPlan, ChannelState, channelize, flush_channel, plan_channel
 from ..errors import IqdemodError
+from ..link import SignalSpec
 from ..numeric import band_power
-from ..tune import STOPBAND_DB, TunerPlan, tune
 from .spectrum import Spectrum
 
 __all__ = ["ActivityPlan", "ActivityState", "ActivityBurst", "plan_activity", "activity_update", "Watch",
@@ -35,27 +36,32 @@ MAX_EXCERPT_SAMPLES = 1 << 15  # decimated samples kept per burst
 DETECTOR_BINS = 24  # FFT bins in the band per detector frame (sets the frame length) ...
 MIN_DETECTOR_BINS = 8  # ... or down to this many for a strong signal
 MIN_BURST_FRAMES = 3
-GROUPING_BURSTS = 256  # bursts compared when deciding whether two bands are one signal
+GROUPING_BURSTS = 256
+KEPT_BAND = 2.0  # bursts compared when deciding whether two bands are one signal
 
 
-def _band_tuner(sample_rate_hz: float, centre_hz: float, half_width_hz: float) -> TunerPlan:
-    """A tuner plan that keeps ±`half_width_hz` around `centre_hz` and decimates to about 5× that.
+def band_channel(sample_rate_hz: float, centre_hz: float, half_width_hz: float) -> ChannelPlan:
+    """The receiver's front end (:func:`iqdemod.channel.plan_channel`) set to keep ±`half_width_hz` around
+    `centre_hz`, decimated to about 5× that half-width.
 
-    The FIR is the tuner's own Kaiser-window design (Kaiser 1974).
+    The front end sizes its channel from a signal's shift, baud and carrier
+    pull-in (pass band shift/2 + baud + pull-in, stop band half a baud further
+    out, at least 8 samples a baud). A band is not a signal yet, so it is
+    described as one that asks for that pass band: a "baud" of 5/8 of the
+    half-width (so 8 samples a baud give 5 × the half-width, the survey's
+    rate) and a shift that fills the rest, with no pull-in.
+
+    Examples
+    --------
+    >>> plan = band_channel(1_024_000, -213_000.0, 4000.0)
+    >>> plan.passband_hz, plan.decimation, plan.offset_hz
+    (4000.0, 51, -213000.0)
     """
-    fs = sample_rate_hz
-    passband = min(half_width_hz, 0.45 * fs)
-    decimation = max(1, int(fs // (5.0 * passband)))
-    out_rate = fs / decimation
-    if decimation == 1:
-        taps = np.ones(1, np.float32)
-    else:
-        stop = out_rate - passband
-        n_taps, beta = _sig.kaiserord(STOPBAND_DB, (stop - passband) / (fs / 2))
-        n_taps |= 1
-        taps = _sig.firwin(n_taps, (passband + stop) / 2, window=("kaiser", beta), fs=fs)
-        taps = (taps / taps.sum()).astype(np.float32)
-    return TunerPlan(fs, float(centre_hz), decimation, taps, passband)
+    half = min(float(half_width_hz), 0.45 * float(sample_rate_hz))
+    baud = 0.625 * half
+    kept = min(KEPT_BAND * half, 0.45 * float(sample_rate_hz))
+    band = SignalSpec(baud=baud, shift_hz=2.0 * (kept - baud), max_freq_error_hz=0.0)
+    return plan_channel(sample_rate_hz, band, float(centre_hz))
 
 
 @dataclass(frozen=True, eq=False)
@@ -312,11 +318,11 @@ def _end_burst(plan: ActivityPlan, st: dict, out: list) -> None:
 
 @dataclass(frozen=True, eq=False)
 class Watch:
-    """Tuner and detector for one band (frequencies relative to the capture centre)."""
+    """The front end and the detector for one band (frequencies relative to the capture centre)."""
 
     low_hz: float
     high_hz: float
-    tuner: TunerPlan
+    tuner: ChannelPlan
     detector: ActivityPlan
 
     @property
@@ -332,7 +338,7 @@ def plan_watch(sample_rate_hz: float, low_hz: float, high_hz: float, spec: Spect
     """Tuner and detector for the band `low_hz`–`high_hz`, with a quarter of its width (two bins at least) of margin."""
     width = high_hz - low_hz
     margin = max(width / 4, 2 * spec.bin_hz)
-    tuner = _band_tuner(sample_rate_hz, (low_hz + high_hz) / 2, width / 2 + margin)
+    tuner = band_channel(sample_rate_hz, (low_hz + high_hz) / 2, width / 2 + margin)
     detector = plan_activity(tuner.output_rate_hz, width / 2 + margin / 2, spec.floor_density((low_hz + high_hz) / 2),
                              snr=10 ** (excess_db / 10))
     return Watch(low_hz, high_hz, tuner, detector)
@@ -369,22 +375,22 @@ def _take(act: Activity, found: list[ActivityBurst]) -> None:
 
 def watch_bands(capture: Capture, watches: Sequence[Watch], *, block_samples: int, progress: bool,
                 desc: str) -> list[Activity]:
-    """One pass: tune every band, detect its bursts, keep the first few as excerpts."""
+    """One pass: tune every band with the receiver's front end, detect its bursts, keep the first few as excerpts."""
     acts = [Activity(w) for w in watches]
-    tables = [w.tuner.table() for w in watches]
-    tstates = [w.tuner.initial_state() for w in watches]
+    tstates: list[ChannelState] = [w.tuner.initial_state() for w in watches]
     dstates = [w.detector.initial_state() for w in watches]
     bar = progress_bar(capture, progress, desc)
     try:
         for block in capture.blocks(block_samples):
             for i, w in enumerate(watches):
-                y, tstates[i] = tune(block, w.tuner, tstates[i], table=tables[i])
+                y, tstates[i] = channelize(block, w.tuner, tstates[i])
                 found, dstates[i] = activity_update(y, w.detector, dstates[i])
                 _take(acts[i], found)
             if bar is not None:
                 bar.update(len(block))
         for i, w in enumerate(watches):
-            found, dstates[i] = activity_update(np.zeros(0, np.complex64), w.detector, dstates[i], final=True)
+            y, tstates[i] = flush_channel(w.tuner, tstates[i])
+            found, dstates[i] = activity_update(y, w.detector, dstates[i], final=True)
             _take(acts[i], found)
             acts[i].floor = dstates[i].floor
     finally:

@@ -183,13 +183,17 @@ def _two_phases(times: list[np.ndarray], period: float) -> bool:
     fundamental. Folded on the bit period, the changes then sit at two
     phases, a third of them opposite the rest: the first circular moment
     |E exp(j2πt/T)| is about ⅓ while the second, |E exp(j4πt/T)|, stays near
-    1. On a true symbol grid both moments are alike.
+    1. On a true symbol grid both moments are alike. Each burst has its own
+    symbol phase, so the moments are taken burst by burst and their
+    magnitudes pooled (weighted by the changes in each): pooled over bursts
+    first, the phases would cancel at random.
     """
-    t = np.concatenate([np.asarray(x, float) for x in times]) if times else np.zeros(0)
-    if t.size < 16:
+    bursts = [np.asarray(x, float) for x in times if len(x)]
+    n = sum(len(t) for t in bursts)
+    if n < 16:
         return False
-    first = abs(np.mean(np.exp(1j * _TWO_PI * t / period)))
-    second = abs(np.mean(np.exp(2j * _TWO_PI * t / period)))
+    first = sum(abs(np.sum(np.exp(1j * _TWO_PI * t / period))) for t in bursts) / n
+    second = sum(abs(np.sum(np.exp(2j * _TWO_PI * t / period))) for t in bursts) / n
     return bool(first < 0.6 * second)
 
 

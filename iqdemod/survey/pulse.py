@@ -18,7 +18,7 @@ from scipy import signal as _sig
 
 from ..numeric import power_db
 from ..sequence import phase_trajectory, plan_sequence
-from ..tune import TunerPlan
+from ..channel import ChannelPlan
 from .activity import ActivityBurst, Watch
 from .modulation import Modulation, signal_span
 
@@ -38,6 +38,10 @@ _MIN_SEGMENTS = 24  # burst segments needed for a spectrum worth fitting
 # fits alike (residuals within a few per cent: 1 200 Bd at h 0.7, 16 dB), and the plainer pulse is kept;
 # a Gaussian pulse that shows fits 4–50 times better (BT 0.3–1, h 0.5–3, 16 dB).
 _GAUSSIAN_MARGIN = 0.8
+# Only bins the front end passes at this power gain or more are fitted: its channel filter falls by 70 dB
+# within half a baud, and there the Hann window's leakage from the pass band, not the filter's response,
+# sets what the periodogram shows (beyond it, the rounding noise of complex64 samples).
+KEPT_GAIN = 0.5
 
 
 @dataclass(frozen=True)
@@ -118,18 +122,16 @@ def _burst_spectrum(excerpts: list[ActivityBurst], rate_hz: float, baud: float,
     return freqs, np.fft.fftshift(total / (count * rate_hz))
 
 
-def _tuner_gain(tuner: TunerPlan, freqs_hz: np.ndarray) -> np.ndarray:
-    """|H(f)|² of the tuner's decimating filter at each output frequency and its aliases: (aliases, bins).
+def _channel_gain(channel: ChannelPlan, freqs_hz: np.ndarray) -> np.ndarray:
+    """|H(f)|² of the front end's channel filter at each output frequency (relative to the channel centre).
 
-    Row k is the response at f + (k − K)·rate, the input frequency that lands on f after decimation.
+    The front end decimates by keeping the FFT bins of its channel (see
+    :mod:`iqdemod.channel`), so nothing from outside them folds in: each output
+    frequency holds the input at that frequency times the filter's response.
     """
-    if tuner.decimation == 1:
-        return np.ones((1, len(freqs_hz)))
-    rate = tuner.output_rate_hz
-    shifts = np.arange(-2, 3)[:, None] * rate
-    _, resp = _sig.freqz(tuner.taps.astype(np.float64), worN=(freqs_hz[None, :] + shifts).ravel(),
-                         fs=tuner.sample_rate_hz)
-    return (np.abs(resp) ** 2).reshape(len(shifts), -1)
+    _, resp = _sig.freqz(np.asarray(channel.taps, np.float64), worN=np.asarray(freqs_hz, np.float64),
+                         fs=channel.sample_rate_hz)
+    return np.abs(resp) ** 2
 
 
 def _fit_shape(p_meas: np.ndarray, shape: np.ndarray, noise: np.ndarray) -> tuple[float, float, float]:
@@ -155,13 +157,13 @@ def pulse_shape(excerpts: list[ActivityBurst], watch: Watch, mod: Modulation) ->
     bin by bin with relative errors, by ``a·S(f) + n·N(f)`` for each
     candidate spectrum S (:func:`cpfsk_spectrum` at the measured h and baud:
     rect, and Gaussian with each of ``PULSE_BTS``), N the white noise floor;
-    both pass through the tuner's filter and its aliases, so the whole
-    decimated band counts, not only the filter's flat part. The Gaussian
-    candidate with the smallest mean squared log residual is called when that
-    residual is below ``_GAUSSIAN_MARGIN`` times the rectangle's, otherwise
-    the rectangle (the plainer pulse, on a near tie). Also measured: the share of the
-    signal's power beyond Carson's bandwidth within that band, noise removed,
-    dB. None when the bursts are too short or too few for a spectrum.
+    both pass through the front end's channel filter, and the bins it passes
+    with at least ``KEPT_GAIN`` are fitted. The Gaussian candidate with the
+    smallest mean squared log residual is called when that residual is below
+    ``_GAUSSIAN_MARGIN`` times the rectangle's, otherwise the rectangle (the
+    plainer pulse, on a near tie). Also measured: the share of the signal's
+    power beyond Carson's bandwidth within those bins, noise removed, dB.
+    None when the bursts are too short or too few for a spectrum.
     """
     rate, baud = watch.rate_hz, mod.baud
     h = (mod.tone_high_hz - mod.tone_low_hz) / baud
@@ -172,28 +174,23 @@ def pulse_shape(excerpts: list[ActivityBurst], watch: Watch, mod: Modulation) ->
         return None
     freqs, p_meas = got
     centre = (mod.tone_low_hz + mod.tone_high_hz) / 2
-    use = (np.abs(freqs) <= 0.48 * rate) & (p_meas > 0)
-    freqs, p_meas = freqs[use], p_meas[use]
-    gain = _tuner_gain(watch.tuner, freqs)
-    k0 = gain.shape[0] // 2
-    aliases = (np.arange(gain.shape[0]) - k0)[:, None] * rate
-    noise = gain.sum(axis=0)
+    gain = _channel_gain(watch.tuner, freqs)
+    use = (np.abs(freqs) <= 0.48 * rate) & (p_meas > 0) & (gain >= KEPT_GAIN)
+    freqs, p_meas, gain = freqs[use], p_meas[use], gain[use]
     h_key = round(h, 3)
     candidates = [("rect", None)] + [("gaussian", bt) for bt in PULSE_BTS]
     fits = []
     for pulse, bt in candidates:
         f_theory, s_theory = cpfsk_spectrum(h_key, pulse, 0.5 if bt is None else bt)
-        at = (freqs[None, :] + aliases - centre) / baud
-        shape = np.sum(gain * np.interp(at, f_theory, s_theory, left=0.0, right=0.0), axis=0)
-        fits.append(_fit_shape(p_meas, shape, noise))
+        shape = gain * np.interp((freqs - centre) / baud, f_theory, s_theory, left=0.0, right=0.0)
+        fits.append(_fit_shape(p_meas, shape, gain))
     best = 1 + int(np.argmin([f[2] for f in fits[1:]]))
     if not fits[best][2] <= _GAUSSIAN_MARGIN * fits[0][2]:
         best = 0
     pulse, bt = candidates[best]
-    # the share beyond Carson's bandwidth, where the filter keeps at least half the power
-    flat = gain[k0] >= 0.5
-    sig = (p_meas - fits[best][1] * noise)[flat] / gain[k0][flat]
-    off = np.abs(freqs[flat] - centre)
+    # the share beyond Carson's bandwidth, in the band the filter passes (noise removed, its response undone)
+    sig = (p_meas - fits[best][1] * gain) / gain
+    off = np.abs(freqs - centre)
     total, beyond = float(np.sum(sig)), float(np.sum(sig[off > (h / 2 + 1) * baud]))
     share = power_db(beyond / total) if total > 0 and beyond > 0 else None
     return PulseShape(pulse, bt, share)
