@@ -15,17 +15,15 @@ from __future__ import annotations
 import dataclasses
 import math
 from dataclasses import dataclass, field
-from functools import cached_property
 from typing import Sequence
 
 import numpy as np
-from numpy.lib.stride_tricks import sliding_window_view
 
+from ..bursts import FRAME_SYMBOLS, DetectorPlan, DetectorState, detect, flush, plan_detector
 from ..capture import Capture
 from ..channel import ChannelPlan, ChannelState, channelize, flush_channel, plan_channel
 from ..errors import IqdemodError
 from ..link import SignalSpec
-from ..numeric import band_power
 from .spectrum import Spectrum
 
 __all__ = ["ActivityPlan", "ActivityState", "ActivityBurst", "plan_activity", "activity_update", "Watch",
@@ -34,8 +32,12 @@ __all__ = ["ActivityPlan", "ActivityState", "ActivityBurst", "plan_activity", "a
 MAX_EXCERPTS = 12  # bursts kept per signal
 MAX_EXCERPT_SAMPLES = 1 << 15  # decimated samples kept per burst
 DETECTOR_BINS = 24  # FFT bins in the band per detector frame (sets the frame length) ...
-MIN_DETECTOR_BINS = 8  # ... or down to this many for a strong signal
-MIN_BURST_FRAMES = 3
+# ... or down to this many for a strong signal. (Down to 8, the noise statistic spreads so far that
+# its peaks, with the receiver's two frames of hang, pass for bursts of three frames: one in the suite's
+# 19 200 Bd capture.)
+MIN_DETECTOR_BINS = 16
+ON_SIGMAS, OFF_SIGMAS = 6.0, 3.0  # the hysteresis, in standard deviations of the noise statistic over the floor
+MIN_BURST_FRAMES = 3  # shorter bursts are the noise's own peaks
 GROUPING_BURSTS = 256
 KEPT_BAND = 2.0  # bursts compared when deciding whether two bands are one signal
 
@@ -66,93 +68,67 @@ def band_channel(sample_rate_hz: float, centre_hz: float, half_width_hz: float) 
 
 @dataclass(frozen=True, eq=False)
 class ActivityPlan:
-    """Fixed settings of the burst detector of one band (decimated samples).
+    """The receiver's burst detector (:mod:`iqdemod.bursts`) set up for one band, at the band's decimated rate.
 
-    The statistic of a *frame* of ``frame_len`` samples is its power in the
-    band's FFT bins, per sample; frames start every ``hop`` samples (a quarter
-    frame), so bursts are timed to a quarter frame while the statistic keeps a
-    whole frame's averaging. A burst starts above ``on_ratio`` × the noise
-    floor and ends after ``HANG`` frames in a row (a frame's length) below ``off_ratio`` × the
-    floor (a squelch's hysteresis); bursts shorter than ``MIN_BURST_FRAMES``
-    frames are dropped as noise. The thresholds sit 6 and 3 standard
-    deviations of the noise statistic above the floor. The floor starts at the
-    level the averaged spectrum gives and follows the quiet frames, updated on
-    a fixed grid of ``FLOOR_FRAMES`` frames.
+    The detector's statistic is the power in the band's FFT bins per frame
+    (:func:`iqdemod.numeric.band_power`), its floor minimum statistics refined
+    on the quiet frames, its thresholds a hysteresis (see
+    :mod:`iqdemod.bursts`). Where the survey differs, through the detector's
+    parameters: its frames hold ``MIN_DETECTOR_BINS`` to ``DETECTOR_BINS``
+    bins of the band (shorter for a strong signal, so that short gaps between
+    bursts are seen even in a narrow band), so its thresholds sit
+    ``ON_SIGMAS`` and ``OFF_SIGMAS`` standard deviations of the noise
+    statistic (1/√bins of the floor) above the floor rather than at the
+    receiver's fixed ratios (the floor is measured on the frames below the
+    off-threshold); a burst of fewer than ``MIN_BURST_FRAMES`` frames is
+    dropped as noise. What the survey adds: a long burst, handed out in pieces of at most
+    ``MAX_EXCERPT_SAMPLES``, joined again here; samples kept only for the
+    first `max_excerpts` bursts; and the noise floor the survey measures
+    signals against, from the averaged spectrum.
 
     Attributes
     ----------
     rate_hz : float
-    frame_len, hop : int
-    band_bins : numpy.ndarray
-        Boolean mask of the FFT bins (FFT order) inside the band.
-    floor0 : float
-        Initial noise floor, band power per sample.
+    detector : iqdemod.bursts.DetectorPlan
+    noise_floor : float
+        The band's noise power per sample from the averaged spectrum's
+        baseline, which a busy channel does not lift: the survey's Eb/N0 and
+        level are measured against it. (The detector's own floor, kept for its
+        thresholds, is measured on the frames below a threshold and so takes in
+        the edges of bursts: it reads 0.8 dB high on a channel busy 80 % of the
+        time.)
     max_excerpts : int
         Bursts whose samples are handed out (the first ones); later bursts are only timed.
-    max_excerpt_samples : int
-        Longest excerpt, samples.
     """
 
     rate_hz: float
-    frame_len: int
-    hop: int
-    band_bins: np.ndarray = field(repr=False)
-    floor0: float
+    detector: DetectorPlan
+    noise_floor: float
     max_excerpts: int = MAX_EXCERPTS
-    max_excerpt_samples: int = MAX_EXCERPT_SAMPLES
-
-    HANG = 4  # hops: a burst ends after a frame's length of quiet frames
-    FLOOR_FRAMES = 64
 
     def __post_init__(self) -> None:
-        if self.frame_len < 8 or not 1 <= self.hop <= self.frame_len:
-            raise IqdemodError(f"frame {self.frame_len}, hop {self.hop}: need frame >= 8 and 1 <= hop <= frame")
-        if not self.floor0 > 0:
-            raise IqdemodError(f"initial noise floor {self.floor0!r}: must be > 0")
-
-    @cached_property
-    def n_bins(self) -> int:
-        return int(self.band_bins.sum())
-
-    @cached_property
-    def on_ratio(self) -> float:
-        return 1.0 + 6.0 / math.sqrt(self.n_bins)
-
-    @cached_property
-    def off_ratio(self) -> float:
-        return 1.0 + 3.0 / math.sqrt(self.n_bins)
+        if not self.noise_floor > 0:
+            raise IqdemodError(f"noise floor {self.noise_floor!r}: must be > 0")
+        if self.max_excerpts < 0:
+            raise IqdemodError(f"max_excerpts {self.max_excerpts}: must be >= 0")
 
     @property
-    def margin(self) -> int:
-        """Samples kept on each side of a burst's core in its excerpt."""
-        return self.frame_len
+    def frame_len(self) -> int:
+        """Samples per detector frame."""
+        return self.detector.frame_len
+
+    @property
+    def band_bins(self) -> np.ndarray:
+        """Boolean mask of the frame's FFT bins inside the band."""
+        return self.detector.band_bins
 
     @property
     def band_hz(self) -> float:
         """Width of the band the statistic covers, Hz."""
-        return self.n_bins * self.rate_hz / self.frame_len
+        return int(self.band_bins.sum()) * self.rate_hz / self.frame_len
 
     def initial_state(self) -> "ActivityState":
-        return ActivityState(pending=np.zeros(0, np.complex64), pending_start=0, next_frame=0, floor=self.floor0)
-
-
-@dataclass(frozen=True, eq=False)
-class ActivityState:
-    """What a band's burst detector carries between blocks (see :func:`activity_update`)."""
-
-    pending: np.ndarray
-    pending_start: int  # decimated index of pending[0]
-    next_frame: int
-    floor: float
-    quiet_sum: float = 0.0
-    quiet_n: int = 0
-    in_burst: bool = False
-    first: int = 0  # first frame above the on-threshold
-    last: int = 0  # last frame above the off-threshold
-    quiet: int = 0
-    n_bursts: int = 0
-    held: np.ndarray | None = None  # the excerpt of a burst that outgrew max_excerpt_samples
-    held_start: int = 0
+        return ActivityState(detector=self.detector.initial_state())
 
 
 @dataclass(frozen=True, eq=False)
@@ -167,8 +143,9 @@ class ActivityBurst:
     start : int
         Decimated index of ``samples[0]``.
     samples : numpy.ndarray or None
-        The burst with a frame of margin on each side (cut at the excerpt
-        limit); None after the first ``max_excerpts`` bursts.
+        The burst with the detector's margins (its first piece, for a burst
+        longer than ``MAX_EXCERPT_SAMPLES``); None after the first
+        ``max_excerpts`` bursts.
     """
 
     index: int
@@ -183,43 +160,77 @@ class ActivityBurst:
         return (max(0, self.core[0] - self.start), min(n, self.core[1] - self.start))
 
 
+@dataclass(frozen=True, eq=False)
+class ActivityState:
+    """What a band's detector carries between blocks (see :func:`activity_update`).
+
+    Attributes
+    ----------
+    detector : iqdemod.bursts.DetectorState
+    open : ActivityBurst or None
+        A long burst whose first pieces the detector handed out and whose end is still to come.
+    handed : int
+        Bursts handed out so far.
+    """
+
+    detector: DetectorState
+    open: ActivityBurst | None = None
+    handed: int = 0
+
+
 def plan_activity(rate_hz: float, half_band_hz: float, floor_density: float, *, snr: float = 0.0,
-                  frame_len: int | None = None) -> ActivityPlan:
+                  frame_len: int | None = None, settle_samples: int = 0) -> ActivityPlan:
     """Detector settings for a band of ±`half_band_hz` at `rate_hz`.
 
     Parameters
     ----------
+    rate_hz : float
+        The band's decimated rate, Hz.
+    half_band_hz : float
+        Half-width of the band the statistic sums over, Hz.
     floor_density : float
         Noise power density, full scale² per Hz (from the averaged spectrum).
     snr : float
         The band's signal-to-noise ratio while on, if known (linear). A strong
         signal needs fewer FFT bins per frame, hence shorter frames: the
-        frame is as short as keeps the on-threshold (6 standard deviations of
-        the noise statistic) below half the signal's level, with
-        ``MIN_DETECTOR_BINS`` to ``DETECTOR_BINS`` bins in the band, so that short gaps between bursts
-        are seen even in a narrow band.
+        frame is as short as keeps the on-threshold below half the signal's
+        level, with ``MIN_DETECTOR_BINS`` to ``DETECTOR_BINS`` bins in the band.
     frame_len : int, optional
         Overrides that choice.
+    settle_samples : int
+        Samples at the start spoilt by the front end's start-up.
+
+    Examples
+    --------
+    >>> plan = plan_activity(100_000, 10_000, floor_density=0.05**2 / 100_000)
+    >>> plan.frame_len, int(plan.band_bins.sum()), round(plan.noise_floor, 6)
+    (128, 25, 0.0025)
+    >>> round(plan.detector.on_ratio, 2), round(plan.detector.off_ratio, 2)
+    (2.2, 1.6)
     """
     if frame_len is None:
         bins = DETECTOR_BINS if snr <= 0 else min(DETECTOR_BINS, max(MIN_DETECTOR_BINS, (12.0 / snr) ** 2))
         wanted = bins * rate_hz / (2 * half_band_hz)
-        frame_len = int(2 ** max(4, round(math.log2(max(1.0, wanted)))))
-    freqs = np.fft.fftfreq(frame_len, 1.0 / rate_hz)
-    band = np.abs(freqs) <= half_band_hz
-    if band.sum() < 4:
-        band = np.abs(freqs) <= 2 * rate_hz / frame_len
-    return ActivityPlan(float(rate_hz), int(frame_len), max(1, frame_len // 4), band,
-                        float(max(floor_density * rate_hz, 1e-30)))
+        frame_len = int(2 ** max(5, round(math.log2(max(1.0, wanted)))))
+    n_bins = int(np.count_nonzero(np.abs(np.fft.fftfreq(frame_len, 1.0 / rate_hz)) <= half_band_hz))
+    spread = 1.0 / math.sqrt(max(n_bins, 2))  # of the noise statistic (a mean of n_bins exponential bins)
+    # The detector sizes its frame as FRAME_SYMBOLS symbols: a "baud" that makes that `frame_len`.
+    detector = plan_detector(rate_hz, baud=rate_hz * FRAME_SYMBOLS / frame_len, band_hz=half_band_hz,
+                             max_symbols=FRAME_SYMBOLS * (MAX_EXCERPT_SAMPLES // frame_len), overlap_symbols=0,
+                             settle_samples=settle_samples, on_ratio=1.0 + ON_SIGMAS * spread,
+                             off_ratio=1.0 + OFF_SIGMAS * spread, quiet_ratio=1.0 + OFF_SIGMAS * spread)
+    return ActivityPlan(float(rate_hz), detector, float(max(floor_density * rate_hz, 1e-30)))
 
 
 def activity_update(y: np.ndarray, plan: ActivityPlan, state: ActivityState, *,
                     final: bool = False) -> tuple[list[ActivityBurst], ActivityState]:
     """Feed decimated samples to a band's burst detector.
 
-    Frames sit on a fixed grid of the global sample index and the floor is
-    updated on a fixed grid of frames, so the bursts found do not depend on
-    how the input was cut.
+    The receiver's detector (:func:`iqdemod.bursts.detect`, and
+    :func:`~iqdemod.bursts.flush` at the end) does the work; its frames and
+    floor sit on a fixed grid of the global sample index, so the bursts found
+    do not depend on how the input was cut. The pieces of a long burst are
+    joined into one burst here.
 
     Parameters
     ----------
@@ -237,83 +248,30 @@ def activity_update(y: np.ndarray, plan: ActivityPlan, state: ActivityState, *,
         Bursts completed by this call.
     state : ActivityState
     """
-    y = np.asarray(y, np.complex64)
-    pending = np.concatenate([state.pending, y]) if state.pending.size else y
-    p0 = state.pending_start
-    F, H = plan.frame_len, plan.hop
-    k0 = state.next_frame
-    n_frames = max(0, (p0 + len(pending) - F) // H - k0 + 1) if p0 + len(pending) >= F else 0
-    st = {f.name: getattr(state, f.name) for f in dataclasses.fields(state)}  # arrays are replaced, never changed
-    st["pending"] = pending
+    found, det = detect(np.asarray(y, np.complex64), plan.detector, state.detector)
+    if final:
+        more, det = flush(plan.detector, det)
+        found += more
     out: list[ActivityBurst] = []
-    if n_frames:
-        a = k0 * H - p0
-        frames = sliding_window_view(pending[a : a + (n_frames - 1) * H + F], F)[::H][:n_frames]
-        power = band_power(frames, plan.band_bins)
-        for i, pw in enumerate(power):
-            _step(k0 + i, float(pw), plan, st, out)
-    st["next_frame"] = k0 + n_frames
-    if final and st["in_burst"]:
-        _end_burst(plan, st, out)
-    # keep what an excerpt may still need
-    keep = st["next_frame"] * H - plan.margin
-    if st["in_burst"] and st["held"] is None and st["n_bursts"] < plan.max_excerpts:
-        keep = min(keep, st["first"] * H - plan.margin)
-    keep = max(keep, p0)
-    st["pending"] = pending[keep - p0 :].copy()
-    st["pending_start"] = keep
-    return out, ActivityState(**st)
-
-
-def _step(k: int, power: float, plan: ActivityPlan, st: dict, out: list) -> None:
-    """One frame of the hysteresis."""
-    floor = st["floor"]
-    H = plan.hop
-    if not st["in_burst"]:
-        if power > plan.on_ratio * floor:
-            st.update(in_burst=True, first=k, last=k, quiet=0, held=None)
-        elif power < plan.off_ratio * floor:
-            st["quiet_sum"] += power
-            st["quiet_n"] += 1
-    else:
-        if power < plan.off_ratio * floor:
-            st["quiet"] += 1
-            if st["quiet"] >= plan.HANG:
-                _end_burst(plan, st, out)
-        else:
-            st["quiet"] = 0
-            st["last"] = k
-            if (st["held"] is None and st["n_bursts"] < plan.max_excerpts
-                    and (k - st["first"]) * H + plan.frame_len + 2 * plan.margin >= plan.max_excerpt_samples):
-                start = st["first"] * H - plan.margin
-                a = max(0, start - st["pending_start"])
-                st["held"] = st["pending"][a : a + plan.max_excerpt_samples].copy()
-                st["held_start"] = max(start, st["pending_start"])
-    if (k + 1) % plan.FLOOR_FRAMES == 0:
-        if st["quiet_n"] >= plan.FLOOR_FRAMES // 8:
-            st["floor"] = 0.7 * floor + 0.3 * st["quiet_sum"] / st["quiet_n"]
-        st["quiet_sum"], st["quiet_n"] = 0.0, 0
-
-
-def _end_burst(plan: ActivityPlan, st: dict, out: list) -> None:
-    """Hand out the open burst, unless it is too short to be one (a noise blip)."""
-    H, F = plan.hop, plan.frame_len
-    core = (st["first"] * H, st["last"] * H + F)
-    if core[1] - core[0] < MIN_BURST_FRAMES * F:
-        st.update(in_burst=False, quiet=0, held=None)
-        return
-    index = st["n_bursts"]
-    if st["held"] is not None:
-        burst = ActivityBurst(index, core, st["held_start"], st["held"])
-    elif index < plan.max_excerpts:
-        start = max(core[0] - plan.margin, st["pending_start"])
-        a, b = start - st["pending_start"], core[1] + plan.margin - st["pending_start"]
-        burst = ActivityBurst(index, core, start, st["pending"][a:b].copy())
-    else:
-        burst = ActivityBurst(index, core)
-    out.append(burst)
-    st.update(in_burst=False, quiet=0, n_bursts=index + 1, held=None)
-
+    current, handed = state.open, state.handed
+    for i, raw in enumerate(found):
+        core = (raw.start + raw.core[0], raw.start + raw.core[1])
+        if raw.piece == 0 or current is None:
+            current = ActivityBurst(handed, core, raw.start, raw.samples)
+        else:  # a later piece of a long burst: it carries the burst's end
+            current = dataclasses.replace(current, core=(current.core[0], core[1]))
+        # a piece is its burst's last when the next one is another burst, or the detector has closed it
+        last = found[i + 1].index != raw.index if i + 1 < len(found) else raw.index < det.n_bursts
+        if not last:
+            continue
+        # The detector drops a burst of one loud frame; the survey's frames are shorter, so the noise's
+        # own peaks last longer in frames: fewer than MIN_BURST_FRAMES of them are not a burst.
+        if current.core[1] - current.core[0] >= MIN_BURST_FRAMES * plan.frame_len:
+            keep = current.samples if handed < plan.max_excerpts else None
+            out.append(dataclasses.replace(current, index=handed, samples=keep))
+            handed += 1
+        current = None
+    return out, ActivityState(det, current, handed)
 
 
 @dataclass(frozen=True, eq=False)
@@ -335,18 +293,19 @@ class Watch:
 
 
 def plan_watch(sample_rate_hz: float, low_hz: float, high_hz: float, spec: Spectrum, excess_db: float = 0.0) -> Watch:
-    """Tuner and detector for the band `low_hz`–`high_hz`, with a quarter of its width (two bins at least) of margin."""
+    """Front end and detector for the band `low_hz`–`high_hz`, with a quarter of its width (two bins at least)
+    of margin."""
     width = high_hz - low_hz
     margin = max(width / 4, 2 * spec.bin_hz)
     tuner = band_channel(sample_rate_hz, (low_hz + high_hz) / 2, width / 2 + margin)
     detector = plan_activity(tuner.output_rate_hz, width / 2 + margin / 2, spec.floor_density((low_hz + high_hz) / 2),
-                             snr=10 ** (excess_db / 10))
+                             snr=10 ** (excess_db / 10), settle_samples=-(-len(tuner.taps) // tuner.decimation))
     return Watch(low_hz, high_hz, tuner, detector)
 
 
 @dataclass
 class Activity:
-    """What one band's watch saw: burst intervals (input samples), excerpts, noise floor."""
+    """What one band's watch saw: burst intervals (input samples) and excerpts."""
 
     watch: Watch
     intervals: list[tuple[float, float]] = field(default_factory=list)
@@ -392,7 +351,7 @@ def watch_bands(capture: Capture, watches: Sequence[Watch], *, block_samples: in
             y, tstates[i] = flush_channel(w.tuner, tstates[i])
             found, dstates[i] = activity_update(y, w.detector, dstates[i], final=True)
             _take(acts[i], found)
-            acts[i].floor = dstates[i].floor
+            acts[i].floor = dstates[i].detector.floor
     finally:
         if bar is not None:
             bar.close()

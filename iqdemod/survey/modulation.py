@@ -413,17 +413,17 @@ def _modulation_once(excerpts: list[ActivityBurst], rate_hz: float, centre_hz: f
     return Modulation(centre_hz + lo, centre_hz + hi, rate_hz / period, eye)
 
 
-def ebn0_and_level(excerpts: list[ActivityBurst], watch: Watch, floor: float | None,
-                   baud: float) -> tuple[float, float]:
-    """Rough Eb/N0 (dB) and level while on (dBFS) from the band power of the bursts over the detector's noise floor.
+def ebn0_and_level(excerpts: list[ActivityBurst], watch: Watch, baud: float,
+                   measured: float | None = None) -> tuple[float, float]:
+    """Rough Eb/N0 (dB) and level while on (dBFS) from the band power of the bursts over the band's noise floor.
 
     With S/N the in-band power ratio over the detector's band B (its FFT bins),
     Eb/N0 = (S/N)·B / baud; the signal power is (S/N)·floor·N/n_bins per sample.
+    The floor is the averaged spectrum's (:attr:`~iqdemod.survey.activity.ActivityPlan.noise_floor`).
     """
     det = watch.detector
     fl = det.frame_len
-    if not floor or floor <= 0:
-        return math.nan, math.nan
+    floor = det.noise_floor if measured is None else min(det.noise_floor, measured)
     ratios = []
     for raw in excerpts:
         c0, c1 = raw.local_core

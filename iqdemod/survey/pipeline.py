@@ -157,7 +157,7 @@ def _characterise(capture: Capture, act: Activity, *, block_samples: int, framin
         return None
     centre = w.tuner.offset_hz
     lo, hi = centre + mod.tone_low_hz, centre + mod.tone_high_hz
-    ebn0, level = ebn0_and_level(act.excerpts, w, act.floor, mod.baud)
+    ebn0, level = ebn0_and_level(act.excerpts, w, mod.baud, act.floor)
     shape = pulse_shape(act.excerpts, w, mod)
     first = act.excerpts[0]
     layout, checked = Layout(), 0
