@@ -39,25 +39,28 @@ MIN_DETECTOR_BINS = 16
 ON_SIGMAS, OFF_SIGMAS = 6.0, 3.0  # the hysteresis, in standard deviations of the noise statistic over the floor
 MIN_BURST_FRAMES = 3  # shorter bursts are the noise's own peaks
 GROUPING_BURSTS = 256
-KEPT_BAND = 2.0  # bursts compared when deciding whether two bands are one signal
+KEPT_BAND = 2.0  # the front end's flat pass band, in half-widths of the band watched  # bursts compared when deciding whether two bands are one signal
 
 
 def band_channel(sample_rate_hz: float, centre_hz: float, half_width_hz: float) -> ChannelPlan:
-    """The receiver's front end (:func:`iqdemod.channel.plan_channel`) set to keep ±`half_width_hz` around
-    `centre_hz`, decimated to about 5× that half-width.
+    """The receiver's front end (:func:`iqdemod.channel.plan_channel`) set up for a band of ±`half_width_hz`
+    around `centre_hz`, decimated to about 5× that half-width.
 
     The front end sizes its channel from a signal's shift, baud and carrier
     pull-in (pass band shift/2 + baud + pull-in, stop band half a baud further
     out, at least 8 samples a baud). A band is not a signal yet, so it is
-    described as one that asks for that pass band: a "baud" of 5/8 of the
-    half-width (so 8 samples a baud give 5 × the half-width, the survey's
-    rate) and a shift that fills the rest, with no pull-in.
+    described as one that asks for that rate and pass band: a "baud" of 5/8
+    of the half-width (8 samples a baud give 5 × the half-width) and a shift
+    that fills the pass band, with no pull-in. The pass band is ``KEPT_BAND``
+    times the half-width, flat: the modulation and pulse estimates look past
+    the band the spectrum showed (only its strongest part may have stood out),
+    out to where the decimated rate ends.
 
     Examples
     --------
     >>> plan = band_channel(1_024_000, -213_000.0, 4000.0)
     >>> plan.passband_hz, plan.decimation, plan.offset_hz
-    (4000.0, 51, -213000.0)
+    (8000.0, 51, -213000.0)
     """
     half = min(float(half_width_hz), 0.45 * float(sample_rate_hz))
     baud = 0.625 * half

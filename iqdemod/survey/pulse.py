@@ -87,6 +87,14 @@ def cpfsk_spectrum(h: float, pulse: str, bt: float) -> tuple[np.ndarray, np.ndar
     compared with, so that both are smoothed alike (the spectral lines of
     whole h included). The bits come from a fixed seed: the result is a
     function of (h, pulse, bt) only, and cached.
+
+    Examples
+    --------
+    >>> f, p = cpfsk_spectrum(1.0, "rect", 0.5)
+    >>> round(float(np.sum(p) * (f[1] - f[0])), 6)  # unit power
+    1.0
+    >>> bool(np.all(np.diff(f) > 0)), float(f[np.argmax(p)]) in (-0.5, 0.5)  # peaks at the tones, ±h/2 baud
+    (True, True)
     """
     plan = plan_sequence(h=h, pulse=pulse, bt=bt, n_symbols=1)
     bits = np.random.default_rng(0x5EED).integers(0, 2, _THEORY_SYMBOLS)
