@@ -2,9 +2,9 @@
 
 Each candidate band is tuned to 0 Hz and decimated by the receiver's own front
 end (:mod:`iqdemod.channel`, with its DC removal and IQ-image correction), and
-watched by an energy detector with hysteresis (a squelch on the band's power, its noise floor
-seeded from the averaged spectrum); the bursts' times are kept, and the first
-few bursts as short excerpts. Bands that are on at the same times (pieces of
+watched by the receiver's own burst detector (:mod:`iqdemod.bursts`: the band's
+power against a tracked noise floor, with hysteresis); the bursts' times are
+kept, and the first few bursts as short excerpts. Bands that are on at the same times (pieces of
 one spectrum, or the two tone lobes of a wide-shift signal, which start
 together on the alternating preamble) are one signal; such a signal is tuned
 again as a whole (one more pass, only when it happens).

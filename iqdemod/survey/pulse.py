@@ -112,7 +112,7 @@ def cpfsk_spectrum(h: float, pulse: str, bt: float) -> tuple[np.ndarray, np.ndar
 
 def _burst_spectrum(excerpts: list[ActivityBurst], rate_hz: float, baud: float,
                     detector_frame: int) -> tuple[np.ndarray, np.ndarray] | None:
-    """Averaged periodogram of the bursts' own samples (frequency relative to the tuner centre, PSD), or None."""
+    """Averaged periodogram of the bursts' own samples (frequency relative to the channel's centre, PSD), or None."""
     nper = int(round(_SPECTRUM_SEGMENT_SYMBOLS * rate_hz / baud))
     if nper < 16:
         return None
