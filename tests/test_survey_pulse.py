@@ -97,6 +97,17 @@ def test_spectrum_falls_faster_beyond_carson_with_a_gaussian_pulse(captures):
     assert shares["Gaussian BT 0.3, h 1"] is None or shares["Gaussian BT 0.3, h 1"] < shares["rect, h 1"] - 8
 
 
+def test_level_is_the_transmitted_power(captures):
+    # the test modulator's amplitude for Eb/N0 16 dB over its noise (REFERENCE §8: A²·(fs/Rb)/σ² = Eb/N0);
+    # a keyed tone of amplitude A has power A², so its level is 20·log10 A dBFS
+    level = 20 * math.log10(ref.amplitude_for_ebn0(16.0, noise_rms=NOISE, rate=RATE, baud=BAUD))
+    for name in CASES:
+        with iqdemod.open_capture(captures[name][0]) as cap:
+            (sig,) = S.survey(cap, framing=False).signals
+        assert sig.level_dbfs == pytest.approx(level, abs=1.0), name
+        assert sig.ebn0_db == pytest.approx(16.0, abs=1.0), name
+
+
 def test_theoretical_spectrum_is_the_closed_form_msk_spectrum():
     # MSK (rect pulse, h = 0.5): S(f) = (16/π²)·cos²(2πfT)/(1 − 16f²T²)², T = 1, unit power
     # [book] Proakis, Digital Communications, the CPFSK/MSK spectrum; Pasupathy, IEEE Commun. Mag. 17(4),

@@ -418,8 +418,14 @@ def ebn0_and_level(excerpts: list[ActivityBurst], watch: Watch, baud: float,
     """Rough Eb/N0 (dB) and level while on (dBFS) from the band power of the bursts over the band's noise floor.
 
     With S/N the in-band power ratio over the detector's band B (its FFT bins),
-    Eb/N0 = (S/N)·B / baud; the signal power is (S/N)·floor·N/n_bins per sample.
-    The floor is the averaged spectrum's (:attr:`~iqdemod.survey.activity.ActivityPlan.noise_floor`).
+    Eb/N0 = (S/N)·B / baud. The statistic is the band's mean periodogram bin
+    over the frame length N: white noise of variance σ² gives σ² (the floor),
+    a signal of power S wholly inside the n_bins of the band S·N/n_bins
+    (Parseval), so S = (S/N)·floor·n_bins/N.
+    The floor is the lower of the averaged spectrum's
+    (:attr:`~iqdemod.survey.activity.ActivityPlan.noise_floor`) and the
+    detector's own, `measured`: a wide signal lifts the first, a busy channel
+    (edges of bursts among the quiet frames) the second.
     """
     det = watch.detector
     fl = det.frame_len
@@ -438,4 +444,4 @@ def ebn0_and_level(excerpts: list[ActivityBurst], watch: Watch, baud: float,
     snr = max(float(np.median(ratios)) - 1.0, 1e-6)
     n_bins = int(det.band_bins.sum())
     band_hz = n_bins * watch.rate_hz / fl
-    return power_db(snr * band_hz / baud), power_db(snr * floor * fl / n_bins)
+    return power_db(snr * band_hz / baud), power_db(snr * floor * n_bins / fl)
