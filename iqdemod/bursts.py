@@ -31,6 +31,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .numeric import band_power
+
 __all__ = ["DetectorPlan", "DetectorState", "RawBurst", "plan_detector", "detect", "flush"]
 
 ON_RATIO = 1.6
@@ -61,6 +63,12 @@ class DetectorPlan:
         Frames at the start of the stream that hold the front end's start-up
         (its filter over the zeros before the first sample); they take no part
         in the noise floor.
+    on_ratio, off_ratio : float
+        The hysteresis' thresholds, times the floor (``ON_RATIO``, ``OFF_RATIO``
+        for the receiver's frames; the survey scales them with its bins).
+    quiet_ratio : float
+        Frames below this times the minimum-statistics guard are the quiet
+        ones the floor is measured on (``ON_RATIO``).
     """
 
     frame_len: int
@@ -68,6 +76,9 @@ class DetectorPlan:
     max_frames: int
     overlap_frames: int
     settle_frames: int = 0
+    on_ratio: float = ON_RATIO
+    off_ratio: float = OFF_RATIO
+    quiet_ratio: float = ON_RATIO
 
     def initial_state(self) -> "DetectorState":
         return DetectorState()
@@ -117,7 +128,8 @@ class RawBurst:
 
 
 def plan_detector(rate_hz: float, *, baud: float, band_hz: float, max_symbols: int, overlap_symbols: int,
-                  settle_samples: int = 0) -> DetectorPlan:
+                  settle_samples: int = 0, on_ratio: float = ON_RATIO, off_ratio: float = OFF_RATIO,
+                  quiet_ratio: float = ON_RATIO) -> DetectorPlan:
     """Detector settings for a decimated stream at `rate_hz`.
 
     Parameters
@@ -128,6 +140,9 @@ def plan_detector(rate_hz: float, *, baud: float, band_hz: float, max_symbols: i
         Longest burst piece and the overlap between pieces, in symbols.
     settle_samples : int
         Samples at the start spoilt by the front end's start-up.
+    on_ratio, off_ratio, quiet_ratio
+        The hysteresis and the floor's quiet frames (see :class:`DetectorPlan`);
+        the receiver's by default.
     """
     sps = rate_hz / baud
     frame_len = int(2 ** round(np.log2(max(32.0, FRAME_SYMBOLS * sps))))
@@ -142,17 +157,14 @@ def plan_detector(rate_hz: float, *, baud: float, band_hz: float, max_symbols: i
         max_frames=max(8, int(np.ceil(max_symbols / frame_sym))),
         overlap_frames=int(np.ceil(overlap_symbols / frame_sym)) + PRE_FRAMES,
         settle_frames=-(-int(settle_samples) // frame_len),
+        on_ratio=float(on_ratio),
+        off_ratio=float(off_ratio),
+        quiet_ratio=float(quiet_ratio),
     )
 
 
 def _frame_power(x: np.ndarray, plan: DetectorPlan) -> np.ndarray:
-    """Mean power of the signal band's bins in each detector frame (float64, one per frame)."""
-    from scipy import fft as _fft  # single precision, no upcast: numpy's FFT would work in complex128
-
-    frames = x.reshape(-1, plan.frame_len)
-    spec = _fft.fft(frames, axis=1)[:, plan.band_bins]
-    power = spec.real**2 + spec.imag**2
-    return power.mean(axis=1, dtype=np.float64) / plan.frame_len
+    return band_power(x.reshape(-1, plan.frame_len), plan.band_bins)
 
 
 @functools.lru_cache(maxsize=64)
@@ -174,7 +186,7 @@ def _floor_from(minima: tuple[float, ...], n_bins: int) -> float:
 def _run_block(power: np.ndarray, first_frame: int, st: dict, plan: DetectorPlan, out: list) -> None:
     """Hysteresis over one floor block; appends burst tuples (see :func:`_emit`) to `out`."""
     floor = st["floor"]
-    on, off = ON_RATIO * floor, OFF_RATIO * floor
+    on, off = plan.on_ratio * floor, plan.off_ratio * floor
     fl = plan.frame_len
     for i, p in enumerate(power):
         f = first_frame + i
@@ -250,7 +262,7 @@ def _advance(state: DetectorState, y: np.ndarray, plan: DetectorPlan, *, final: 
         if len(settled):
             st["minima"] = (st["minima"] + (float(settled.min()),))[-HISTORY_BLOCKS:]
         guard = _floor_from(st["minima"], n_bins) if st["minima"] else float(np.median(power))
-        quiet = settled[settled < ON_RATIO * guard]
+        quiet = settled[settled < plan.quiet_ratio * guard]
         level = float(quiet.mean()) if len(quiet) >= 8 else guard
         st["floor"] = level if st["floor"] is None else 0.7 * st["floor"] + 0.3 * level
         found: list = []

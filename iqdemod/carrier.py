@@ -24,6 +24,8 @@ import functools
 
 import numpy as np
 
+from .numeric import parabolic_offset
+
 __all__ = ["coarse_offset", "residual_offset"]
 
 
@@ -64,10 +66,7 @@ def coarse_offset(x: np.ndarray, rate_hz: float, *, baud: float, shift_hz: float
     delta = float(grid[i])
     step = grid[1] - grid[0] if len(grid) > 1 else 0.0
     if 0 < i < len(score) - 1:  # parabolic refinement between grid points
-        a, b, c = score[i - 1], score[i], score[i + 1]
-        denom = a - 2 * b + c
-        if denom < 0:
-            delta += 0.5 * (a - c) / denom * step
+        delta += parabolic_offset(score[i - 1], score[i], score[i + 1]) * step
     return float(np.clip(delta, -pull_in_hz, pull_in_hz))
 
 

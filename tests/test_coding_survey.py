@@ -32,7 +32,7 @@ def test_survey_suggests_coding_and_whitening_and_its_profile_decodes(tmp_path, 
     assert sig.whitening == layout.get("whitening", "none")
     assert sig.baud == pytest.approx(BAUD, rel=0.01)  # the chip rate: baud is the rate on the air
     assert sig.offset_hz == pytest.approx(OFFSET, abs=0.05 * BAUD)
-    assert sig.sync_guess == "0x9b3c57e1" and sig.length == "prefix8" and sig.crc == "CRC-16/IBM-3740"
+    assert sig.sync_word == "0x9b3c57e1" and sig.length == "prefix8" and sig.crc == "CRC-16/IBM-3740"
     assert sig.as_dict()["coding"] == sig.coding
     # the profile it writes reads back and decodes every frame
     profile = tmp_path / "suggested.toml"

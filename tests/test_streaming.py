@@ -11,7 +11,6 @@ import iqdemod
 from iqdemod import bursts as B
 from iqdemod.receiver import plan_receiver
 from iqdemod.channel import channelize, flush_channel
-from iqdemod.tune import plan_tuner, tune
 
 from conftest import make_capture, make_link
 
@@ -65,19 +64,6 @@ def test_channel_moves_the_signal_to_zero_with_unit_gain(plan, samples):
     f = np.fft.fftfreq(len(y), 1 / plan.rate_hz)
     assert abs(f[np.argmax(spec)] - 4000) < plan.rate_hz / len(y) * 1.5
     assert np.mean(np.abs(y)) == pytest.approx(0.3, rel=0.03)
-
-
-@settings(max_examples=15, deadline=None)
-@given(cuts=st.lists(st.integers(0, 60_000), max_size=8))
-def test_survey_tuner_is_cut_invariant(plan, samples, cuts):
-    """The survey's polyphase tuner (tune.py) keeps its own contract."""
-    tp = plan_tuner(1_024_000, plan.link.signal, plan.offset_hz)
-    whole, _ = tune(samples, tp, tp.initial_state())
-    state, outs = tp.initial_state(), []
-    for piece in _pieces(samples, cuts):
-        y, state = tune(piece, tp, state)
-        outs.append(y)
-    np.testing.assert_allclose(np.concatenate(outs), whole, rtol=0, atol=1e-6)
 
 
 @pytest.fixture(scope="module")

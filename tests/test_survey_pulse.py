@@ -97,12 +97,23 @@ def test_spectrum_falls_faster_beyond_carson_with_a_gaussian_pulse(captures):
     assert shares["Gaussian BT 0.3, h 1"] is None or shares["Gaussian BT 0.3, h 1"] < shares["rect, h 1"] - 8
 
 
+def test_level_is_the_transmitted_power(captures):
+    # the test modulator's amplitude for Eb/N0 16 dB over its noise (REFERENCE §8: A²·(fs/Rb)/σ² = Eb/N0);
+    # a keyed tone of amplitude A has power A², so its level is 20·log10 A dBFS
+    level = 20 * math.log10(ref.amplitude_for_ebn0(16.0, noise_rms=NOISE, rate=RATE, baud=BAUD))
+    for name in CASES:
+        with iqdemod.open_capture(captures[name][0]) as cap:
+            (sig,) = S.survey(cap, framing=False).signals
+        assert sig.level_dbfs == pytest.approx(level, abs=1.0), name
+        assert sig.ebn0_db == pytest.approx(16.0, abs=1.0), name
+
+
 def test_theoretical_spectrum_is_the_closed_form_msk_spectrum():
     # MSK (rect pulse, h = 0.5): S(f) = (16/π²)·cos²(2πfT)/(1 − 16f²T²)², T = 1, unit power
     # [book] Proakis, Digital Communications, the CPFSK/MSK spectrum; Pasupathy, IEEE Commun. Mag. 17(4),
     # 1979 (from memory). The survey's spectrum is a Welch average with 8-symbol Hann segments, so the
     # closed form is smoothed by the same window's kernel before comparing.
-    f_sim, p_sim = S._cpfsk_spectrum(0.5, "rect", 0.5)
+    f_sim, p_sim = S.cpfsk_spectrum(0.5, "rect", 0.5)
     nper = len(f_sim)
     sps = nper * (f_sim[1] - f_sim[0])  # the simulation's samples per symbol: its spectrum spans ±sps/2 baud
     fine = np.linspace(-sps / 2, sps / 2, 64 * nper, endpoint=False)
@@ -131,7 +142,7 @@ def test_result_fields_validate_and_the_table_shows_the_pulse(captures, tmp_path
     with iqdemod.open_capture(meta) as cap:
         (sig,) = S.survey(cap, framing=False).signals
     base = dict(offset_hz=0.0, tone_low_hz=-1.0, tone_high_hz=1.0, baud=2.0, bursts=1,
-                burst_lengths_s=S.BurstLengths.of([0.1]), ebn0_db=10.0, power_db=-20.0, band_low_hz=-3.0,
+                burst_lengths_s=S.BurstLengths.of([0.1]), ebn0_db=10.0, level_dbfs=-20.0, band_low_hz=-3.0,
                 band_high_hz=3.0)
     for bad in (dict(pulse="sinc"), dict(pulse="gaussian"), dict(pulse="rect", bt=0.5),
                 dict(pulse="gaussian", bt=5.0)):
