@@ -97,6 +97,12 @@ class EbN0Estimate:
     The private field ``_stats`` holds the sums the estimate came from
     (empty for an estimate built by hand); :func:`pool` uses it. It is left
     out of :meth:`as_dict`, repr and equality.
+
+    Examples
+    --------
+    >>> est = EbN0Estimate(10.0, (9.5, 10.5), 400, "data-aided")
+    >>> est.ebn0, est.as_dict()["ci90_db"]
+    (10.0, [9.5, 10.5])
     """
 
     ebn0_db: float

@@ -1,0 +1,12 @@
+"""Deprecated (issue 11): the command now lives in :mod:`iqdemod_cli.commands.survey`.
+
+Kept only for the tests that still import this module for the group
+(``tests/test_batch.py``, ``tests/test_survey.py``); remove it when they
+import :mod:`iqdemod_cli.main` instead. Not a command module: the group never
+imports it, so it may import the group without a circle.
+"""
+
+from .commands.survey import command as survey  # noqa: F401
+from .main import main  # noqa: F401
+
+__all__ = ["main", "survey"]
