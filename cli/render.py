@@ -136,8 +136,10 @@ def _margin_rows(r) -> list[tuple[str, str, str]]:
     if r.margin_db is not None:
         rows.append(("margin", _db(r.margin_db, True),
                      f"to BER {r.target_ber:g}: Eb/N0 {r.ebn0_db:.2f} dB against {r.ebn0_needed_db:.2f} dB needed"))
+    fitted = r.detector == "multi-symbol"  # its Eb/N0 is fitted against the pulse itself: no gain to count
     if r.ebn0_needed_db is not None:
         rows.append(("Eb/N0 needed", _db(r.ebn0_needed_db),
+                     f"theory for this link (the {r.detector_symbols}-symbol detector)" if fitted else
                      f"theory for this link {r.theory_ebn0_needed_db:.2f} dB, less this receiver's gain "
                      f"{r.decision_gain_db:.2f} dB"))
     elif r.ebn0_db is not None:
@@ -146,9 +148,10 @@ def _margin_rows(r) -> list[tuple[str, str, str]]:
         rows.append(("coherent reference", _db(r.coherent_ebn0_needed_db),
                      f"coherent orthogonal FSK in theory; non-coherent orthogonal FSK needs "
                      f"{r.noncoherent_penalty_db:.2f} dB more"))
-    rows.append(("receiver gain", _db(r.decision_gain_db, True),
-                 "this receiver's filter passes less noise than the textbook correlator, so its decisions "
-                 "work at Eb/N0 plus this (the predictions count it)"))
+    if not fitted:
+        rows.append(("receiver gain", _db(r.decision_gain_db, True),
+                     "this receiver's filter passes less noise than the textbook correlator, so its decisions "
+                     "work at Eb/N0 plus this (the predictions count it)"))
     return rows
 
 

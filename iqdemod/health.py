@@ -297,7 +297,7 @@ class HealthAccumulator:
             verdict=verdict, causes=tuple(causes), margin_db=_finite(margin), target_ber=target_ber,
             mismatch_loss_db=mismatch, clipped_fraction=float(clipped_fraction),
             frame_bits=round(self._bits_sum / self._bits_n) if self._bits_n else None,
-            decision_gain_db=-corr, warnings=tuple(warnings), start_time=start_time,
+            decision_gain_db=0.0 - corr, warnings=tuple(warnings), start_time=start_time,
             **tx, **observed, **need, **_front_end_fields(front_end), **_link_fields(plan),
             histogram_edges_db=tuple(float(v) for v in HIST_EDGES_DB),
             histogram_right=tuple(int(v) for v in self.hist_right),

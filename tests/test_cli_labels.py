@@ -146,3 +146,21 @@ def test_plots_take_their_colours_from_the_palette(capture, monkeypatch, which):
     used = {to_hex(line.get_color()) for ax in fig.axes for line in ax.lines}
     used |= {to_hex(p.get_facecolor()) for ax in fig.axes for p in ax.patches}
     assert used and used <= palette, used - palette
+
+
+def test_multi_symbol_report_claims_no_filter_gain(capture):
+    """The multi-symbol detector's Eb/N0 is fitted against the pulse: no receiver-gain row, no "-0.00 dB"."""
+    import dataclasses
+
+    from iqdemod_cli.render import health_text
+
+    meta, _ = capture
+    r = assess(meta, make_link())
+    fitted = dataclasses.replace(r, detector="multi-symbol", detector_symbols=5, decision_gain_db=0.0,
+                                 ebn0_needed_db=r.theory_ebn0_needed_db)
+    text = health_text(fitted)
+    rows = {line.split("  ")[1] for line in text.splitlines()[3:] if line.startswith("  ") and "  " in line[2:]}
+    assert "receiver gain" not in rows and "receiver's gain" not in text
+    assert "theory for this link (the 5-symbol detector)" in text
+    assert "receiver gain" in {line.split("  ")[1] for line in health_text(r).splitlines()[3:]}
+    assert r.decision_gain_db > 0 and fitted.decision_gain_db == 0.0
