@@ -33,6 +33,7 @@ from typing import Iterable, NamedTuple
 import numpy as np
 
 from . import predict as P
+from .binomial import binomial_p_value, clopper_pearson, fer_from_ber
 from .capture import Capture, DEFAULT_BLOCK_SAMPLES, open_capture
 from .channel import FrontEndReport
 from .errors import IqdemodError
@@ -346,9 +347,9 @@ class HealthAccumulator:
             return out
         bad = self.frames - self.good
         out["fer_observed"] = bad / self.frames
-        out["fer_observed_ci95"] = tuple(float(v) for v in P.clopper_pearson(bad, self.frames))
+        out["fer_observed_ci95"] = tuple(float(v) for v in clopper_pearson(bad, self.frames))
         if fer_predicted is not None:
-            out["fer_p_value"] = float(P.binomial_p_value(bad, self.frames, min(max(fer_predicted, 1e-300), 1.0)))
+            out["fer_p_value"] = float(binomial_p_value(bad, self.frames, min(max(fer_predicted, 1e-300), 1.0)))
         return out
 
     def _predict(self, snr_db: float, snr_ci, kw) -> tuple:
@@ -369,7 +370,7 @@ class HealthAccumulator:
         def rates(offset_db: float) -> tuple[float, float]:
             g = P.from_db(shrunk + offset_db)
             pb = np.asarray(_pb(g, kw, self.plan), float)
-            fer = np.asarray(P.fer_from_ber(pb, np.maximum(bits, 1)), float)
+            fer = np.asarray(fer_from_ber(pb, np.maximum(bits, 1)), float)
             return float(np.average(pb, weights=nfr * bits)), float(np.average(fer, weights=nfr))
 
         ber, fer = rates(0.0)

@@ -9,11 +9,12 @@ import inspect
 
 import pytest
 
+import iqdemod.binomial
 import iqdemod.estimate
 import iqdemod.health
 import iqdemod.predict
 
-MODULES = [iqdemod.predict, iqdemod.estimate, iqdemod.health]
+MODULES = [iqdemod.predict, iqdemod.binomial, iqdemod.estimate, iqdemod.health]
 
 
 @pytest.mark.parametrize("module", MODULES, ids=lambda m: m.__name__)
