@@ -24,7 +24,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
 import iqdemod  # noqa: E402
 from iqdemod import coding  # noqa: E402
 from iqdemod.framing import frame_bits  # noqa: E402
-from iqdemod.health import assess  # noqa: E402
+from iqdemod.health import assess_with_frames  # noqa: E402
 from iqdemod.link import FrameSpec  # noqa: E402
 from test_coding_receiver import link_for, modulated_capture  # noqa: E402  (the independent modulator)
 
@@ -63,13 +63,12 @@ def manchester_health(w: Path) -> None:
     print("Manchester, 400 frames a level: predicted PER (REFERENCE §10) against the CRC failures")
     for i, level in enumerate((11.0, 12.0, 13.0)):
         meta, _ = modulated_capture(w / f"h{i}", dict(coding="manchester"), ebn0_db=level, frames=400, seed=500 + i)
-        frames: list = []
-        r = assess(meta, link_for(dict(coding="manchester")), frames_out=frames)
+        r, frames = assess_with_frames(meta, link_for(dict(coding="manchester")))
         cut = sum(f.truncated for f in frames)
         bad = r.frames - r.frames_crc_ok
-        p = stats.binomtest(bad, r.frames, r.per_predicted).pvalue
-        print(f"  {level:4.1f} dB: Eb/N0 estimate {r.ebn0_db:5.2f} dB, PER predicted {r.per_predicted:.4f} "
-              f"observed {bad}/{r.frames} = {r.per_observed:.4f}; exact binomial p = {r.per_p_value:.3f} "
+        p = stats.binomtest(bad, r.frames, r.fer_predicted).pvalue
+        print(f"  {level:4.1f} dB: Eb/N0 estimate {r.ebn0_db:5.2f} dB, frame error rate predicted {r.fer_predicted:.4f} "
+              f"observed {bad}/{r.frames} = {r.fer_observed:.4f}; exact binomial p = {r.fer_p_value:.3f} "
               f"(scipy.stats.binomtest: {p:.3f}), {r.verdict}; model {r.pb_model}; "
               f"of 400 sent, {cut} cut short by their burst's end (left out), {400 - r.frames - cut} not found")
 

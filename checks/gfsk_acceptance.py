@@ -114,11 +114,11 @@ def row_prediction(workdir, *, n, seed, levels=(9.0, 9.5)):
     for k, eb in enumerate(levels):
         meta, _ = build(workdir, f"g{k}", ebn0_db=eb, h=0.5, bt=0.5, n_frames=n, seed=seed + k)
         r = iqdemod.health.assess(meta, link_for(0.5, 0.5))
-        good = r.verdict.startswith("consistent") and r.per_p_value is not None and r.per_p_value >= 0.01
-        in_range = r.per_observed is not None and 0.05 <= r.per_observed <= 0.40
+        good = r.verdict.startswith("consistent") and r.fer_p_value is not None and r.fer_p_value >= 0.01
+        in_range = r.fer_observed is not None and 0.05 <= r.fer_observed <= 0.40
         ok &= good and in_range
-        out.append(f"{eb:g} dB: estimated {r.ebn0_db:.2f} dB, predicted {r.per_predicted:.3f}, observed "
-                   f"{r.per_observed:.3f} ({r.frames - r.frames_crc_ok}/{r.frames}), p = {r.per_p_value:.3g}, "
+        out.append(f"{eb:g} dB: estimated {r.ebn0_db:.2f} dB, predicted {r.fer_predicted:.3f}, observed "
+                   f"{r.fer_observed:.3f} ({r.frames - r.frames_crc_ok}/{r.frames}), p = {r.fer_p_value:.3g}, "
                    f"{r.verdict}")
     return ok, "; ".join(out)
 

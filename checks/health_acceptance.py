@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 
 import iqdemod
-from iqdemod.health import assess
+from iqdemod.health import assess, assess_with_frames
 from iqdemod.synth import SynthConfig, synthesize
 
 LINK = iqdemod.load_link(None, datatype="cf32_le", rate=1_024_000, offset=137_000, baud=9600, shift=9600,
@@ -43,13 +43,12 @@ def main() -> None:
             meta, _ = make(w, f"p{i}", (true,), 400, 2000 + i, freq_error_hz=1200.0, clock_ppm=-50.0)
             r = assess(meta, LINK)
             bad = r.frames - r.frames_crc_ok
-            print(f"  {true:4.1f} dB: PER predicted {r.per_predicted:.4f} [90 % {r.per_predicted_ci90[0]:.4f} … "
-                  f"{r.per_predicted_ci90[1]:.4f}], observed {r.per_observed:.4f} ({bad}/{r.frames}), "
-                  f"exact binomial p = {r.per_p_value:.3f} -> {r.verdict}; Eb/N0 est {r.ebn0_db:.2f}")
+            print(f"  {true:4.1f} dB: frame error rate predicted {r.fer_predicted:.4f} [90 % {r.fer_predicted_ci90[0]:.4f} … "
+                  f"{r.fer_predicted_ci90[1]:.4f}], observed {r.fer_observed:.4f} ({bad}/{r.frames}), "
+                  f"exact binomial p = {r.fer_p_value:.3f} -> {r.verdict}; Eb/N0 est {r.ebn0_db:.2f}")
         print("\nper-frame Eb/N0, bursts of 12–24 dB (125 frames)")
         meta, truth = make(w, "mixed", (12.0, 15.0, 18.0, 21.0, 24.0), 125, 3000, freq_error_hz=800.0, clock_ppm=40.0)
-        frames: list = []
-        r = assess(meta, LINK, frames_out=frames)
+        r, frames = assess_with_frames(meta, LINK)
         t_true = np.array([f["t_s"] for f in truth["frames"]])
         e_true = np.array([f["ebn0_db"] for f in truth["frames"]])
         err = np.array([f.ebn0_db - e_true[np.argmin(np.abs(t_true - f.t_s))] for f in frames])

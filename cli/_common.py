@@ -92,10 +92,24 @@ def link_options(fn: Callable) -> Callable:
     return fn
 
 
-def link_from_options(kw: dict[str, Any]) -> iqdemod.Link:
-    """Build the link from --link and the override flags; pops them from `kw`."""
+def link_overrides(kw: dict[str, Any]) -> dict[str, Any]:
+    """The override flags' values (None where not given), read from `kw` without taking them out."""
+    return {name: kw.get(name) for name in iqdemod.link.OVERRIDES}
+
+
+def link_from_options(kw: dict[str, Any], *, optional: bool = False) -> iqdemod.Link | None:
+    """Build the link from --link and the override flags; pops them from `kw`.
+
+    With `optional`, a command line that names no link at all (no --link,
+    and neither --baud nor --shift, which every link needs) gives None, for a
+    command that can find links elsewhere (batch: a folder's link.toml).
+    """
+    overrides = link_overrides(kw)
     path = kw.pop("link", None)
-    overrides = {name: kw.pop(name, None) for name in list(iqdemod.link.OVERRIDES)}
+    for name in overrides:
+        kw.pop(name, None)
+    if optional and path is None and overrides["baud"] is None and overrides["shift"] is None:
+        return None
     return iqdemod.load_link(path, **overrides)
 
 
@@ -105,6 +119,7 @@ def say(message: str) -> None:
 
 
 def warn(message: str) -> None:
+    """A warning line for people, on stderr."""
     click.echo(f"warning: {message}", err=True)
 
 

@@ -1,115 +1,12 @@
-"""The ``batch`` command: link health of a whole archive, on every core or on a Dask cluster."""
+"""Deprecated (issue 11): the command now lives in :mod:`iqdemod_cli.commands.batch`.
 
-from __future__ import annotations
+Kept only for the tests that still import this module for the group
+(``tests/test_batch.py``, ``tests/test_survey.py``); remove it when they
+import :mod:`iqdemod_cli.main` instead. Not a command module: the group never
+imports it, so it may import the group without a circle.
+"""
 
-import contextlib
-import signal
-import threading
-from pathlib import Path
-from typing import Iterator
+from .commands.batch import command as batch  # noqa: F401
+from .main import main  # noqa: F401
 
-import click
-
-import iqdemod
-from iqdemod import batch as B
-
-from ._common import EXIT_FAILED, EXIT_OK, finite, link_options, say
-from .main import STOP_SIGNALS, main
-
-__all__ = ["batch"]
-
-
-class _Terminated(KeyboardInterrupt):
-    """SIGTERM, SIGHUP or SIGQUIT, handled like Ctrl-C: stop, keep every finished capture."""
-
-    def __init__(self, signum: int = signal.SIGTERM):
-        super().__init__(signum)
-        self.signum = signum
-
-
-@contextlib.contextmanager
-def _stop_signals_as_interrupt() -> Iterator[None]:
-    if threading.current_thread() is not threading.main_thread():
-        yield
-        return
-
-    def stop(signum, frame):
-        raise _Terminated(signum)
-
-    old = {sig: signal.signal(sig, stop) for sig in STOP_SIGNALS}
-    try:
-        yield
-    finally:
-        for sig, handler in old.items():
-            signal.signal(sig, handler)
-
-
-@main.command()
-@click.argument("paths", nargs=-1, required=True, type=click.Path())
-@link_options
-@click.option("-o", "--output", "report", required=True, type=click.Path(dir_okay=False, path_type=Path),
-              help="The CSV report, one row per capture (written atomically when the batch is done).")
-@click.option("--frames", type=click.Path(dir_okay=False, path_type=Path), default=None,
-              help="Also write every frame of every capture to this JSON Lines file.")
-@click.option("-j", "--jobs", type=click.IntRange(1, 1024), default=None,
-              help="Worker processes [default: one per core]; 1 runs in this process.")
-@click.option("--resume", is_flag=True,
-              help="Keep the captures an earlier (or killed) run finished with status ok and unchanged size, "
-                   "mtime and link; failed ones are tried again.")
-@click.option("--cluster", metavar="ADDRESS", default=None,
-              help="Send the work to a running Dask scheduler, e.g. tcp://10.0.0.5:8786 "
-                   "(needs pip install 'iqdemod[cluster]').")
-@click.option("--target-ber", type=finite(0, 0.5, min_open=True, max_open=True), default=1e-5,
-              show_default=True, help="The BER the margin is measured against.")
-@click.option("--plot", type=click.Path(dir_okay=False, path_type=Path), default=None,
-              help="Write a PNG of Eb/N0 and frame error rate against capture time, one line per transmitter.")
-@click.option("-q", "--quiet", is_flag=True, help="No progress bar and no summary.")
-@click.pass_context
-def batch(ctx, paths, report, frames, jobs, resume, cluster, target_ber, plot, quiet, **link_kw) -> None:
-    """Assess every capture of an archive and write one CSV row per capture.
-
-    PATH is a capture file, a folder (searched recursively) or a glob pattern
-    (quote it; ** reaches into subfolders). A SigMF pair counts once; .sigmf archives, WAV/FLAC
-    and raw IQ files (.cu8 .ci8 .cs8 .ci16 .cs16 .cf32 .cfile .raw .iq .bin,
-    which need --datatype and --rate or a profile's [capture] table) are
-    taken too; anything else, *.truth.json included, is skipped.
-
-    A folder holding a link.toml gives its own link profile to the captures
-    below it (the flags still override it), and names their transmitter;
-    otherwise transmitters are told apart by their carrier error.
-
-    A capture that fails does not stop the batch: its row says why. Rows (and
-    frames) are saved as each capture finishes, in REPORT.partial, so a killed
-    or interrupted run keeps every finished capture: run the same command with
-    --resume to finish it. Exit status: 0 when every capture was processed,
-    1 when any failed, 130 after Ctrl-C, 128 + the signal's number after
-    SIGTERM (143), SIGHUP (129) or SIGQUIT (131). The report, the frames file,
-    their journals and the plot must be regular files and none of them an
-    input (a capture, a profile).
-    """
-    link_path = link_kw.pop("link", None)
-    overrides = {name: link_kw.pop(name, None) for name in list(iqdemod.link.OVERRIDES)}
-    if jobs is not None and cluster is not None:
-        raise click.UsageError("--jobs and --cluster exclude each other (the cluster has its own workers)")
-    # Without --link and without the two values every link needs, each capture must find a
-    # folder link.toml (the library says so if one does not).
-    link = None
-    if link_path is not None or overrides["baud"] is not None or overrides["shift"] is not None:
-        link = iqdemod.load_link(link_path, **overrides)
-    try:
-        with _stop_signals_as_interrupt():
-            result = B.run_batch(
-                paths, link, report=report, frames=frames, jobs=jobs, resume=resume, cluster=cluster,
-                target_ber=target_ber, link_overrides=overrides, plot=plot, progress=not quiet,
-                inputs=[("--link profile", link_path)],
-            )
-    except KeyboardInterrupt as exc:
-        say(f"interrupted: every finished capture is kept in {B.partial_path(report)}; "
-            "run the same command with --resume to finish")
-        ctx.exit(128 + exc.signum if isinstance(exc, _Terminated) else 130)
-    if not quiet:
-        for line in result.summary():
-            say(line)
-        if plot is not None:
-            say(f"trend plot: {plot}")
-    ctx.exit(EXIT_FAILED if result.n_failed else EXIT_OK)
+__all__ = ["main", "batch"]

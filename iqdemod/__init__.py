@@ -22,7 +22,8 @@ _HOMES = {
     "open_capture": "capture", "Capture": "capture", "CaptureInfo": "capture",
     "load_link": "link", "load_links": "link", "Link": "link", "SignalSpec": "link", "FrameSpec": "link",
     "decode": "receiver", "iter_bursts": "receiver", "Burst": "receiver", "Frame": "receiver",
-    "assess": "health", "HealthReport": "health",
+    "assess": "health", "assess_with_frames": "health", "HealthReport": "health", "Decoding": "receiver",
+    "DecodeSummary": "receiver",
 }
 
 
@@ -59,6 +60,9 @@ __all__ = [
     "Burst",
     "Frame",
     "assess",
+    "assess_with_frames",
+    "Decoding",
+    "DecodeSummary",
     "HealthReport",
     "predict",
     "survey",

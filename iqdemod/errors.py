@@ -7,7 +7,8 @@ A value the user gave is quoted with :func:`quote`, at most 80 characters of it.
 
 from __future__ import annotations
 
-__all__ = ["IqdemodError", "CaptureError", "LinkError", "OutputError", "IqdemodWarning", "quote", "QUOTE_CHARS"]
+__all__ = ["IqdemodError", "CaptureError", "LinkError", "EstimateError", "OutputError", "IqdemodWarning", "quote",
+           "QUOTE_CHARS"]
 
 QUOTE_CHARS = 80
 
@@ -22,6 +23,17 @@ class CaptureError(IqdemodError):
 
 class LinkError(IqdemodError, ValueError):
     """A link description (profile or flags) has a bad, missing or unknown value."""
+
+
+class EstimateError(IqdemodError, ValueError):
+    """A statistics or theory routine got numbers it cannot work with.
+
+    An Eb/N0 below zero, a probability outside [0, 1], more errors than
+    trials, estimates of different methods to pool, no noise to measure, or a
+    target BER below a link's error floor (:mod:`iqdemod.estimate`,
+    :mod:`iqdemod.predict`). A bad *link* parameter given to them (tone
+    spacing, pulse, samples per symbol) stays a :class:`LinkError`.
+    """
 
 
 class OutputError(IqdemodError):

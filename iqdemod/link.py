@@ -43,7 +43,7 @@ from .crc import crc_spec
 from ._io import read_small_text
 from .errors import LinkError, quote
 
-__all__ = ["CaptureFormat", "SignalSpec", "FrameSpec", "Link", "load_link", "load_links", "link_to_toml"]
+__all__ = ["CaptureFormat", "SignalSpec", "FrameSpec", "Link", "load_link", "load_links", "link_to_toml", "sync_label"]
 
 MAX_LENGTH_BYTES = 4096
 PULSES = ("rect", "gaussian")
@@ -691,6 +691,31 @@ def _apply_overrides(tables: Mapping[str, Mapping[str, Any]], overrides: Mapping
         if "not given" in str(exc):
             raise
         raise (_overrides_error(overrides) or exc) from None
+
+
+def sync_label(sync_word: int | str, bits: int) -> str:
+    """A sync word as the project shows it in text: upper-case hex and its length.
+
+    Parameters
+    ----------
+    sync_word : int or str
+        The word, or its hex string (as in a link profile).
+    bits : int
+        Bits of the word that are sent.
+
+    Returns
+    -------
+    str
+
+    Examples
+    --------
+    >>> sync_label("0x9b3c57e1", 32)
+    '0x9B3C57E1 (32 bits)'
+    >>> sync_label(0x2D, 12)
+    '0x02D (12 bits)'
+    """
+    word = int(sync_word, 16) if isinstance(sync_word, str) else int(sync_word)
+    return f"0x{word:0{(bits + 3) // 4}X} ({bits} bits)"
 
 
 def link_to_toml(link: Link, *, comment: str | None = None) -> str:

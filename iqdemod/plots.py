@@ -76,8 +76,14 @@ def _needed(target_ber: float, scheme: str, **options) -> float | None:
         return None
 
 
-def _curve_axes(ax, ebn0_db: np.ndarray, *, h: float, freq_error_T: float, sps: int | None, pulse: str = "rect",
-                bt: float = 0.5, detector_symbols: int = 5, target_ber: float | None = None) -> None:
+def _error_words(eps: float) -> str:
+    """The carrier error in a legend, as a fraction of the symbol rate (δf·T); empty when there is none."""
+    return f", carrier error {eps:+.3f} × baud" if abs(eps) > 1e-3 else ""  # the rule that draws its own curve
+
+
+def _curve_axes(ax, ebn0_db: np.ndarray, *, h: float, freq_error_per_baud: float, sps: int | None,
+                pulse: str = "rect", bt: float = 0.5, detector_symbols: int = 5,
+                target_ber: float | None = None) -> None:
     """The BER curves of the link and the references; with a Gaussian pulse or fractional h, both detectors too.
 
     With `target_ber`, each label ends with the Eb/N0 that curve needs for
@@ -86,48 +92,60 @@ def _curve_axes(ax, ebn0_db: np.ndarray, *, h: float, freq_error_T: float, sps: 
     overshoots.
     """
     g = P.from_db(ebn0_db)
+    eps = freq_error_per_baud
     gauss = pulse == "gaussian"
-    extended = P.curves_extended(h, pulse)
     table = None
-    if extended:
-        table = P.curves_table(ebn0_db, h=h, freq_error_T=freq_error_T, samples_per_symbol=sps, pulse=pulse, bt=bt,
+    if P.curves_extended(h, pulse):
+        table = P.curves_table(ebn0_db, h=h, freq_error_per_baud=eps, samples_per_symbol=sps, pulse=pulse, bt=bt,
                                detector_symbols=detector_symbols, target_ber=target_ber or 1e-5)
-    need = {}
-    if target_ber:
-        need = (table or {}).get("needed_db") or {
-            "link": _needed(target_ber, "mismatched", h=h, freq_error_T=freq_error_T, samples_per_symbol=sps)}
-        for scheme in ("noncoherent", "coherent_orthogonal", "antipodal"):
-            need.setdefault(scheme, _needed(target_ber, scheme))
-    label_nc = f"non-coherent BFSK, orthogonal (h = 1){_need_label(need.get('noncoherent'))}"
-    ax.semilogy(ebn0_db, P.pb_noncoherent(g), color="#1f4e79", lw=2, label=label_nc)
-    if abs(h - round(h)) > 1e-9 or abs(freq_error_T) > 1e-3:
+    need = _needs(target_ber, table, h=h, eps=eps, sps=sps)
+    ax.semilogy(ebn0_db, P.pb_noncoherent(g), color=PALETTE["deep water"], lw=2,
+                label=f"non-coherent BFSK, orthogonal (h = 1){_need_label(need.get('noncoherent'))}")
+    if abs(h - round(h)) > 1e-9 or abs(eps) > 1e-3:
         what = "rect pulse at this h" if gauss else "one-symbol bank, this link"
-        ax.semilogy(ebn0_db, P.pb_mismatched(g, h=h, freq_error_T=freq_error_T, samples_per_symbol=sps),
-                    color="#c55a11", lw=1.5 if gauss else 2, ls="-." if gauss else "-",
-                    label=f"non-coherent, {what} (h = {h:g}, δf·T = {freq_error_T:.3f}){_need_label(need.get('link'))}")
+        ax.semilogy(ebn0_db, P.pb_mismatched(g, h=h, freq_error_T=eps, samples_per_symbol=sps),
+                    color=PALETTE["buoy orange"], lw=1.5 if gauss else 2, ls="-." if gauss else "-",
+                    label=f"non-coherent, {what} (h = {h:g}{_error_words(eps)}){_need_label(need.get('link'))}")
     if table is not None:
-        shape = f"Gaussian BT {bt:g}" if gauss else "rect pulse"
-        if gauss:  # with a rect pulse this is the link's own curve, drawn above
-            ax.semilogy(ebn0_db, table["ber_one_symbol_pulse"], color="#c00000", lw=2,
-                        label=f"one-symbol bank, this pulse ({shape}, h = {h:g}, δf·T = {freq_error_T:.3f})"
-                              f"{_need_label(need.get('one_symbol_pulse'))}")
-        if abs(freq_error_T) > 1e-3:
-            shape += ", no carrier error"
-        # The multi-symbol prediction is an approximation of a union bound: above 10 % it overshoots (to 0.5)
-        multi = np.asarray(table["ber_multi_symbol"], float)
-        ax.semilogy(ebn0_db, np.where(multi <= 0.1, multi, np.nan), color="#7030a0", lw=2,
-                    label=f"multi-symbol {detector_symbols} ({shape}, h = {h:g}){_need_label(need.get('multi_symbol'))}")
-    ax.semilogy(ebn0_db, P.pb_coherent_orthogonal(g), color="#548235", lw=1.5, ls="--",
+        _pulse_curves(ax, ebn0_db, table, need, h=h, eps=eps, gauss=gauss, bt=bt, detector_symbols=detector_symbols)
+    ax.semilogy(ebn0_db, P.pb_coherent_orthogonal(g), color=PALETTE["kelp"], lw=1.5, ls="--",
                 label=f"coherent orthogonal FSK{_need_label(need.get('coherent_orthogonal'))}")
-    ax.semilogy(ebn0_db, P.pb_antipodal(g), color="#7f7f7f", lw=1.5, ls=":",
+    ax.semilogy(ebn0_db, P.pb_antipodal(g), color=PALETTE["slate"], lw=1.5, ls=":",
                 label=f"antipodal (BPSK){_need_label(need.get('antipodal'))}")
     ax.set_xlabel("Eb/N0 (dB)")
     ax.set_ylabel("bit error probability")
     ax.grid(True, which="both", alpha=0.3)
 
 
-def plot_curves(path, *, ebn0_db: np.ndarray, h: float = 1.0, freq_error_T: float = 0.0, sps: int | None = None,
-                target_ber: float | None = None, pulse: str = "rect", bt: float = 0.5,
+def _needs(target_ber: float | None, table: dict | None, *, h: float, eps: float, sps: int | None) -> dict:
+    """Eb/N0 each curve needs for the target (empty without a target)."""
+    if not target_ber:
+        return {}
+    need = dict((table or {}).get("needed_db") or {
+        "link": _needed(target_ber, "mismatched", h=h, freq_error_T=eps, samples_per_symbol=sps)})
+    for scheme in ("noncoherent", "coherent_orthogonal", "antipodal"):
+        need.setdefault(scheme, _needed(target_ber, scheme))
+    return need
+
+
+def _pulse_curves(ax, ebn0_db, table: dict, need: dict, *, h: float, eps: float, gauss: bool, bt: float,
+                  detector_symbols: int) -> None:
+    """The one-symbol bank on a Gaussian pulse, and the multi-symbol detector."""
+    shape = f"Gaussian BT {bt:g}" if gauss else "rect pulse"
+    if gauss:  # with a rect pulse this is the link's own curve, drawn above
+        ax.semilogy(ebn0_db, table["ber_one_symbol_pulse"], color=PALETTE["harbour red"], lw=2,
+                    label=f"one-symbol bank, this pulse ({shape}, h = {h:g}{_error_words(eps)})"
+                          f"{_need_label(need.get('one_symbol_pulse'))}")
+    if abs(eps) > 1e-3:
+        shape += ", no carrier error"
+    # The multi-symbol prediction is an approximation of a union bound: above 10 % it overshoots (to 0.5)
+    multi = np.asarray(table["ber_multi_symbol"], float)
+    ax.semilogy(ebn0_db, np.where(multi <= 0.1, multi, np.nan), color=PALETTE["mooring violet"], lw=2,
+                label=f"multi-symbol {detector_symbols} ({shape}, h = {h:g}){_need_label(need.get('multi_symbol'))}")
+
+
+def plot_curves(path, *, ebn0_db: np.ndarray, h: float = 1.0, freq_error_per_baud: float = 0.0,
+                sps: int | None = None, target_ber: float | None = None, pulse: str = "rect", bt: float = 0.5,
                 detector_symbols: int = 5) -> None:
     """BER against Eb/N0 for the link and the coherent references.
 
@@ -141,11 +159,11 @@ def plot_curves(path, *, ebn0_db: np.ndarray, h: float = 1.0, freq_error_T: floa
     grid = np.linspace(float(span.min()), float(span.max()), 161) if span.size > 1 else span
     fig = new_figure(figsize=(8.5, 5.6), layout="constrained")
     ax = fig.subplots()
-    _curve_axes(ax, grid, h=h, freq_error_T=freq_error_T, sps=sps, pulse=pulse, bt=bt,
+    _curve_axes(ax, grid, h=h, freq_error_per_baud=freq_error_per_baud, sps=sps, pulse=pulse, bt=bt,
                 detector_symbols=detector_symbols, target_ber=target_ber)
     if target_ber:
-        ax.axhline(target_ber, color="k", lw=0.8, alpha=0.6)
-        ax.annotate(f"target {target_ber:g}", (grid[0], target_ber), va="bottom", fontsize=8)
+        ax.axhline(target_ber, color=PALETTE["slate"], lw=0.8, alpha=0.8)
+        ax.annotate(f"target BER {target_ber:g}", (grid[0], target_ber), va="bottom", fontsize=8)
     lo = max(1e-9, float(P.pb_antipodal(P.from_db(np.max(grid)))) / 3)
     ax.set_ylim(lo, 0.6)
     ax.legend(fontsize=8, loc="lower left")
@@ -159,6 +177,11 @@ def plot_curves(path, *, ebn0_db: np.ndarray, h: float = 1.0, freq_error_T: floa
 def plot_health(path, report) -> None:
     """The health figure: the curves with the capture's operating point, and the decision statistics.
 
+    The point sits at the capture's Eb/N0, the figure the title quotes. Its
+    height is the predicted BER, which counts the receiver's decision gain
+    (:attr:`HealthReport.decision_gain_db`), so it lies that far below the
+    textbook curve of its link.
+
     Parameters
     ----------
     path : path-like
@@ -169,26 +192,10 @@ def plot_health(path, report) -> None:
     ax, hx = fig.subplots(1, 2, width_ratios=[1.35, 1])
     centre = report.ebn0_db if report.ebn0_db is not None else 10.0
     grid = np.linspace(min(0.0, centre - 6), max(16.0, centre + 4), 200)
-    dT = (report.residual_freq_error_hz or 0.0) / report.baud
-    _curve_axes(ax, grid, h=report.h, freq_error_T=dT, sps=None, pulse=report.pulse, bt=report.bt or 0.5,
+    eps = (report.residual_freq_error_hz or 0.0) / report.baud
+    _curve_axes(ax, grid, h=report.h, freq_error_per_baud=eps, sps=None, pulse=report.pulse, bt=report.bt or 0.5,
                 detector_symbols=report.detector_symbols or 5)
-    # The decisions see Eb/N0 plus the receiver's noise-bandwidth gain: that is where the point sits on the curve.
-    x_op = None if report.ebn0_db is None else report.ebn0_db + report.decision_gain_db
-    if x_op is not None and report.ber_predicted is not None:
-        lo, hi = report.ebn0_db_ci90 or (report.ebn0_db, report.ebn0_db)
-        ax.errorbar([x_op], [report.ber_predicted], xerr=[[report.ebn0_db - lo], [hi - report.ebn0_db]],
-                    fmt="o", color="#c00000", ms=7, capsize=4,
-                    label=f"this capture, predicted (Eb/N0 + {report.decision_gain_db:.2f} dB receiver gain; 90 %)")
-    if report.per_observed is not None and report.frame_bits and x_op is not None:
-        n = report.frame_bits
-        to_ber = lambda per: 1 - (1 - min(per, 1 - 1e-12)) ** (1 / n)
-        obs = to_ber(report.per_observed)
-        lo_p, hi_p = report.per_observed_ci95
-        lo_b, hi_b = to_ber(lo_p), to_ber(hi_p)
-        y = obs if obs > 0 else hi_b
-        ax.errorbar([x_op], [y], yerr=[[y - max(lo_b, 1e-12)], [hi_b - y]],
-                    fmt="s" if obs > 0 else "v", mfc="none", color="#7030a0", ms=8, capsize=4,
-                    label="observed, from CRC failures (95 %)" if obs > 0 else "observed: no CRC failure (95 % upper)")
+    _operating_point(ax, report)
     ymin = max(1e-9, float(P.pb_antipodal(P.from_db(grid[-1]))) / 3)
     ax.set_ylim(ymin, 0.6)
     ax.legend(fontsize=8, loc="lower left")
@@ -196,17 +203,53 @@ def plot_health(path, report) -> None:
     if report.margin_db is not None:
         title += f", margin {report.margin_db:+.1f} dB at BER {report.target_ber:g}"
     ax.set_title(title, fontsize=10)
+    _decision_histogram(hx, report)
+    save_figure(fig, path)
+
+
+def _operating_point(ax, report) -> None:
+    """The capture's predicted BER and the BER its observed frame error rate implies, at its Eb/N0."""
+    x = report.ebn0_db
+    if x is None:
+        return
+    if report.ber_predicted is not None:
+        lo, hi = report.ebn0_db_ci90 or (x, x)
+        gain = report.decision_gain_db
+        ax.errorbar([x], [report.ber_predicted], xerr=[[x - lo], [hi - x]], fmt="o", color=PALETTE["harbour red"],
+                    ms=7, capsize=4,
+                    label=f"this capture, predicted at Eb/N0 {x:.1f} dB (90 % interval)"
+                          + (f"\n(off the curve by the receiver's {gain:+.2f} dB decision gain)"
+                             if abs(gain) >= 0.005 else ""))
+    if report.fer_observed is not None and report.frame_bits:
+        n = report.frame_bits
+        to_ber = lambda fer: 1 - (1 - min(fer, 1 - 1e-12)) ** (1 / n)
+        obs = to_ber(report.fer_observed)
+        lo_b, hi_b = (to_ber(v) for v in report.fer_observed_ci95)
+        y = obs if obs > 0 else hi_b
+        ax.errorbar([x], [y], yerr=[[y - max(lo_b, 1e-12)], [hi_b - y]], fmt="s" if obs > 0 else "v", mfc="none",
+                    color=PALETTE["mooring violet"], ms=8, capsize=4,
+                    label=("observed, BER from the frame error rate (95 %)" if obs > 0
+                           else "observed: no frame failed its CRC (95 % upper bound)"))
+
+
+def _decision_histogram(hx, report) -> None:
+    """Both correlators' square-law statistics: the sent tone's and the other's."""
     edges = np.asarray(report.histogram_edges_db)
     if len(edges) and (sum(report.histogram_right) + sum(report.histogram_wrong)):
         centres = (edges[1:] + edges[:-1]) / 2
         width = edges[1] - edges[0]
-        hx.bar(centres, report.histogram_wrong, width=width, color="#7f7f7f", alpha=0.7, label="losing correlator")
-        hx.bar(centres, report.histogram_right, width=width, color="#1f4e79", alpha=0.7, label="winning correlator")
-        hx.legend(fontsize=8)
+        hx.bar(centres, report.histogram_wrong, width=width, color=PALETTE["slate"], alpha=0.7,
+               label="the other correlator")
+        hx.bar(centres, report.histogram_right, width=width, color=PALETTE["deep water"], alpha=0.7,
+               label="correlator of the symbol sent\n(known where the CRC is good;\nthe symbol decided elsewhere)")
+        hx.legend(fontsize=8, loc="upper left")
+        counts = np.asarray(report.histogram_right) + np.asarray(report.histogram_wrong)
+        used = np.flatnonzero(counts)
+        hx.set_xlim(edges[used[0]] - 1, edges[used[-1] + 1] + 1)
+        hx.set_ylim(0, 1.3 * counts.max() if counts.max() else 1)
     else:
         hx.text(0.5, 0.5, "no symbols", ha="center", va="center", transform=hx.transAxes)
     hx.set_xlabel("square-law statistic |z|² above the noise (dB)")
     hx.set_ylabel("symbols")
     hx.set_title("Decision statistics", fontsize=10)
     hx.grid(True, alpha=0.3)
-    save_figure(fig, path)

@@ -15,7 +15,10 @@ Sources
   Trans. Inf. Theory IT-10, 1964: the probability that one Hermitian quadratic
   form of two correlated complex Gaussian variables is negative, used for every
   square-law comparison here.
-* Clopper & Pearson, Biometrika 26, 1934: exact binomial confidence limits.
+* The frame error rate and the binomial statistics of CRC failures
+  (Clopper & Pearson, Biometrika 26, 1934) live in :mod:`iqdemod.binomial`;
+  ``fer_from_ber``, ``clopper_pearson`` and ``binomial_p_value`` are offered
+  here too.
 * The one-symbol correlator bank receiving a continuous-phase pulse (Gaussian
   or rectangular, :func:`pb_per_symbol_pulse`) is the mismatched-correlator
   result of REFERENCE.md sec. 3 (the signal term of a correlator ``w`` on a
@@ -38,7 +41,8 @@ import math
 import numpy as np
 from scipy import optimize, special, stats
 
-from iqdemod.errors import LinkError
+from iqdemod.binomial import binomial_p_value, clopper_pearson, fer_from_ber
+from iqdemod.errors import EstimateError, LinkError
 from iqdemod.sequence import phase_trajectory, plan_sequence
 
 __all__ = [
@@ -57,7 +61,7 @@ __all__ = [
     "mismatch_loss_db",
     "ebn0_for_pb",
     "ebn0_db_for_pb",
-    "per_from_ber",
+    "fer_from_ber",
     "curves_extended",
     "curves_table",
     "clopper_pearson",
@@ -80,16 +84,32 @@ def _ebn0_array(ebn0, name: str = "ebn0") -> tuple[np.ndarray, bool]:
     arr = np.asarray(ebn0, dtype=float)
     if np.any(np.isnan(arr)) or np.any(arr < 0):
         bad = arr[np.isnan(arr) | (arr < 0)].flat[0]
-        raise LinkError(
+        raise EstimateError(
             f"{name} {bad}: must be a linear Eb/N0 >= 0 (convert dB with from_db)"
         )
     return arr, arr.ndim == 0
 
 
-def _positive_int(value, name: str, *, minimum: int = 1) -> int:
+def _positive_int(value, name: str, *, minimum: int = 1, error: type = LinkError) -> int:
+    """`value` as an int >= `minimum`; a LinkError (samples per symbol, pulse span) or the given class."""
     if isinstance(value, bool) or int(value) != value or value < minimum:
-        raise LinkError(f"{name} {value!r}: must be an integer >= {minimum}")
+        raise error(f"{name} {value!r}: must be an integer >= {minimum}")
     return int(value)
+
+
+def _finite_link_numbers(**values) -> None:
+    """Refuse a link number (h, δf·T, BT) that is not one finite number."""
+    for name, v in values.items():
+        if not (np.ndim(v) == 0 and math.isfinite(float(v))):
+            raise LinkError(f"{name} {v!r}: must be a finite number")
+
+
+def _tones_apart(h: float, n: int | None) -> complex:
+    """The tones' correlation at spacing `h` (N samples or continuous); refuses tones that coincide."""
+    rho_h = complex(_tone_corr(np.asarray(h), n))
+    if abs(rho_h) >= 1.0 - 1e-12:
+        raise LinkError(f"h {h}: the two tones coincide; must not be 0 (mod samples_per_symbol)")
+    return rho_h
 
 
 def _marcum_q1(a, b):
@@ -193,7 +213,7 @@ def pb_square_law_combining(ebn0, n_branches):
     True
     """
     g, scalar = _ebn0_array(ebn0)
-    L = _positive_int(n_branches, "n_branches")
+    L = _positive_int(n_branches, "n_branches", error=EstimateError)
     half = 0.5 * g
     total = np.zeros_like(half)
     for n in range(L):
@@ -232,6 +252,13 @@ def pb_coherent_orthogonal(ebn0):
     -------
     float or ndarray
         Pb.
+
+    Examples
+    --------
+    At 10 dB (REFERENCE §1: 7.827e-4):
+
+    >>> f"{pb_coherent_orthogonal(10.0):.4g}"
+    '0.0007827'
     """
     g, scalar = _ebn0_array(ebn0)
     return _out(stats.norm.sf(np.sqrt(g)), scalar)
@@ -251,6 +278,13 @@ def pb_antipodal(ebn0):
     -------
     float or ndarray
         Pb.
+
+    Examples
+    --------
+    At 10 dB (REFERENCE §1: 3.872e-6):
+
+    >>> f"{pb_antipodal(10.0):.4g}"
+    '3.872e-06'
     """
     g, scalar = _ebn0_array(ebn0)
     return _out(stats.norm.sf(np.sqrt(2.0 * g)), scalar)
@@ -345,11 +379,21 @@ def pb_noncoherent_correlated(ebn0, rho):
     -------
     float or ndarray
         Pb, broadcast over `ebn0` and `rho`.
+
+    Examples
+    --------
+    Tones at h = 0.5 (|rho| = 0.6366) at 10 dB, REFERENCE §2: 3.3207e-2;
+    orthogonal tones give ½·exp(−Eb/2N0):
+
+    >>> f"{pb_noncoherent_correlated(10.0, tone_correlation(0.5)):.5g}"
+    '0.033207'
+    >>> f"{pb_noncoherent_correlated(10.0, 0.0):.5g}"
+    '0.003369'
     """
     g, scalar = _ebn0_array(ebn0)
     r = np.abs(np.asarray(rho))
     if np.any(~np.isfinite(r)) or np.any(r > 1.0 + 1e-12):
-        raise LinkError(f"rho {rho!r}: |rho| must be <= 1")
+        raise EstimateError(f"rho {rho!r}: |rho| must be <= 1")
     root = np.sqrt(np.clip(1.0 - r * r, 0.0, 1.0))
     a = np.sqrt(0.5 * g * (1.0 - root))
     b = np.sqrt(0.5 * g * (1.0 + root))
@@ -414,12 +458,17 @@ def pb_square_law(mean_right, mean_wrong, *, var_right=1.0, var_wrong=1.0, noise
     scalar = all(np.ndim(v) == 0 for v in (mx, my, vx, vy, c))
     for name, v in (("var_right", vx), ("var_wrong", vy)):
         if np.any(~np.isfinite(v)) or np.any(v <= 0):
-            raise LinkError(f"{name} {v!r}: noise variance must be finite and > 0")
+            raise EstimateError(f"{name} {v!r}: noise variance must be finite and > 0")
     if np.any(~np.isfinite(c)) or np.any(np.abs(c) >= 1.0):
-        raise LinkError(f"noise_corr {noise_corr!r}: |noise_corr| must be < 1")
+        raise EstimateError(f"noise_corr {noise_corr!r}: |noise_corr| must be < 1")
     if np.any(~np.isfinite(mx)) or np.any(~np.isfinite(my)):
-        raise LinkError("mean_right/mean_wrong: must be finite")
+        raise EstimateError("mean_right/mean_wrong: must be finite")
 
+    return _out(np.clip(_stein_error(mx, my, vx, vy, c), 0.0, 1.0), scalar)
+
+
+def _stein_error(mx, my, vx, vy, c):
+    """P(|X|² < |Y|²) by Stein's quadratic form (Proakis, Appendix B); arguments as :func:`pb_square_law` checked them."""
     mu_xx = 0.5 * vx
     mu_yy = 0.5 * vy
     mu_xy = 0.5 * c * np.sqrt(vx * vy)
@@ -439,8 +488,7 @@ def pb_square_law(mean_right, mean_wrong, *, var_right=1.0, var_wrong=1.0, noise
     s = v1 + v2
     a = np.sqrt(np.clip(2.0 * v1 * v1 * v2 * (al1 * v2 - al2), 0.0, None)) / s
     b = np.sqrt(np.clip(2.0 * v1 * v2 * v2 * (al1 * v1 + al2), 0.0, None)) / s
-    pb = _marcum_q1(a, b) - (v2 / s) * _exp_i0(a, b)
-    return _out(np.clip(pb, 0.0, 1.0), scalar)
+    return _marcum_q1(a, b) - (v2 / s) * _exp_i0(a, b)
 
 
 def pb_mismatched(ebn0, *, h=1.0, freq_error_T=0.0, samples_per_symbol=None):
@@ -487,17 +535,10 @@ def pb_mismatched(ebn0, *, h=1.0, freq_error_T=0.0, samples_per_symbol=None):
     0.01418
     """
     g, scalar = _ebn0_array(ebn0)
-    n = None if samples_per_symbol is None else _positive_int(
-        samples_per_symbol, "samples_per_symbol"
-    )
-    for name, v in (("h", h), ("freq_error_T", freq_error_T)):
-        if not (np.ndim(v) == 0 and math.isfinite(float(v))):
-            raise LinkError(f"{name} {v!r}: must be a finite number")
-    h = float(h)
-    eps = float(freq_error_T)
-    rho_h = complex(_tone_corr(np.asarray(h), n))
-    if abs(rho_h) >= 1.0 - 1e-12:
-        raise LinkError(f"h {h}: the two tones coincide; must not be 0 (mod samples_per_symbol)")
+    n = None if samples_per_symbol is None else _positive_int(samples_per_symbol, "samples_per_symbol")
+    _finite_link_numbers(h=h, freq_error_T=freq_error_T)
+    h, eps = float(h), float(freq_error_T)
+    rho_h = _tones_apart(h, n)
     amp = np.sqrt(g)
     right = complex(_tone_corr(np.asarray(eps), n))
     leak0 = complex(_tone_corr(np.asarray(eps - h), n))
@@ -615,6 +656,8 @@ def pb_per_symbol_pulse(ebn0, *, h, pulse="rect", bt=0.5, freq_error_T=0.0, span
     LinkError
         A bad pulse parameter (from :func:`iqdemod.sequence.plan_sequence`) or
         tones that coincide.
+    EstimateError
+        A negative or NaN Eb/N0.
 
     Examples
     --------
@@ -629,14 +672,11 @@ def pb_per_symbol_pulse(ebn0, *, h, pulse="rect", bt=0.5, freq_error_T=0.0, span
     """
     g, scalar = _ebn0_array(ebn0)
     n = None if samples_per_symbol is None else _positive_int(samples_per_symbol, "samples_per_symbol", minimum=2)
-    for name, v in (("h", h), ("freq_error_T", freq_error_T), ("bt", bt)):
-        if not (np.ndim(v) == 0 and math.isfinite(float(v))):
-            raise LinkError(f"{name} {v!r}: must be a finite number")
+    _finite_link_numbers(h=h, freq_error_T=freq_error_T, bt=bt)
     if span_symbols is not None:
         span_symbols = _positive_int(span_symbols, "span_symbols")
     h, eps = float(h), float(freq_error_T)
-    if abs(complex(_tone_corr(np.asarray(h), n))) >= 1.0 - 1e-12:
-        raise LinkError(f"h {h}: the two tones coincide; must not be 0 (mod samples_per_symbol)")
+    _tones_apart(h, n)
     right, wrong, corr = _pulse_terms(h, str(pulse), float(bt), span_symbols, eps, n)
     amp = np.sqrt(g)[..., None]
     pb = np.mean(pb_square_law(amp * right, amp * wrong, noise_corr=corr), axis=-1)
@@ -686,18 +726,18 @@ def _pb_function(scheme: str, kw: dict):
         "per_symbol_pulse": {"h", "pulse", "bt", "freq_error_T", "span_symbols", "samples_per_symbol"},
     }
     if scheme not in allowed:
-        raise LinkError(f"scheme {scheme!r}: must be one of {', '.join(_SCHEMES)}")
+        raise EstimateError(f"scheme {scheme!r}: must be one of {', '.join(_SCHEMES)}")
     extra = set(kw) - allowed[scheme]
     if extra:
-        raise LinkError(
+        raise EstimateError(
             f"options {sorted(extra)} for scheme {scheme!r}: expected only {sorted(allowed[scheme]) or 'none'}"
         )
     if scheme == "correlated":
         if "rho" not in kw:
-            raise LinkError("scheme 'correlated': needs rho=")
+            raise EstimateError("scheme 'correlated': needs rho=")
         rho = kw["rho"]
         if np.ndim(rho) != 0:
-            raise LinkError(f"rho {rho!r}: must be a single number for scheme 'correlated'")
+            raise EstimateError(f"rho {rho!r}: must be a single number for scheme 'correlated'")
         pb_noncoherent_correlated(1.0, rho)  # validates rho
         return lambda g: pb_noncoherent_correlated(g, rho)
     if scheme == "mismatched":
@@ -722,7 +762,7 @@ def _solve_one(fun, pb: float, scheme: str) -> float:
         g_lo = from_db(lo_db)
         return optimize.brentq(lambda g: fun(g) - pb, 0.0, g_lo, xtol=1e-15, rtol=1e-12)
     if f_db(hi_db) > 0.0:
-        raise LinkError(
+        raise EstimateError(
             f"target Pb {pb:g} for scheme {scheme!r}: not reached below {hi_db:g} dB "
             "(error floor); choose a larger Pb or a smaller mismatch"
         )
@@ -763,9 +803,11 @@ def ebn0_for_pb(pb, scheme="noncoherent", **options):
 
     Raises
     ------
-    LinkError
+    EstimateError
         Bad `pb`, unknown scheme or option, or a target below the error
         floor of a mismatched receiver.
+    LinkError
+        A bad link option of the scheme (h, pulse, samples per symbol).
 
     Examples
     --------
@@ -774,7 +816,7 @@ def ebn0_for_pb(pb, scheme="noncoherent", **options):
     """
     arr = np.asarray(pb, dtype=float)
     if np.any(~(arr > 0)) or np.any(arr > 0.5):
-        raise LinkError(f"pb {pb!r}: must be in (0, 0.5]")
+        raise EstimateError(f"pb {pb!r}: must be in (0, 0.5]")
     fun = _pb_function(scheme, options)
     if scheme == "noncoherent":
         out = -2.0 * np.log(2.0 * arr)
@@ -812,161 +854,27 @@ def ebn0_db_for_pb(pb, scheme="noncoherent", **options):
     return db(ebn0_for_pb(pb, scheme, **options))
 
 
-# --------------------------------------------------------------------------- counting
-
-
-def per_from_ber(ber, n_bits):
-    """Packet error rate of `n_bits` independent bits, ``1 - (1 - ber)^n_bits``.
-
-    Computed as ``-expm1(n_bits * log1p(-ber))`` so that tiny `ber` keeps its
-    digits (``per ~ n_bits * ber``).
-
-    Parameters
-    ----------
-    ber : float or array_like
-        Bit error probability in [0, 1].
-    n_bits : int or array_like
-        Bits per packet (>= 0).
-
-    Returns
-    -------
-    float or ndarray
-        Packet error probability, broadcast over the arguments.
-
-    Examples
-    --------
-    >>> per_from_ber(1e-12, 1000)  # doctest: +ELLIPSIS
-    9.99999999...e-10
-    """
-    p = np.asarray(ber, dtype=float)
-    n = np.asarray(n_bits, dtype=float)
-    if np.any(~(p >= 0)) or np.any(p > 1):
-        raise LinkError(f"ber {ber!r}: must be in [0, 1]")
-    if np.any(~(n >= 0)) or np.any(n != np.floor(n)) or np.any(~np.isfinite(n)):
-        raise LinkError(f"n_bits {n_bits!r}: must be a whole number >= 0")
-    with np.errstate(divide="ignore", invalid="ignore"):
-        per = -np.expm1(n * np.log1p(-p))
-    per = np.where(n == 0, 0.0, np.where(p == 1.0, 1.0, per))
-    return _out(per, p.ndim == 0 and n.ndim == 0)
-
-
-def _counts(k, n):
-    karr = np.asarray(k)
-    narr = np.asarray(n)
-    for name, v in (("k", karr), ("n", narr)):
-        if not np.issubdtype(v.dtype, np.integer) and not (
-            np.issubdtype(v.dtype, np.floating) and np.all(v == np.floor(v))
-        ):
-            raise LinkError(f"{name} {v!r}: must be a whole number")
-    karr = karr.astype(np.int64)
-    narr = narr.astype(np.int64)
-    if np.any(narr < 1):
-        raise LinkError(f"n {n!r}: must be >= 1")
-    if np.any(karr < 0) or np.any(karr > narr):
-        raise LinkError(f"k {k!r}: must be in [0, n] (n = {n!r})")
-    return karr, narr
-
-
-def clopper_pearson(k, n, *, confidence=0.95, alternative="two-sided"):
-    """Exact (Clopper–Pearson) confidence interval for a binomial proportion.
-
-    ``lower = beta.ppf(alpha/2, k, n - k + 1)`` and
-    ``upper = beta.ppf(1 - alpha/2, k + 1, n - k)``, with ``lower = 0`` at
-    ``k = 0`` and ``upper = 1`` at ``k = n`` (Clopper & Pearson, Biometrika
-    26, 1934); the same as ``scipy.stats.binomtest(k, n).proportion_ci("exact")``.
-
-    Parameters
-    ----------
-    k : int or array_like
-        Observed errors.
-    n : int or array_like
-        Trials (>= 1).
-    confidence : float, optional
-        Confidence level in (0, 1); default 0.95.
-    alternative : {"two-sided", "less", "greater"}, optional
-        ``"less"`` gives the one-sided upper bound ``(0, upper)`` (all of
-        ``1 - confidence`` in the upper tail), ``"greater"`` the one-sided
-        lower bound ``(lower, 1)``; names as in ``scipy.stats.binomtest``.
-
-    Returns
-    -------
-    (float, float) or (ndarray, ndarray)
-        ``(lower, upper)``.
-
-    Examples
-    --------
-    >>> lo, hi = clopper_pearson(0, 1000)
-    >>> lo, round(hi, 8)
-    (0.0, 0.00368208)
-    """
-    karr, narr = _counts(k, n)
-    if not (0.0 < float(confidence) < 1.0):
-        raise LinkError(f"confidence {confidence!r}: must be in (0, 1)")
-    if alternative not in ("two-sided", "less", "greater"):
-        raise LinkError(f"alternative {alternative!r}: must be 'two-sided', 'less' or 'greater'")
-    alpha = 1.0 - float(confidence)
-    tail = alpha / 2.0 if alternative == "two-sided" else alpha
-    with np.errstate(invalid="ignore"):
-        lo = stats.beta.ppf(tail, karr, narr - karr + 1)
-        hi = stats.beta.ppf(1.0 - tail, karr + 1, narr - karr)
-    lo = np.where(karr == 0, 0.0, lo)
-    hi = np.where(karr == narr, 1.0, hi)
-    if alternative == "less":
-        lo = np.zeros_like(lo)
-    elif alternative == "greater":
-        hi = np.ones_like(hi)
-    scalar = karr.ndim == 0 and narr.ndim == 0
-    return _out(lo, scalar), _out(hi, scalar)
-
-
-def binomial_p_value(k, n, p):
-    """Two-sided exact binomial test of `k` errors in `n` trials against rate `p`.
-
-    ``scipy.stats.binomtest(k, n, p).pvalue`` (the two-sided p-value sums the
-    probabilities of all outcomes no more likely than `k`).
-
-    Parameters
-    ----------
-    k : int
-        Observed errors.
-    n : int
-        Trials (>= 1).
-    p : float
-        Hypothesised error probability in [0, 1].
-
-    Returns
-    -------
-    float
-        p-value in [0, 1].
-
-    Examples
-    --------
-    >>> binomial_p_value(5, 10, 0.5)
-    1.0
-    """
-    karr, narr = _counts(k, n)
-    if karr.ndim or narr.ndim:
-        raise LinkError(f"k {k!r}, n {n!r}: must be single numbers")
-    if not (0.0 <= float(p) <= 1.0):
-        raise LinkError(f"p {p!r}: must be in [0, 1]")
-    return float(stats.binomtest(int(karr), int(narr), float(p)).pvalue)
-
-
 def curves_extended(h: float, pulse: str = "rect") -> bool:
-    """Whether the curves for this link add the pulse-aware detectors: a Gaussian pulse or a fractional h."""
+    """Whether the curves for this link add the pulse-aware detectors: a Gaussian pulse or a fractional h.
+
+    Examples
+    --------
+    >>> curves_extended(1.0), curves_extended(0.5), curves_extended(1.0, "gaussian")
+    (False, True, True)
+    """
     return pulse == "gaussian" or abs(float(h) - round(float(h))) > 1e-9 or round(float(h)) == 0
 
 
-def curves_table(ebn0_db, *, h: float = 1.0, freq_error_T: float = 0.0, frame_bits: int = 208,
+def curves_table(ebn0_db, *, h: float = 1.0, freq_error_per_baud: float = 0.0, frame_bits: int = 208,
                  target_ber: float = 1e-5, samples_per_symbol=None, pulse: str = "rect", bt: float = 0.5,
                  detector_symbols: int = 5) -> dict:
-    """BER (and PER) against Eb/N0 for a link and the textbook references, for planning.
+    """BER and frame error rate against Eb/N0 for a link and the textbook references, for planning.
 
     For a link with a Gaussian pulse or a modulation index that is not whole
     (:func:`curves_extended`) two more detectors are tabulated beside the
     textbook ones: the one-symbol correlator bank receiving this pulse
-    (:func:`pb_per_symbol_pulse`, with the link's δf·T) and the multi-symbol
-    detector of `detector_symbols` symbols
+    (:func:`pb_per_symbol_pulse`, with the link's carrier error) and the
+    multi-symbol detector of `detector_symbols` symbols
     (:func:`iqdemod.sequence_theory.sequence_ber`, its default "pruned"
     approximation, no carrier error).
 
@@ -974,8 +882,11 @@ def curves_table(ebn0_db, *, h: float = 1.0, freq_error_T: float = 0.0, frame_bi
     ----------
     ebn0_db : array_like
         Eb/N0 values, dB.
-    h, freq_error_T : float
-        Modulation index and residual carrier error × symbol time of the link.
+    h : float
+        Modulation index of the link, shift / baud.
+    freq_error_per_baud : float
+        Residual carrier error as a fraction of the symbol rate (δf·T, the
+        ``freq_error_T`` of the Pb functions).
     frame_bits : int
         Bits a frame's CRC covers, for the frame error rate.
     target_ber : float
@@ -993,32 +904,39 @@ def curves_table(ebn0_db, *, h: float = 1.0, freq_error_T: float = 0.0, frame_bi
     -------
     dict
         Lists keyed ``ebn0_db``, ``ber_link`` (tones of this h with a
-        rectangular pulse and δf·T), ``ber_noncoherent``,
-        ``ber_coherent_orthogonal``, ``ber_antipodal``, ``per_link``, and
-        ``needed_db`` (a dict per scheme; None where the target is below the
-        error floor). Extended links add ``ber_one_symbol_pulse``,
-        ``ber_multi_symbol``, ``per_one_symbol_pulse``, ``per_multi_symbol``
-        and ``needed_db`` entries ``one_symbol_pulse`` and ``multi_symbol``.
+        rectangular pulse and the carrier error), ``ber_noncoherent``,
+        ``ber_coherent_orthogonal``, ``ber_antipodal``, ``fer_link`` (frame
+        error rate, a fraction), and ``needed_db`` (a dict per scheme; None
+        where the target is below the error floor). Extended links add
+        ``ber_one_symbol_pulse``, ``ber_multi_symbol``,
+        ``fer_one_symbol_pulse``, ``fer_multi_symbol`` and ``needed_db``
+        entries ``one_symbol_pulse`` and ``multi_symbol``.
 
     Examples
     --------
+    The textbook columns at 10 dB (REFERENCE §1: 3.3690e-3, 7.827e-4,
+    3.872e-6; 13.3525 dB needed for 1e-5 without coherence):
+
+    >>> t = curves_table([10.0])
+    >>> [f"{t[k][0]:.4g}" for k in ("ber_noncoherent", "ber_coherent_orthogonal", "ber_antipodal")]
+    ['0.003369', '0.0007827', '3.872e-06']
+    >>> round(t["needed_db"]["noncoherent"], 4)
+    13.3525
+
+    A Gaussian pulse at h = 0.5: the one-symbol bank loses to the pulse's
+    intersymbol interference, the multi-symbol detector wins it back:
+
     >>> t = curves_table([10.0], h=0.5, pulse="gaussian", bt=0.5, detector_symbols=3)
     >>> t["ber_one_symbol_pulse"][0] > t["ber_link"][0] > t["ber_multi_symbol"][0]
     True
     """
     x = np.asarray(ebn0_db, dtype=float)
     g = from_db(x)
-    link = np.asarray(pb_mismatched(g, h=h, freq_error_T=freq_error_T, samples_per_symbol=samples_per_symbol), float)
-
-    def need(scheme: str, **kw) -> float | None:
-        try:
-            return float(ebn0_db_for_pb(target_ber, scheme, **kw))
-        except LinkError:  # below the error floor
-            return None
-
+    eps = freq_error_per_baud
+    link = np.asarray(pb_mismatched(g, h=h, freq_error_T=eps, samples_per_symbol=samples_per_symbol), float)
     out = {
         "h": float(h),
-        "freq_error_T": float(freq_error_T),
+        "freq_error_per_baud": float(eps),
         "frame_bits": int(frame_bits),
         "target_ber": float(target_ber),
         "pulse": str(pulse),
@@ -1028,35 +946,51 @@ def curves_table(ebn0_db, *, h: float = 1.0, freq_error_T: float = 0.0, frame_bi
         "ber_noncoherent": np.asarray(pb_noncoherent(g), float).tolist(),
         "ber_coherent_orthogonal": np.asarray(pb_coherent_orthogonal(g), float).tolist(),
         "ber_antipodal": np.asarray(pb_antipodal(g), float).tolist(),
-        "per_link": np.asarray(per_from_ber(link, frame_bits), float).tolist(),
+        "fer_link": np.asarray(fer_from_ber(link, frame_bits), float).tolist(),
         "needed_db": {
-            "link": need("mismatched", h=h, freq_error_T=freq_error_T, samples_per_symbol=samples_per_symbol),
+            "link": _needed_or_none(target_ber, "mismatched", h=h, freq_error_T=eps,
+                                    samples_per_symbol=samples_per_symbol),
             "noncoherent": float(ebn0_db_for_pb(target_ber, "noncoherent")),
             "coherent_orthogonal": float(ebn0_db_for_pb(target_ber, "coherent_orthogonal")),
             "antipodal": float(ebn0_db_for_pb(target_ber, "antipodal")),
         },
     }
-    if not curves_extended(h, pulse):
-        return out
+    if curves_extended(h, pulse):
+        _add_pulse_detectors(out, x, frame_bits=frame_bits, target_ber=target_ber, samples_per_symbol=samples_per_symbol,
+                             detector_symbols=detector_symbols)
+    return out
+
+
+def _needed_or_none(target_ber: float, scheme: str, **kw) -> float | None:
+    """Eb/N0 (dB) a scheme needs for the target; None below its error floor."""
+    try:
+        return float(ebn0_db_for_pb(target_ber, scheme, **kw))
+    except EstimateError:  # below the error floor
+        return None
+
+
+def _add_pulse_detectors(out: dict, x: np.ndarray, *, frame_bits: int, target_ber: float, samples_per_symbol,
+                         detector_symbols: int) -> None:
+    """Into a new curves table: the one-symbol bank on this pulse and the multi-symbol detector."""
     from .sequence_theory import sequence_ber  # it imports this module
 
-    pulse_kw = dict(h=h, pulse=pulse, bt=bt, freq_error_T=freq_error_T, samples_per_symbol=samples_per_symbol)
-    one = np.asarray(pb_per_symbol_pulse(g, **pulse_kw), float)
+    h, pulse, bt, eps = out["h"], out["pulse"], out["bt"], out["freq_error_per_baud"]
+    pulse_kw = dict(h=h, pulse=pulse, bt=bt, freq_error_T=eps, samples_per_symbol=samples_per_symbol)
+    one = np.asarray(pb_per_symbol_pulse(from_db(x), **pulse_kw), float)
     seq_kw = dict(h=h, pulse=pulse, bt=bt, n_symbols=detector_symbols, samples_per_symbol=samples_per_symbol)
     multi = np.asarray(sequence_ber(x, **seq_kw), float).reshape(x.shape)
     need_multi: float | None
     try:
         need_multi = float(db(_solve_one(lambda v: float(sequence_ber(db(v), **seq_kw)), float(target_ber),
                                          f"multi-symbol {detector_symbols}")))
-    except LinkError:
+    except EstimateError:  # below the error floor
         need_multi = None
     out.update({
         "detector_symbols": int(detector_symbols),
         "ber_one_symbol_pulse": one.tolist(),
         "ber_multi_symbol": multi.tolist(),
-        "per_one_symbol_pulse": np.asarray(per_from_ber(one, frame_bits), float).tolist(),
-        "per_multi_symbol": np.asarray(per_from_ber(multi, frame_bits), float).tolist(),
+        "fer_one_symbol_pulse": np.asarray(fer_from_ber(one, frame_bits), float).tolist(),
+        "fer_multi_symbol": np.asarray(fer_from_ber(multi, frame_bits), float).tolist(),
     })
-    out["needed_db"]["one_symbol_pulse"] = need("per_symbol_pulse", **pulse_kw)
+    out["needed_db"]["one_symbol_pulse"] = _needed_or_none(target_ber, "per_symbol_pulse", **pulse_kw)
     out["needed_db"]["multi_symbol"] = need_multi
-    return out

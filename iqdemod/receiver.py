@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import contextlib
 import dataclasses
+from dataclasses import dataclass
 import datetime
 import queue
 import threading
@@ -25,7 +26,7 @@ import numpy as np
 
 from . import bursts as _bursts
 from .bursts import RawBurst
-from .capture import Capture, CaptureInfo, DEFAULT_BLOCK_SAMPLES, open_capture
+from .capture import Capture, CaptureInfo, CaptureStats, DEFAULT_BLOCK_SAMPLES, open_capture
 from .channel import FrontEndReport, channelize_many, flush_channels, front_end_report
 from .demod import Burst, Frame, demodulate_burst, drop_repeats
 from .errors import IqdemodError, quote
@@ -33,7 +34,7 @@ from .link import Link
 from .plan import ReceiverPlan, plan_receiver, plan_receivers
 from .sync import sync_candidates
 
-__all__ = ["ReceiverPlan", "Burst", "Frame", "Receiver", "DecodeSummary", "plan_receiver", "iter_bursts", "drive",
+__all__ = ["ReceiverPlan", "Burst", "Frame", "Receiver", "DecodeSummary", "Decoding", "plan_receiver", "iter_bursts", "drive",
            "decode", "sync_candidates", "demodulate_burst"]
 
 
@@ -184,27 +185,71 @@ def _named_links(link) -> tuple[tuple[Link, ...], tuple[str | None, ...]]:
     return links, names
 
 
+@dataclass(frozen=True)
 class DecodeSummary:
-    """Counts kept while decoding: bursts, frames, good frames, and the capture's defects."""
+    """What one capture's decoding came to: bursts, frames, good frames, and the capture's defects.
 
-    def __init__(self) -> None:
-        self.bursts = 0
-        self.frames = 0
-        self.good = 0
-        self.stats = None
+    Attributes
+    ----------
+    bursts : int
+        Detector bursts (pieces of one long burst count once).
+    frames : int
+        Frames whose sync word was found (raw mode: records of bits).
+    good : int
+        Frames whose CRC is good.
+    stats : CaptureStats or None
+        The reader's counts (samples read, clipped, non-finite, cut bytes).
+    """
 
-    def add(self, burst: Burst) -> None:
-        if burst.piece == 0:
-            self.bursts += 1
-        self.frames += len(burst.frames)
-        self.good += sum(f.crc_ok for f in burst.frames)
+    bursts: int = 0
+    frames: int = 0
+    good: int = 0
+    stats: CaptureStats | None = None
 
-    def line(self, name: str) -> str:
-        """The one-line summary for people."""
-        text = f"{name}: {self.bursts} burst(s), {self.frames} frame(s), {self.good} good"
-        if self.stats is not None and self.stats.clipped:
-            text += f", {self.stats.clipped_fraction:.3%} clipped"
-        return text
+    def counted(self, burst: Burst) -> "DecodeSummary":
+        """This summary with one more demodulated transmission counted."""
+        return dataclasses.replace(self, bursts=self.bursts + (burst.piece == 0), frames=self.frames + len(burst.frames),
+                                   good=self.good + sum(f.crc_ok for f in burst.frames))
+
+
+class Decoding:
+    """The frames of one capture, decoded as they are iterated; its :attr:`summary` once done.
+
+    Made by :func:`decode`. Iterate it once (it reads the capture as it goes).
+    """
+
+    def __init__(self, path, link, *, block_samples: int, progress: bool, start_time: str | None):
+        self._args = (path, link, block_samples, progress, start_time)
+        self._summary = DecodeSummary()
+        self._started = False
+
+    @property
+    def summary(self) -> DecodeSummary:
+        """The counts so far; complete (with the reader's stats) after the last frame."""
+        return self._summary
+
+    def __iter__(self) -> Iterator[Frame]:
+        if self._started:
+            raise IqdemodError("a decoding is read once: call iqdemod.decode again")
+        self._started = True
+        return self._frames()
+
+    def _frames(self) -> Iterator[Frame]:
+        path, link, block_samples, progress, start_time = self._args
+        first = _named_links(link)[0][0]
+        with contextlib.ExitStack() as stack:
+            cap = path if isinstance(path, Capture) else stack.enter_context(
+                open_capture(path, datatype=first.capture.datatype, sample_rate=first.capture.sample_rate)
+            )
+            if start_time is not None:
+                if _parse_utc(start_time) is None:
+                    raise IqdemodError(f"start time {quote(start_time)}: expected an RFC 3339 time such as "
+                                       "2026-11-30T22:15:07Z")
+                cap.info = dataclasses.replace(cap.info, start_time=start_time)
+            for burst in iter_bursts(cap, link, block_samples=block_samples, progress=progress):
+                self._summary = self._summary.counted(burst)
+                yield from burst.frames
+            self._summary = dataclasses.replace(self._summary, stats=cap.stats)
 
 
 def iter_bursts(
@@ -316,9 +361,8 @@ def decode(
     *,
     block_samples: int = DEFAULT_BLOCK_SAMPLES,
     progress: bool = False,
-    summary: DecodeSummary | None = None,
     start_time: str | None = None,
-) -> Iterator[Frame]:
+) -> Decoding:
     """Decode the frames of a capture, in time order.
 
     Parameters
@@ -337,27 +381,11 @@ def decode(
         raw files that do not say; it overrides a SigMF ``core:datetime``.
         Frames then carry ``time_utc``.
 
-    Yields
-    ------
-    Frame
-        Every frame whose sync word was found, good CRC or bad (raw mode: one
-        record per burst).
-    summary : DecodeSummary, optional
-        Filled in as the capture is read.
+    Returns
+    -------
+    Decoding
+        Iterate it for every frame whose sync word was found, good CRC or bad
+        (raw mode: one record per burst), as the capture is read; its
+        ``summary`` (:class:`DecodeSummary`) is complete after the last one.
     """
-    first = _named_links(link)[0][0]
-    with contextlib.ExitStack() as stack:
-        cap = path if isinstance(path, Capture) else stack.enter_context(
-            open_capture(path, datatype=first.capture.datatype, sample_rate=first.capture.sample_rate)
-        )
-        if start_time is not None:
-            if _parse_utc(start_time) is None:
-                raise IqdemodError(f"start time {quote(start_time)}: expected an RFC 3339 time such as "
-                                   "2026-11-30T22:15:07Z")
-            cap.info = dataclasses.replace(cap.info, start_time=start_time)
-        for burst in iter_bursts(cap, link, block_samples=block_samples, progress=progress):
-            if summary is not None:
-                summary.add(burst)
-            yield from burst.frames
-        if summary is not None:
-            summary.stats = cap.stats
+    return Decoding(path, link, block_samples=block_samples, progress=progress, start_time=start_time)

@@ -58,7 +58,8 @@ import functools
 import numpy as np
 
 from .errors import LinkError
-from .predict import pb_noncoherent_correlated, per_from_ber
+from .binomial import fer_from_ber
+from .predict import pb_noncoherent_correlated
 from .sequence import SequencePlan, plan_sequence
 
 __all__ = ["BOUNDS", "window_correlations", "sequence_ber", "sequence_fer"]
@@ -216,7 +217,7 @@ def sequence_fer(ebn0_db, n_bits, *, h: float, pulse: str = "rect", bt: float = 
                  samples_per_symbol: int | None = None):
     """Predicted frame error rate of `n_bits` bits, the bit errors taken as independent.
 
-    FER = 1 − (1 − Pb)^n_bits (:func:`iqdemod.predict.per_from_ber`) with Pb
+    FER = 1 − (1 − Pb)^n_bits (:func:`iqdemod.binomial.fer_from_ber`) with Pb
     from :func:`sequence_ber`. Errors of this detector come mostly alone
     (1.0–1.6 wrong bits per error event in the Monte Carlo of
     ``checks/sequence_detector.py``), so this overstates the FER by at most
@@ -234,4 +235,4 @@ def sequence_fer(ebn0_db, n_bits, *, h: float, pulse: str = "rect", bt: float = 
     """
     pb = sequence_ber(ebn0_db, h=h, pulse=pulse, bt=bt, n_symbols=n_symbols, span_symbols=span_symbols,
                       bound=bound, samples_per_symbol=samples_per_symbol)
-    return per_from_ber(pb, n_bits)
+    return fer_from_ber(pb, n_bits)

@@ -77,7 +77,7 @@ def test_health_json_has_the_contract_keys(capture, tmp_path):
     assert res.exit_code == 0, res.stderr
     d = json.loads(res.stdout)
     for key in ("capture", "duration_s", "bursts", "frames", "frames_crc_ok", "ebn0_db", "ebn0_db_ci90",
-                "ebn0_method", "ber_predicted", "per_predicted", "per_observed", "per_observed_ci95",
+                "ebn0_method", "ber_predicted", "fer_predicted", "fer_observed", "fer_observed_ci95",
                 "freq_error_hz", "clock_error_ppm", "margin_db", "target_ber", "mismatch_loss_db",
                 "clipped_fraction"):
         assert key in d, key

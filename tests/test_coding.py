@@ -17,7 +17,7 @@ from scipy import stats
 
 import fsk_modulator as ref
 from iqdemod import coding, framing
-from iqdemod.errors import LinkError
+from iqdemod.errors import EstimateError, LinkError
 from iqdemod.framing import body_bytes, find_frames, frame_bits, frame_symbols
 from iqdemod.link import FrameSpec, link_to_toml, load_link
 
@@ -257,9 +257,10 @@ def test_manchester_inverse_and_scheme_name():
 
     need = P.ebn0_db_for_pb(7.5802e-03, "manchester")
     assert need == pytest.approx(10.0, abs=1e-3)  # REFERENCE §10 table, read backwards
-    with pytest.raises(LinkError, match="options"):
+    # statistics arguments are EstimateErrors since issue 11 (an IqdemodError, as LinkError is)
+    with pytest.raises(EstimateError, match="options"):
         P.ebn0_db_for_pb(1e-5, "manchester", h=1.0)
-    with pytest.raises(LinkError, match="n_branches"):
+    with pytest.raises(EstimateError, match="n_branches"):
         P.pb_square_law_combining(1.0, 0)
 
 

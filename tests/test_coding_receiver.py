@@ -93,15 +93,14 @@ def test_manchester_health_eb_is_a_bit_and_prediction_is_consistent(tmp_path):
     """A fast version of checks/coding_acceptance.py (400 frames a level there)."""
     layout = dict(coding="manchester")
     meta, payloads = modulated_capture(tmp_path / "m12", layout, ebn0_db=12.0, frames=90, seed=12)
-    frames: list = []
-    rep = health.assess(meta, link_for(layout), frames_out=frames)
+    rep, _ = health.assess_with_frames(meta, link_for(layout))
     d = rep.as_dict()
     assert d["pb_model"] == "manchester-square-law-combining-L2"
     # Eb is the energy of a bit (two chips): the estimate reads the bit's Eb/N0, not the chip's
     # (which is 3.01 dB lower); the receiver's filter adds its 0.1–0.2 dB (DEVELOPERS.md)
     assert abs(rep.ebn0_db - 12.0) < 0.6, rep.ebn0_db
     # exact binomial test of the CRC failures against the §10 prediction
-    assert rep.per_p_value is not None and rep.per_p_value >= 0.01, d
+    assert rep.fer_p_value is not None and rep.fer_p_value >= 0.01, d
     assert rep.frames_crc_ok >= 0.5 * len(payloads)
     # the prediction is the §10 formula at the measured decision SNR, per data bit
     g = 10 ** ((rep.ebn0_db + rep.decision_gain_db) / 10)  # decision SNR = Eb/N0 − correction

@@ -25,7 +25,7 @@ from hypothesis import strategies as st
 from scipy import integrate, stats
 
 import iqdemod.estimate as estimate
-from iqdemod.errors import LinkError
+from iqdemod.errors import EstimateError, IqdemodError
 from iqdemod.estimate import (
     EbN0Estimate,
     crb_normalised_variance_coherent_da,
@@ -367,9 +367,9 @@ def test_pool_hand_built_estimates():
 def test_pool_rejects_mixtures_and_nothing():
     rng = np.random.default_rng(1)
     z0, z1, bits = symbols(rng, 10.0, 50)
-    with pytest.raises(LinkError, match="one method"):
+    with pytest.raises(EstimateError, match="one method"):
         pool([estimate_blind(z0, z1), estimate_data_aided(z0, z1, bits)])
-    with pytest.raises(LinkError, match="at least one"):
+    with pytest.raises(EstimateError, match="at least one"):
         pool([])
 
 
@@ -472,7 +472,7 @@ def test_estimate_object():
     ],
 )
 def test_estimate_validation(kwargs, match):
-    with pytest.raises(LinkError, match=match):
+    with pytest.raises(EstimateError, match=match):
         EbN0Estimate(**kwargs)
 
 
@@ -493,6 +493,7 @@ def test_estimate_validation(kwargs, match):
         (lambda: decision_directed_limit(-1.0), "ebn0 -1.0"),
     ],
 )
-def test_bad_inputs_raise_link_error(call, match):
-    with pytest.raises(LinkError, match=match):
+def test_bad_inputs_raise_estimate_error(call, match):
+    with pytest.raises(EstimateError, match=match):
         call()
+    assert issubclass(EstimateError, IqdemodError) and issubclass(EstimateError, ValueError)  # callers keep working

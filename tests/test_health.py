@@ -46,10 +46,10 @@ def test_prediction_agrees_with_observed_crc_failures(tmp_path):
     r = assess(meta, link)
     bad = r.frames - r.frames_crc_ok
     assert r.frames == 300 and bad > 5
-    assert stats.binomtest(bad, r.frames, r.per_predicted).pvalue >= 0.01
-    assert r.per_p_value == pytest.approx(stats.binomtest(bad, r.frames, r.per_predicted).pvalue)
+    assert stats.binomtest(bad, r.frames, r.fer_predicted).pvalue >= 0.01
+    assert r.fer_p_value == pytest.approx(stats.binomtest(bad, r.frames, r.fer_predicted).pvalue)
     assert r.verdict == "consistent with theory"
-    lo, hi = r.per_observed_ci95  # Clopper–Pearson, REFERENCE §7
+    lo, hi = r.fer_observed_ci95  # Clopper–Pearson, REFERENCE §7
     assert (lo, hi) == pytest.approx(stats.binomtest(bad, r.frames).proportion_ci(0.95, method="exact"))
     # margin: Eb/N0 minus what 1e-5 needs (13.35 dB non-coherent orthogonal, REFERENCE §1, plus the receiver gain)
     assert r.margin_db == pytest.approx(r.ebn0_db - r.ebn0_needed_db)

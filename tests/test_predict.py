@@ -17,7 +17,7 @@ from hypothesis import strategies as st
 from scipy import integrate, stats
 
 import iqdemod.predict as predict
-from iqdemod.errors import LinkError
+from iqdemod.errors import EstimateError, IqdemodError, LinkError
 from iqdemod.predict import (
     binomial_p_value,
     clopper_pearson,
@@ -32,7 +32,7 @@ from iqdemod.predict import (
     pb_noncoherent,
     pb_noncoherent_correlated,
     pb_square_law,
-    per_from_ber,
+    fer_from_ber,
     tone_correlation,
 )
 
@@ -245,7 +245,7 @@ def test_mismatch_symmetry():
 
 def test_error_floor_is_reported():
     # half a symbol rate off, leakage equals the signal: no Eb/N0 reaches 1e-5
-    with pytest.raises(LinkError, match="error floor"):
+    with pytest.raises(EstimateError, match="error floor"):
         ebn0_for_pb(1e-5, "mismatched", freq_error_T=0.5)
 
 
@@ -440,16 +440,16 @@ def test_binomial_p_value():
     assert binomial_p_value(30, 1000, 0.003) < 1e-9
 
 
-def test_per_from_ber():
+def test_fer_from_ber():
     # 1 - (1 - ber)^n, kept accurate for tiny ber: n ber (1 - (n - 1) ber / 2 + ...)
     ber, n = 1e-15, 1000
     series = n * ber * (1 - (n - 1) * ber / 2)
-    assert per_from_ber(ber, n) == pytest.approx(series, rel=1e-12)
-    assert per_from_ber(0.0, 100) == 0.0
-    assert per_from_ber(1.0, 100) == 1.0
-    assert per_from_ber(0.3, 0) == 0.0
+    assert fer_from_ber(ber, n) == pytest.approx(series, rel=1e-12)
+    assert fer_from_ber(0.0, 100) == 0.0
+    assert fer_from_ber(1.0, 100) == 1.0
+    assert fer_from_ber(0.3, 0) == 0.0
     np.testing.assert_allclose(
-        per_from_ber(np.array([1e-3, 1e-2]), np.array([[100], [1000]])),
+        fer_from_ber(np.array([1e-3, 1e-2]), np.array([[100], [1000]])),
         1 - (1 - np.array([1e-3, 1e-2])) ** np.array([[100], [1000]]),
         rtol=1e-12,
     )
@@ -457,8 +457,8 @@ def test_per_from_ber():
 
 @settings(max_examples=50, deadline=None)
 @given(ber=st.floats(1e-6, 0.5), n=st.integers(1, 5000))
-def test_per_from_ber_matches_direct(ber, n):
-    assert per_from_ber(ber, n) == pytest.approx(1 - (1 - ber) ** n, rel=1e-9)
+def test_fer_from_ber_matches_direct(ber, n):
+    assert fer_from_ber(ber, n) == pytest.approx(1 - (1 - ber) ** n, rel=1e-9)
 
 
 # --------------------------------------------------------------------------- units and errors
@@ -471,29 +471,30 @@ def test_db_round_trip():
 
 
 @pytest.mark.parametrize(
-    "call, match",
+    "error, call, match",
     [
-        (lambda: pb_noncoherent(-1.0), "ebn0 -1.0"),
-        (lambda: pb_noncoherent(float("nan")), "ebn0 nan"),
-        (lambda: pb_noncoherent_correlated(10.0, 1.5), "rho"),
-        (lambda: pb_square_law(1.0, 0.0, var_right=0.0), "var_right"),
-        (lambda: pb_square_law(1.0, 0.0, noise_corr=1.0), "noise_corr"),
-        (lambda: pb_mismatched(10.0, h=0.0), "h 0.0"),
-        (lambda: tone_correlation(0.5, samples_per_symbol=0), "samples_per_symbol 0"),
-        (lambda: ebn0_for_pb(0.7), "pb 0.7"),
-        (lambda: ebn0_for_pb(0.0), "pb 0.0"),
-        (lambda: ebn0_for_pb(1e-3, "qam"), "scheme 'qam'"),
-        (lambda: ebn0_for_pb(1e-3, "noncoherent", h=0.5), "options"),
-        (lambda: ebn0_for_pb(1e-3, "correlated"), "rho="),
-        (lambda: per_from_ber(1.5, 10), "ber 1.5"),
-        (lambda: per_from_ber(0.1, 2.5), "n_bits 2.5"),
-        (lambda: clopper_pearson(11, 10), "k 11"),
-        (lambda: clopper_pearson(1, 10, confidence=1.0), "confidence 1.0"),
-        (lambda: clopper_pearson(1, 10, alternative="up"), "alternative 'up'"),
-        (lambda: binomial_p_value(1, 10, 1.2), "p 1.2"),
+        (EstimateError, lambda: pb_noncoherent(-1.0), "ebn0 -1.0"),
+        (EstimateError, lambda: pb_noncoherent(float("nan")), "ebn0 nan"),
+        (EstimateError, lambda: pb_noncoherent_correlated(10.0, 1.5), "rho"),
+        (EstimateError, lambda: pb_square_law(1.0, 0.0, var_right=0.0), "var_right"),
+        (EstimateError, lambda: pb_square_law(1.0, 0.0, noise_corr=1.0), "noise_corr"),
+        (LinkError, lambda: pb_mismatched(10.0, h=0.0), "h 0.0"),
+        (LinkError, lambda: tone_correlation(0.5, samples_per_symbol=0), "samples_per_symbol 0"),
+        (EstimateError, lambda: ebn0_for_pb(0.7), "pb 0.7"),
+        (EstimateError, lambda: ebn0_for_pb(0.0), "pb 0.0"),
+        (EstimateError, lambda: ebn0_for_pb(1e-3, "qam"), "scheme 'qam'"),
+        (EstimateError, lambda: ebn0_for_pb(1e-3, "noncoherent", h=0.5), "options"),
+        (EstimateError, lambda: ebn0_for_pb(1e-3, "correlated"), "rho="),
+        (EstimateError, lambda: fer_from_ber(1.5, 10), "ber 1.5"),
+        (EstimateError, lambda: fer_from_ber(0.1, 2.5), "n_bits 2.5"),
+        (EstimateError, lambda: clopper_pearson(11, 10), "k 11"),
+        (EstimateError, lambda: clopper_pearson(1, 10, confidence=1.0), "confidence 1.0"),
+        (EstimateError, lambda: clopper_pearson(1, 10, alternative="up"), "alternative 'up'"),
+        (EstimateError, lambda: binomial_p_value(1, 10, 1.2), "p 1.2"),
     ],
 )
-def test_bad_arguments_raise_link_error(call, match):
-    with pytest.raises(LinkError, match=match):
+def test_bad_arguments_raise_the_right_error(error, call, match):
+    """Statistics arguments give an EstimateError, link parameters a LinkError; both are IqdemodErrors (issue 11)."""
+    with pytest.raises(error, match=match):
         call()
-    assert issubclass(LinkError, ValueError)
+    assert issubclass(error, IqdemodError) and issubclass(error, ValueError)

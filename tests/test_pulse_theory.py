@@ -17,7 +17,7 @@ import pytest
 from click.testing import CliRunner
 
 from fsk_modulator import cpfsk
-from iqdemod.errors import LinkError
+from iqdemod.errors import EstimateError, LinkError
 from iqdemod.predict import (
     clopper_pearson,
     curves_table,
@@ -156,7 +156,7 @@ def test_shapes_inverse_and_errors():
             pb_per_symbol_pulse(10.0, **kw)
     with pytest.raises(LinkError, match="needs h"):
         ebn0_db_for_pb(1e-5, "per_symbol_pulse", pulse="gaussian")
-    with pytest.raises(LinkError):
+    with pytest.raises(EstimateError):  # a negative Eb/N0 is a statistics error (issue 11), not the link's
         pb_per_symbol_pulse(-1.0, h=0.5)
 
 
@@ -171,7 +171,7 @@ def test_curves_table_adds_both_detectors_for_a_gaussian_link():
     assert_printed(t["needed_db"]["link"], "17.05")
     np.testing.assert_allclose(t["ber_one_symbol_pulse"], pb_per_symbol_pulse(from_db(x), h=0.5, pulse="gaussian"))
     np.testing.assert_allclose(t["ber_multi_symbol"], sequence_ber(x, h=0.5, pulse="gaussian", bt=0.5, n_symbols=5))
-    np.testing.assert_allclose(t["per_multi_symbol"], 1 - (1 - np.array(t["ber_multi_symbol"])) ** 208, rtol=1e-5)
+    np.testing.assert_allclose(t["fer_multi_symbol"], 1 - (1 - np.array(t["ber_multi_symbol"])) ** 208, rtol=1e-5)
     need = t["needed_db"]
     assert pb_per_symbol_pulse(from_db(need["one_symbol_pulse"]), h=0.5, pulse="gaussian") == pytest.approx(1e-5)
     assert sequence_ber(need["multi_symbol"], h=0.5, pulse="gaussian", bt=0.5, n_symbols=5) == pytest.approx(1e-5)

@@ -348,7 +348,7 @@ def test_command_table_json_link_and_plot(case_a, tmp_path):
     assert res.exit_code == 0
     head, row = res.stdout.splitlines()
     assert head.split()[:6] == ["#", "offset_hz", "shift_hz", "baud", "h", "bursts"]
-    assert "0x2dd4c3b5/32" in row and "CRC-16/XMODEM" in row
+    assert "0x2DD4C3B5 (32 bits)" in row and "CRC-16/XMODEM" in row  # the contract's form of a sync word (issue 13)
     doc = json.loads(_run("survey", meta, "--json", "-q").stdout)
     (sig,) = doc["signals"]
     assert {"offset_hz", "shift_hz", "baud", "h", "bursts", "ebn0_db", "sync_word"} <= set(sig)

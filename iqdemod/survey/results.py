@@ -10,34 +10,9 @@ import numpy as np
 
 from ..crc import CRC_CATALOGUE
 from ..errors import IqdemodError
-from ..link import MAX_BT, MAX_SYNC_BITS, MIN_BT, PULSES, CaptureFormat, FrameSpec, Link, SignalSpec
+from ..link import MAX_BT, MAX_SYNC_BITS, MIN_BT, PULSES, CaptureFormat, FrameSpec, Link, SignalSpec, sync_label
 
 __all__ = ["BurstLengths", "Excerpt", "SignalFound", "SurveyResult", "sync_label", "pulse_options"]
-
-
-def sync_label(sync_word: int | str, bits: int) -> str:
-    """A sync word as the project shows it in text: upper-case hex and its length.
-
-    Parameters
-    ----------
-    sync_word : int or str
-        The word, or its hex string (as in :attr:`SignalFound.sync_word`).
-    bits : int
-        Bits of the word that are sent.
-
-    Returns
-    -------
-    str
-
-    Examples
-    --------
-    >>> sync_label("0x9b3c57e1", 32)
-    '0x9B3C57E1 (32 bits)'
-    >>> sync_label(0x2D, 12)
-    '0x02D (12 bits)'
-    """
-    word = int(sync_word, 16) if isinstance(sync_word, str) else int(sync_word)
-    return f"0x{word:0{(bits + 3) // 4}X} ({bits} bits)"
 
 
 @dataclass(frozen=True)
@@ -226,17 +201,6 @@ class SignalFound:
     def sync_text(self) -> str | None:
         """The sync word as text shows it, "0x9B3C57E1 (32 bits)" (see :func:`sync_label`), or None."""
         return None if self.sync_word is None else sync_label(self.sync_word, int(self.sync_bits))
-
-    # The command line still reads the two old names; they go once it reads the new ones.
-    @property
-    def sync_guess(self) -> str | None:
-        """Old name of :attr:`sync_word` (read-only, for callers not yet moved)."""
-        return self.sync_word
-
-    @property
-    def power_db(self) -> float:
-        """Old name of :attr:`level_dbfs` (read-only, for callers not yet moved)."""
-        return self.level_dbfs
 
     def as_dict(self) -> dict[str, Any]:
         """JSON-ready form (the excerpt left out)."""
