@@ -85,11 +85,26 @@ _LINK_OPTIONS = [
 ]
 
 
-def link_options(fn: Callable) -> Callable:
-    """Add the link-description options to a command."""
-    for opt in reversed(_LINK_OPTIONS):
-        fn = opt(fn)
-    return fn
+def link_options(fn: Callable | None = None, *, several: bool = False) -> Callable:
+    """Add the link-description options to a command.
+
+    With `several`, ``--link`` may be given more than once (each profile one
+    link, or one per ``[[signal]]`` entry), for a command that decodes several
+    links in one pass; read them with :func:`links_from_options`.
+    """
+
+    def add(fn: Callable) -> Callable:
+        for opt in reversed(_LINK_OPTIONS[1:]):
+            fn = opt(fn)
+        if several:
+            return click.option(
+                "--link", "link", multiple=True, type=click.Path(dir_okay=False, path_type=Path),
+                help="TOML link profile; the flags below override its values. Give it again (or use a profile "
+                     "with several [[signal]] entries) to decode several links in one pass: frames then carry "
+                     "their link's name.")(fn)
+        return _LINK_OPTIONS[0](fn)
+
+    return add if fn is None else add(fn)
 
 
 def link_overrides(kw: dict[str, Any]) -> dict[str, Any]:
@@ -113,6 +128,27 @@ def link_from_options(kw: dict[str, Any], *, optional: bool = False) -> iqdemod.
     return iqdemod.load_link(path, **overrides)
 
 
+def links_from_options(kw: dict[str, Any]) -> tuple[iqdemod.Link | dict[str, iqdemod.Link], list[Path]]:
+    """The link(s) of a command with several ``--link`` (see :func:`link_options`); pops the options from `kw`.
+
+    One profile with one signal (or none, flags alone) gives a plain Link, as
+    :func:`link_from_options` does; several give a dict of named links. Also
+    returns the profile paths (inputs that no output may replace).
+    """
+    paths = list(kw.get("link") or ())
+    if len(paths) <= 1:
+        kw["link"] = paths[0] if paths else None
+        try:
+            return link_from_options(dict(kw)), paths
+        except iqdemod.errors.LinkError as exc:
+            if "[[signal]] entries" not in str(exc):
+                raise
+    overrides = link_overrides(kw)
+    for name in (*overrides, "link"):
+        kw.pop(name, None)
+    return iqdemod.load_links(paths, **overrides), paths
+
+
 def say(message: str) -> None:
     """A line for people, on stderr (stdout is for results)."""
     click.echo(message, err=True)
@@ -124,9 +160,10 @@ def warn(message: str) -> None:
 
 
 def guard_outputs(outputs: Iterable[tuple[str, Path | None]], *, captures: Iterable[Path] = (),
-                  link: Path | None = None) -> None:
-    """Refuse, before any work, an output that is an input (a capture's files, the profile) or another output."""
-    inputs: list[tuple[str, Any]] = [("--link profile", link)]
+                  link: Path | Iterable[Path] | None = None) -> None:
+    """Refuse, before any work, an output that is an input (a capture's files, the profiles) or another output."""
+    profiles = [link] if link is None or isinstance(link, (str, Path)) else list(link)
+    inputs: list[tuple[str, Any]] = [("--link profile", p) for p in profiles]
     for c in captures:
         inputs += [("capture", f) for f in capture_files(c)]
     check_distinct(list(outputs), inputs)

@@ -6,6 +6,8 @@ shared/REFERENCE.md §8. The CRC of every payload is the catalogue's CRC-16/IBM-
 the modulator with the standard library (binascii.crc_hqx), not by the project's CRC engine.
 """
 
+import json
+
 import numpy as np
 import pytest
 
@@ -120,3 +122,30 @@ def test_profile_with_several_signals(tmp_path):
         iqdemod.load_link(p)
     with pytest.raises(LinkError, match="second link named"):
         iqdemod.load_links([p, p])
+
+
+def test_command_line_takes_several_profiles_in_one_pass(two_fleets, tmp_path):
+    from click.testing import CliRunner
+
+    from iqdemod_cli.main import main
+
+    meta, truth, txs = two_fleets
+    common = '[frame]\nsync_word = "0x9B3C57E1"\nlength = 8\ncrc = "CRC-16/IBM-3740"\n'
+    fast, slow = tmp_path / "fast.toml", tmp_path / "slow.toml"
+    fast.write_text(common + "[signal]\nbaud = 9600\nshift_hz = 9600\noffset_hz = 137000\n")
+    slow.write_text(common + "[signal]\nname = \"north pier\"\nbaud = 2400\nshift_hz = 4800\noffset_hz = -210000\n")
+    out = tmp_path / "frames.jsonl"
+    res = CliRunner().invoke(main, ["decode", str(meta), "--link", str(fast), "--link", str(slow), "-o", str(out),
+                                    "--quiet"])
+    assert res.exit_code == 0, res.output
+    records = [json.loads(line) for line in out.read_text().splitlines()]
+    got = {(r["link"], r["payload_hex"]) for r in records if r["crc_ok"]}
+    want = {("fast" if tx.baud == 9600 else "north pier", t["payload_hex"]) for tx, t in zip(txs, truth)}
+    assert got == want
+    # one profile alone keeps the single-link output: no link key
+    res = CliRunner().invoke(main, ["decode", str(meta), "--link", str(fast), "-o", str(out), "--quiet"])
+    assert res.exit_code == 0 and all("link" not in json.loads(line) for line in out.read_text().splitlines())
+    # an output onto the second profile is refused before any work, the profile kept
+    before = slow.read_bytes()
+    res = CliRunner().invoke(main, ["decode", str(meta), "--link", str(fast), "--link", str(slow), "-o", str(slow)])
+    assert res.exit_code != 0 and "--link profile" in res.output and slow.read_bytes() == before

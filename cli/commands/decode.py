@@ -10,7 +10,7 @@ import click
 import iqdemod
 from iqdemod.errors import quote
 
-from .._common import guard_outputs, link_from_options, link_options, open_output, say
+from .._common import guard_outputs, link_options, links_from_options, open_output, say
 from ..render import decode_summary
 
 __all__ = ["command"]
@@ -18,7 +18,7 @@ __all__ = ["command"]
 
 @click.command("decode")
 @click.argument("captures", nargs=-1, required=True, type=click.Path(path_type=Path))
-@link_options
+@link_options(several=True)
 @click.option("-o", "--output", type=click.Path(dir_okay=False, path_type=Path),
               help="Write the JSON Lines here (atomically) instead of stdout.")
 @click.option("--only-good", is_flag=True, help="Write only frames whose CRC is good.")
@@ -45,20 +45,22 @@ def command(captures, output, only_good, block_samples, follow, idle_s, start_ti
     object per burst with bits_hex and n_bits instead, and no CRC is checked.
     A CAPTURE of - reads raw samples from standard input (give --datatype and
     --rate, or a profile's [capture] table). Each frame is written and flushed
-    as it is found.
+    as it is found. With several links (--link given again, or a profile with
+    several [[signal]] entries) every link is decoded in the same pass over
+    the capture, and each frame carries its link's name as link.
     """
-    link_path = link_kw.get("link")
-    link = link_from_options(link_kw)
+    link, link_paths = links_from_options(link_kw)
+    first = link if isinstance(link, iqdemod.Link) else next(iter(link.values()))
     if start_time is not None and len(start_time) > 64:
         raise click.BadParameter(f"{quote(start_time)}: at most 64 characters", param_hint="--start-time")
-    guard_outputs([("--output", output)], captures=[c for c in captures if str(c) != "-"], link=link_path)
+    guard_outputs([("--output", output)], captures=[c for c in captures if str(c) != "-"], link=link_paths)
     with open_output(output) as out:
         for path in captures:
             source = path
             if str(path) == "-" or follow:
                 from iqdemod.live import open_live
 
-                source = open_live(path, datatype=link.capture.datatype, sample_rate=link.capture.sample_rate,
+                source = open_live(path, datatype=first.capture.datatype, sample_rate=first.capture.sample_rate,
                                    follow=follow, idle_s=idle_s)
             decoding = iqdemod.decode(source, link, block_samples=block_samples, progress=not quiet,
                                       start_time=start_time)
@@ -68,4 +70,4 @@ def command(captures, output, only_good, block_samples, follow, idle_s, start_ti
                 out.write(json.dumps(frame.as_record()) + "\n")
                 out.flush()
             if not quiet:
-                say(decode_summary(decoding.summary, Path(path).name, raw=link.frame.raw))
+                say(decode_summary(decoding.summary, Path(path).name, raw=first.frame.raw))
