@@ -20,7 +20,7 @@ __version__ = "0.1.0"
 # command's --help) does not pay for scipy before any work needs it.
 _HOMES = {
     "open_capture": "capture", "Capture": "capture", "CaptureInfo": "capture",
-    "load_link": "link", "load_links": "link", "Link": "link", "SignalSpec": "link", "FrameSpec": "link",
+    "load_link": "profile", "load_links": "profile", "Link": "link", "SignalSpec": "link", "FrameSpec": "link",
     "decode": "receiver", "iter_bursts": "receiver", "Burst": "receiver", "Frame": "receiver",
     "assess": "health", "assess_with_frames": "health", "HealthReport": "health", "Decoding": "receiver",
     "DecodeSummary": "receiver",
