@@ -20,7 +20,7 @@ from scipy import stats
 
 from .errors import LinkError
 from .estimate import CONFIDENCE, EbN0Estimate
-from .sequence import SequenceDecisions, SequencePlan, _check_inputs, _slot_samples, detect
+from .sequence import SequenceDecisions, SequencePlan, check_inputs, detect, slot_samples
 
 __all__ = ["estimate_sequence_data_aided", "estimate_sequence_decision_directed"]
 
@@ -44,7 +44,7 @@ def _known_fit(x, starts, period, bits, plan, sub_window):
     use = np.arange(c, k - c)  # slots whose whole pattern is known
     if use.size < 2:
         raise LinkError(f"{k} symbols: need at least {2 * c + 2} for a data-aided fit")
-    xg, f, valid, idx = _slot_samples(x, starts[use], period)
+    xg, f, valid, idx = slot_samples(x, starts[use], period)
     u = (f[:, None] + np.arange(xg.shape[1])[None, :]) / period
     cnt = valid.sum(axis=1).astype(np.float64)
     b = bits.astype(np.int64)
@@ -52,7 +52,7 @@ def _known_fit(x, starts, period, bits, plan, sub_window):
     pat = np.stack([b[use + d] for d in range(-c, c + 1)], axis=1) @ weights
     phase_all = plan.segment_phases(u)  # (P, K', M)
     psi = phase_all[pat, np.arange(use.size)]
-    a = (2 * b - 1) * plan._sign
+    a = (2 * b - 1) * plan.tone_sign
     acc = np.concatenate([[0], np.cumsum(a)])
     theta = np.pi * plan.h * acc[use - c]  # bits before each slot's pattern
     w = np.where(valid, np.exp(-1j * (psi + theta[:, None])), 0.0)
@@ -189,7 +189,7 @@ def estimate_sequence_data_aided(
     nb = float(noise_bandwidth)
     if not (math.isfinite(nb) and 0 < nb <= 2.0):
         raise LinkError(f"noise_bandwidth {noise_bandwidth!r}: must be within (0, 2] (a ratio of bandwidths)")
-    x, starts, period = _check_inputs(x, starts, period_samples, offset_hz, rate_hz)
+    x, starts, period = check_inputs(x, starts, period_samples, offset_hz, rate_hz)
     fit = _known_fit(x, starts, period, bits, plan, int(sub_window))
     n_used = max(1, starts.size - 2 * plan.context)
     return _estimate_from_fit(fit, period, n_used, "data-aided", nb)
