@@ -11,7 +11,7 @@ from typing import Any, Callable, Iterable, Iterator, TextIO
 import click
 
 import iqdemod
-from iqdemod._io import atomic_writer, check_distinct
+from iqdemod.files import atomic_writer, check_distinct
 from iqdemod.capture import MAX_SAMPLE_RATE_HZ, capture_files
 from iqdemod.link import MAX_BT, MAX_FREQUENCY_HZ, MAX_SYNC_BITS, MIN_BT
 from iqdemod.errors import quote

@@ -76,7 +76,7 @@ from typing import Any, Iterable, Iterator, Mapping, Sequence
 
 from .errors import IqdemodError, IqdemodWarning, LinkError, OutputError, quote
 from .link import Link, load_link
-from ._io import atomic_files, atomic_writer, check_distinct, classify_output
+from .files import atomic_files, atomic_writer, check_distinct, classify_output
 
 __all__ = [
     "CAPTURE_SUFFIXES",

@@ -32,7 +32,7 @@ from typing import Iterator
 
 import numpy as np
 
-from ._io import read_small_text
+from .files import read_small_text
 from .errors import CaptureError, quote
 
 __all__ = [

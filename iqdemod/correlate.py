@@ -20,7 +20,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["tone_sums", "window_sums", "window_weights", "correlate", "phasor"]
+__all__ = ["tone_sums", "window_sums", "window_weights", "correlate", "phasor", "cached_phasor"]
 
 
 def tone_sums(x: np.ndarray, rate_hz: float, tones_hz, *, offset_hz: float = 0.0) -> np.ndarray:
@@ -37,14 +37,14 @@ def tone_sums(x: np.ndarray, rate_hz: float, tones_hz, *, offset_hz: float = 0.0
     out = np.zeros((len(tones_hz), n + 1), dtype=np.complex128)
     shifted = x * phasor(-offset_hz / rate_hz, n) if offset_hz else x
     for i, f in enumerate(tones_hz):
-        np.cumsum(shifted * _cached_phasor(-f / rate_hz, n), out=out[i, 1:])
+        np.cumsum(shifted * cached_phasor(-f / rate_hz, n), out=out[i, 1:])
     return out
 
 
 _PHASORS: dict[float, np.ndarray] = {}
 
 
-def _cached_phasor(cycles_per_sample: float, n: int) -> np.ndarray:
+def cached_phasor(cycles_per_sample: float, n: int) -> np.ndarray:
     """:func:`phasor` for the link's fixed frequencies, kept and grown as needed (values do not depend on n)."""
     table = _PHASORS.get(cycles_per_sample)
     if table is None or len(table) < n:

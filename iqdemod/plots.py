@@ -7,7 +7,7 @@ import os
 import numpy as np
 
 from . import predict as P
-from ._io import atomic_writer
+from .files import atomic_writer
 from .errors import IqdemodError
 
 __all__ = ["plot_health", "plot_curves", "new_figure", "save_figure", "require_matplotlib", "PALETTE", "series_colour"]

@@ -14,7 +14,7 @@ import tomllib
 from pathlib import Path
 from typing import Any, Mapping, Sequence
 
-from ._io import read_small_text
+from .files import read_small_text
 from .errors import LinkError, quote
 from .link import MAX_LENGTH_BYTES, MAX_PROFILE_BYTES, MAX_SIGNALS, CaptureFormat, FrameSpec, Link, SignalSpec
 

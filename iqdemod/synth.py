@@ -36,7 +36,7 @@ from .capture import parse_datatype
 from .errors import LinkError, OutputError, quote
 from .framing import PREAMBLE_BITS, frame_symbols
 from .link import MAX_FREQUENCY_HZ, Link, finite_number
-from ._io import atomic_files, check_distinct, classify_output
+from .files import atomic_files, check_distinct, classify_output
 
 __all__ = ["SynthConfig", "synthesize", "fsk_burst", "amplitude_for_ebn0", "sigmf_paths", "payload_bit_errors"]
 
@@ -369,7 +369,7 @@ def synthesize(output: str | os.PathLike, cfg: SynthConfig, *, progress: bool = 
     -----
     The three files become visible together: each is written to a temporary
     file first, then they are renamed data, truth, metadata; if a rename fails
-    the ones done are undone (:class:`iqdemod._io.FileSet`).
+    the ones done are undone (:class:`iqdemod.files.FileSet`).
     """
     fs = cfg.sample_rate_hz
     offset = cfg.link.check_rate(fs, cfg.centre_hz)

@@ -27,7 +27,7 @@ import math
 
 import numpy as np
 
-from .correlate import _cached_phasor
+from .correlate import cached_phasor
 
 
 __all__ = ["Timing", "symbol_timing", "symbol_starts", "SEGMENT_SYMBOLS"]
@@ -115,7 +115,7 @@ def symbol_timing(sums: np.ndarray, period_samples: float, *, max_ppm: float = 2
     z = ends - sums[:, :m]
     p = z.real**2 + z.imag**2
     e = (p[1] - p[0]) ** 2
-    rot = e * _cached_phasor(-1.0 / T, len(starts))  # starts are 0, 1, 2, …
+    rot = e * cached_phasor(-1.0 / T, len(starts))  # starts are 0, 1, 2, …
     total = rot.sum()
     strength = float(abs(total) / max(e.sum(), 1e-300))
     phase0 = float(np.angle(total))

@@ -27,7 +27,7 @@ from click.testing import CliRunner
 
 import iqdemod
 import iqdemod.synth
-from iqdemod import _io
+from iqdemod import files
 from iqdemod import batch as B
 from iqdemod.errors import OutputError
 from iqdemod_cli.main import main
@@ -184,7 +184,7 @@ def test_row2_a_fifo_output_is_written_into(inputs, tmp_path):
 
 def test_row2_a_character_device_is_written_into_not_replaced(inputs, guard_devices):
     before = os.stat("/dev/null")
-    assert _io.classify_output("/dev/null").kind == "stream"
+    assert files.classify_output("/dev/null").kind == "stream"
     res = invoke("health", inputs / "cap.sigmf-meta", "--link", inputs / "l.toml", "-o", "/dev/null", "-q")
     assert res.exit_code == 0, res.stderr
     after = os.stat("/dev/null")
@@ -221,7 +221,7 @@ def test_row2_folder_and_missing_folder_outputs(inputs, tmp_path):
         line = assert_refused(res, contains=words)
         assert ".part" not in line  # row 14: the message names the output, not a temporary file
     with pytest.raises(OutputError, match="is a folder"):  # the library's own check, for callers without click
-        _io.classify_output(tmp_path)
+        files.classify_output(tmp_path)
 
 
 # --------------------------------------------------------------------------- rows 3–5: batch outputs
@@ -556,7 +556,7 @@ def test_file_set_undoes_every_rename_when_one_fails(tmp_path, monkeypatch):
         (tmp_path / name).write_text(f"old {name}")
     _fail_rename_onto(monkeypatch, tmp_path / "c")
     with pytest.raises(OSError):
-        with _io.atomic_files() as files:
+        with files.atomic_files() as files:
             for name in ("a", "b", "c"):
                 files.open(tmp_path / name).write(f"new {name}")
     assert {p.name: p.read_text() for p in tmp_path.iterdir()} == {"a": "old a", "b": "old b"}
@@ -577,7 +577,7 @@ def test_an_unexpected_exception_is_one_line_and_debug_shows_it(inputs, monkeypa
 def test_check_distinct_names_both_roles(tmp_path):
     (tmp_path / "in").write_text("x")
     with pytest.raises(OutputError, match="--frames .* is the capture"):
-        _io.check_distinct([("--frames", tmp_path / "sub" / ".." / "in")], [("capture", tmp_path / "in")])
-    _io.check_distinct([("a", "/dev/null"), ("b", "/dev/null")])  # two outputs to /dev/null: harmless
+        files.check_distinct([("--frames", tmp_path / "sub" / ".." / "in")], [("capture", tmp_path / "in")])
+    files.check_distinct([("a", "/dev/null"), ("b", "/dev/null")])  # two outputs to /dev/null: harmless
     with pytest.raises(OutputError, match="same file"):
-        _io.check_distinct([("a", tmp_path / "new"), ("b", tmp_path / "." / "new")])
+        files.check_distinct([("a", tmp_path / "new"), ("b", tmp_path / "." / "new")])
