@@ -556,9 +556,9 @@ def test_file_set_undoes_every_rename_when_one_fails(tmp_path, monkeypatch):
         (tmp_path / name).write_text(f"old {name}")
     _fail_rename_onto(monkeypatch, tmp_path / "c")
     with pytest.raises(OSError):
-        with files.atomic_files() as files:
+        with files.atomic_files() as fileset:
             for name in ("a", "b", "c"):
-                files.open(tmp_path / name).write(f"new {name}")
+                fileset.open(tmp_path / name).write(f"new {name}")
     assert {p.name: p.read_text() for p in tmp_path.iterdir()} == {"a": "old a", "b": "old b"}
 
 
