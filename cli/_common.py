@@ -109,7 +109,7 @@ def link_options(fn: Callable | None = None, *, several: bool = False) -> Callab
 
 def link_overrides(kw: dict[str, Any]) -> dict[str, Any]:
     """The override flags' values (None where not given), read from `kw` without taking them out."""
-    return {name: kw.get(name) for name in iqdemod.link.OVERRIDES}
+    return {name: kw.get(name) for name in iqdemod.profile.OVERRIDES}
 
 
 def link_from_options(kw: dict[str, Any], *, optional: bool = False) -> iqdemod.Link | None:

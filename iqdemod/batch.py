@@ -75,7 +75,8 @@ from pathlib import Path
 from typing import Any, Iterable, Iterator, Mapping, Sequence
 
 from .errors import IqdemodError, IqdemodWarning, LinkError, OutputError, quote
-from .link import Link, load_link
+from .link import Link
+from .profile import load_link
 from .files import atomic_files, atomic_writer, check_distinct, classify_output
 
 __all__ = [

@@ -187,7 +187,7 @@ class HealthAccumulator:
     --------
     >>> import tempfile
     >>> from iqdemod.capture import open_capture
-    >>> from iqdemod.link import load_link
+    >>> from iqdemod.profile import load_link
     >>> from iqdemod.receiver import Receiver, drive
     >>> from iqdemod.synth import SynthConfig, synthesize
     >>> link = load_link(None, baud=4800, shift=4800, sync="0x9B3C57E1", length="24",
@@ -581,7 +581,7 @@ def assess(
     1e-5 in theory (½·exp(−Eb/2N0), REFERENCE §1):
 
     >>> import tempfile
-    >>> from iqdemod.link import load_link
+    >>> from iqdemod.profile import load_link
     >>> from iqdemod.synth import SynthConfig, synthesize
     >>> link = load_link(None, baud=4800, shift=4800, sync="0x9B3C57E1", length="24",
     ...                  crc="CRC-16/IBM-3740", rate=250_000)
@@ -624,7 +624,7 @@ def assess_with_frames(
     Examples
     --------
     >>> import tempfile
-    >>> from iqdemod.link import load_link
+    >>> from iqdemod.profile import load_link
     >>> from iqdemod.synth import SynthConfig, synthesize
     >>> link = load_link(None, baud=4800, shift=4800, sync="0x9B3C57E1", length="24",
     ...                  crc="CRC-16/IBM-3740", rate=250_000)

@@ -40,8 +40,7 @@ from .capture import MAX_SAMPLE_RATE_HZ
 from .crc import crc_spec
 from .errors import LinkError, quote
 
-__all__ = ["CaptureFormat", "SignalSpec", "FrameSpec", "Link", "OVERRIDES", "load_link", "load_links", "link_to_toml",
-           "sync_label"]
+__all__ = ["CaptureFormat", "SignalSpec", "FrameSpec", "Link", "sync_label"]
 
 MAX_LENGTH_BYTES = 4096
 PULSES = ("rect", "gaussian")
@@ -473,8 +472,3 @@ def sync_label(sync_word: int | str, bits: int) -> str:
     """
     word = int(sync_word, 16) if isinstance(sync_word, str) else int(sync_word)
     return f"0x{word:0{(bits + 3) // 4}X} ({bits} bits)"
-
-
-# The profile reader and writer live in iqdemod.profile; their names stay importable from here,
-# where callers have always found them (imported last: that module builds on this one).
-from .profile import OVERRIDES, link_to_toml, load_link, load_links  # noqa: E402

@@ -17,7 +17,7 @@ from click.testing import CliRunner
 
 from iqdemod import batch as B
 from iqdemod.errors import IqdemodError, LinkError
-from iqdemod.link import link_to_toml
+from iqdemod.profile import link_to_toml
 from iqdemod.synth import SynthConfig, synthesize
 from iqdemod_cli.main import main
 import iqdemod_cli.batch_cmd  # noqa: F401  (registers the command until cli/main.py imports it)

@@ -19,7 +19,8 @@ import fsk_modulator as ref
 from iqdemod import coding, framing
 from iqdemod.errors import EstimateError, LinkError
 from iqdemod.framing import body_bytes, find_frames, frame_bits, frame_symbols
-from iqdemod.link import FrameSpec, link_to_toml, load_link
+from iqdemod.link import FrameSpec
+from iqdemod.profile import link_to_toml, load_link
 
 
 def test_doctests():

@@ -9,7 +9,7 @@ from __future__ import annotations
 import pytest
 
 import iqdemod
-from iqdemod.link import link_to_toml, load_link
+from iqdemod.profile import link_to_toml, load_link
 from iqdemod.survey import survey
 from test_coding_receiver import BAUD, OFFSET, modulated_capture
 

@@ -13,7 +13,7 @@ import pytest
 
 import iqdemod
 from iqdemod.errors import LinkError
-from iqdemod.link import link_to_toml, load_link
+from iqdemod.profile import link_to_toml, load_link
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "checks"))
 import gfsk_acceptance as ga  # noqa: E402

@@ -4,7 +4,7 @@ import pytest
 
 import iqdemod
 from iqdemod.errors import LinkError
-from iqdemod.link import link_to_toml, load_link
+from iqdemod.profile import link_to_toml, load_link
 
 PROFILE = """
 [capture]

@@ -10,7 +10,7 @@ from hypothesis import HealthCheck, given, settings, strategies as st
 
 from iqdemod.capture import open_capture
 from iqdemod.errors import IqdemodError
-from iqdemod.link import load_link
+from iqdemod.profile import load_link
 
 KEYS = {
     "capture": ["datatype", "sample_rate"],

@@ -24,7 +24,7 @@ from click.testing import CliRunner
 import iqdemod
 from iqdemod import survey as S
 from iqdemod.errors import CaptureError, IqdemodError
-from iqdemod.link import load_link
+from iqdemod.profile import load_link
 from iqdemod.synth import SynthConfig, synthesize
 
 ROOT = Path(__file__).resolve().parents[1]

@@ -19,7 +19,7 @@ import fsk_modulator as ref
 import iqdemod
 from iqdemod import survey as S
 from iqdemod.errors import IqdemodError
-from iqdemod.link import link_to_toml, load_link
+from iqdemod.profile import link_to_toml, load_link
 from iqdemod_cli.main import main
 
 RATE, BAUD, OFFSET, NOISE = 256_000, 9600, 40_000, 0.05

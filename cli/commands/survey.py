@@ -9,7 +9,8 @@ import click
 import iqdemod
 from iqdemod.capture import MAX_SAMPLE_RATE_HZ
 from iqdemod.errors import IqdemodError
-from iqdemod.link import CaptureFormat, link_to_toml
+from iqdemod.link import CaptureFormat
+from iqdemod.profile import link_to_toml
 from iqdemod.survey import plot_survey, require_plotting, survey as survey_capture
 
 from .._common import finite, guard_outputs, open_output, say
