@@ -6,7 +6,9 @@ telemetry: 1.024 MS/s, 9600 baud, the signal 137 kHz off centre, 600 bursts with
 - ``cf32``: complex float32 whose noise peaks pass 1.0 (about 0.6 % of samples: floats have no
   full scale, so the reader must not treat them as clipped);
 - ``ci16``: complex int16 (ci16_le);
-- ``cu8``: complex unsigned 8-bit.
+- ``cu8``: complex unsigned 8-bit;
+- ``gfsk`` (on request): cf32, the Gaussian FSK most transceiver chips send (BT 0.5, h 0.5), which
+  the multi-symbol detector decodes.
 
 For each it times, in the same process and alternately:
 
@@ -19,7 +21,7 @@ start-up included) against the same floor, and k = 1, 2, 4 links decoded in one 
 links tuned to empty channels of the same capture), as the ratio of each time to one link's.
 
 It prints one JSON object. Usage:
-    python benchmarks/throughput.py [--workdir DIR] [--repeat 3] [--datatypes cf32,ci16,cu8]
+    python benchmarks/throughput.py [--workdir DIR] [--repeat 3] [--datatypes cf32,ci16,cu8,gfsk]
                                     [--links 1,2,4] [--no-cli]
 """
 
@@ -43,10 +45,12 @@ CHUNK_BYTES = 8 << 20
 RATE = 1_024_000
 OFFSET = 137_000
 LINK_KW = dict(baud=9600, shift=9600, sync="0x9B3C57E1", length=24, crc="CRC-16/IBM-3740")
-DATATYPES = {"cf32": "cf32_le", "ci16": "ci16_le", "cu8": "cu8"}
+DATATYPES = {"cf32": "cf32_le", "ci16": "ci16_le", "cu8": "cu8", "gfsk": "cf32_le"}
+# the Gaussian FSK most transceiver chips send (BT 0.5, h 0.5), decoded by the multi-symbol detector
+KIND_LINK = {"gfsk": dict(shift=4800, gaussian=0.5)}
 # cf32: noise σ per component 0.34 puts about 0.6 % of samples past ±1.0; the integer types keep
 # the usual headroom (noise well inside full scale)
-NOISE_RMS = {"cf32": 0.48, "ci16": 0.05, "cu8": 0.05}
+NOISE_RMS = {"cf32": 0.48, "ci16": 0.05, "cu8": 0.05, "gfsk": 0.05}
 EMPTY_OFFSETS = (-300_000, -150_000, 300_000)  # extra links' channels: noise only
 
 
@@ -55,18 +59,19 @@ def make_capture(workdir: Path, kind: str, seconds: float, frames: int) -> Path:
     meta = base.with_name(base.name + ".sigmf-meta")
     if meta.exists():
         return meta
-    link = iqdemod.load_link(None, datatype=DATATYPES[kind], rate=RATE, offset=OFFSET, **LINK_KW)
+    link = iqdemod.load_link(None, datatype=DATATYPES[kind], rate=RATE, offset=OFFSET, **{**LINK_KW, **KIND_LINK.get(kind, {})})
     burst_s = (32 + 32 + 8 * 24 + 16 + 8) / 9600
     gap = max(0.0, seconds / frames - burst_s)
     synthesize(base, SynthConfig(link=link, ebn0_db=(14.0, 18.0), n_frames=frames, freq_error_hz=1200.0,
                                  clock_ppm=50.0, gap_s=(0.5 * gap, 1.5 * gap), noise_rms=NOISE_RMS[kind],
+                                 gaussian_bt=link.signal.bt if link.signal.pulse == "gaussian" else None,
                                  centre_hz=869_437_500.0, seed=60))
     return meta
 
 
 def floor_pass(data: Path, kind: str) -> tuple[float, int]:
     """Read in 8 MiB chunks, convert to complex64, multiply by an oscillator; (seconds, samples)."""
-    width = {"cf32": 8, "ci16": 4, "cu8": 2}[kind]
+    width = {"ci16": 4, "cu8": 2}.get(kind, 8)
     n_chunk = CHUNK_BYTES // width
     osc = np.exp(-2j * np.pi * OFFSET / RATE * np.arange(n_chunk)).astype(np.complex64)
     buf = bytearray(CHUNK_BYTES)
@@ -79,7 +84,7 @@ def floor_pass(data: Path, kind: str) -> tuple[float, int]:
             if not got:
                 break
             n = got // width
-            if kind == "cf32":
+            if width == 8:
                 x = np.frombuffer(buf, dtype=np.complex64, count=n)
             elif kind == "ci16":
                 pairs = np.frombuffer(buf, dtype="<i2", count=2 * n).astype(np.float32)
@@ -108,7 +113,7 @@ def links_for(k: int) -> dict[str, iqdemod.Link]:
 
 def in_process(meta: Path, kind: str, repeat: int) -> dict:
     data = meta.with_name(meta.name.replace(".sigmf-meta", ".sigmf-data"))
-    link = iqdemod.load_link(None, offset=OFFSET, **LINK_KW)
+    link = iqdemod.load_link(None, offset=OFFSET, **{**LINK_KW, **KIND_LINK.get(kind, {})})
     floor_pass(data, kind)  # warm the page cache so both see the same storage
     t_floor = t_dec = float("inf")
     frames = []
