@@ -95,7 +95,7 @@ class CaptureRow:
             elif name == "warnings":
                 text = "; ".join(value)
             elif isinstance(value, float):
-                text = format(value, ".7g") if math.isfinite(value) else ""
+                text = format(value, _FLOAT_FORMAT.get(name, ".7g")) if math.isfinite(value) else ""
             else:
                 text = str(value)
             out.append(" ".join(text.splitlines()))
@@ -126,6 +126,8 @@ class CaptureRow:
 
 
 COLUMNS = tuple(f.name for f in dataclasses.fields(CaptureRow))
+# 7 significant figures, except where a figure needs more: an absolute frequency to 0.1 Hz
+_FLOAT_FORMAT = {"frequency_hz": ".1f"}
 _COLUMN_KIND = {
     f.name: ("tuple" if f.name == "warnings" else
              "int" if "int" in str(f.type) else

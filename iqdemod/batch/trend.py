@@ -61,14 +61,20 @@ def _zero_bound(r: CaptureRow) -> float | None:
     return zero_error_bound(r.frames) if r.fer_observed == 0 and r.frames else None
 
 
+#: The lowest frame error rate the panel reaches down to: a rate no archive could ever observe.
+MIN_RATE_DRAWN = 1e-12
+
+
 def _floor(series: dict[str, list[tuple[datetime, CaptureRow]]]) -> float:
-    """The bottom of the logarithmic panel: a decade below a third of the smallest value drawn."""
+    """The bottom of the logarithmic panel: the decade below a third of the smallest value drawn."""
     values = [v for pts in series.values() for _, r in pts
               for v in (r.fer_observed, r.fer_predicted, _zero_bound(r)) if v]
-    return 10 ** math.floor(math.log10(max(min(values), 1e-6) / 3)) if values else 1e-3
+    if not values:
+        return 1e-3
+    return min(10 ** math.floor(math.log10(max(min(values), MIN_RATE_DRAWN) / 3)), 1e-3)
 
 
-def _draw_fer(ax, pts: list[tuple[datetime, CaptureRow]], colour: str) -> None:
+def _draw_fer(ax, pts: list[tuple[datetime, CaptureRow]], colour: str, floor: float) -> None:
     """Observed rate (line), predicted rate (dashed, a mark per capture) and zero-error bounds."""
     seen = [(t, r.fer_observed) for t, r in pts if r.fer_observed]
     ax.plot([t for t, _ in seen], [v for _, v in seen], "o-", color=colour, ms=4, lw=1.2)
@@ -77,8 +83,9 @@ def _draw_fer(ax, pts: list[tuple[datetime, CaptureRow]], colour: str) -> None:
         ys = [b for _, b in bounds]
         # an upper limit: a bar at the bound with an arrow down from it
         ax.errorbar([t for t, _ in bounds], ys, yerr=[[0.5 * y for y in ys], [0.0] * len(ys)], uplims=True,
-                    fmt="none", ecolor=colour, elinewidth=1.2, capsize=4)
-    pred = [(t, r.fer_predicted) for t, r in pts if r.fer_predicted]
+                    fmt="none", color=colour, ecolor=colour, elinewidth=1.2, capsize=4)
+    # (a prediction below MIN_RATE_DRAWN sits on the panel's floor)
+    pred = [(t, max(r.fer_predicted, floor)) for t, r in pts if r.fer_predicted]
     if pred:  # a mark on every capture, so that a transmitter with one capture still shows it
         ax.plot([t for t, _ in pred], [v for _, v in pred], "--", marker="_", ms=10, mew=1.5, color=colour,
                 lw=0.9, alpha=0.85)
@@ -111,7 +118,7 @@ def plot_trend(source: str | os.PathLike | Sequence[CaptureRow], png: str | os.P
     upper limit: a bar at the one-sided 95 % upper bound of its frame error rate,
     1 − 0.05^(1/n) for n frames (:func:`zero_error_bound`), with an arrow down. The
     predicted frame error rate is the dashed line of the same colour, with a mark
-    on each capture. Captures that failed, or have no time or no measurement,
+    on each capture (one below 1e-12 sits on the panel's floor). Captures that failed, or have no time or no measurement,
     are left out (the title says how many). Colours: :func:`iqdemod.plots.series_colour`.
 
     Raises
@@ -129,16 +136,17 @@ def plot_trend(source: str | os.PathLike | Sequence[CaptureRow], png: str | os.P
         rows = [dataclasses.replace(r, transmitter=lab) for r, lab in zip(rows, label_transmitters(rows))]
     series = _series(rows)
     shown = sum(len(pts) for pts in series.values())
+    floor = _floor(series)
     ax1, ax2 = fig.subplots(2, 1, sharex=True)
     for i, (name, pts) in enumerate(series.items()):
         colour = series_colour(i)
         e = [math.nan if r.ebn0_db is None else r.ebn0_db for _, r in pts]
         ax1.plot([t for t, _ in pts], e, "o-", color=colour, ms=4, lw=1.2, label=f"{name}: {len(pts)}")
-        _draw_fer(ax2, pts, colour)
+        _draw_fer(ax2, pts, colour, floor)
     ax1.set_ylabel("Eb/N0 (dB)")
     ax1.grid(True, alpha=0.3)
     ax2.set_yscale("log")
-    ax2.set_ylim(_floor(series), 1.5)
+    ax2.set_ylim(floor, 1.5)
     ax2.set_ylabel("frame error rate")
     ax2.grid(True, which="major", alpha=0.3)
     ax2.set_xlabel("capture start time (UTC)")
