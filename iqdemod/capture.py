@@ -44,12 +44,58 @@ __all__ = [
     "open_capture",
     "CaptureWarning",
     "DEFAULT_BLOCK_SAMPLES",
+    "CAPTURE_FORMATS",
+    "CAPTURE_SUFFIXES",
+    "RAW_SUFFIXES",
+    "SIGMF_COMPLEX_DATATYPES",
+    "capture_format",
 ]
 
 DEFAULT_BLOCK_SAMPLES = 1 << 20
 _SIGMF_META = ".sigmf-meta"
 _SIGMF_DATA = ".sigmf-data"
-_AUDIO_SUFFIXES = {".wav", ".flac", ".wave"}
+
+# --------------------------------------------------------------------------- suffix registry
+# The one table of which file name opens as which format. open_capture and batch's discovery
+# both read it, so a file batch collects is one the reader opens the same way, and back.
+#: The complex datatypes of the SigMF core specification ([c][f32|f64|i32|i16|u32|u16|i8|u8], the
+#: multi-byte ones with _le or _be): each is also the suffix of a raw file of that datatype.
+SIGMF_COMPLEX_DATATYPES = (
+    "cf64_le", "cf64_be", "cf32_le", "cf32_be", "ci32_le", "ci32_be", "ci16_le", "ci16_be", "ci8",
+    "cu32_le", "cu32_be", "cu16_le", "cu16_be", "cu8",
+)
+#: Raw interleaved IQ (datatype and rate from the link or the flags): the SigMF datatype names,
+#: plus the neutral .raw, .iq and .bin.
+RAW_SUFFIXES = tuple("." + name for name in SIGMF_COMPLEX_DATATYPES) + (".raw", ".iq", ".bin")
+#: Suffix (lower case) -> format: "sigmf" (either file of a pair), "sigmf-archive" (a .sigmf tar),
+#: "audio" (two-channel WAV or FLAC), "raw".
+CAPTURE_FORMATS = {
+    _SIGMF_META: "sigmf", _SIGMF_DATA: "sigmf", ".sigmf": "sigmf-archive",
+    ".wav": "audio", ".wave": "audio", ".flac": "audio",
+    **{suffix: "raw" for suffix in RAW_SUFFIXES},
+}
+CAPTURE_SUFFIXES = tuple(CAPTURE_FORMATS)
+
+
+def capture_format(path: str | os.PathLike) -> str | None:
+    """The format a file name opens as (see :data:`CAPTURE_FORMATS`), or None for any other name.
+
+    Suffixes match in any case, except a SigMF pair's, whose partner is found by the name as the
+    SigMF specification writes it (``.sigmf-meta``/``.sigmf-data``).
+
+    Examples
+    --------
+    >>> capture_format("buoy.sigmf-meta"), capture_format("night.CI16_LE"), capture_format("a.wave")
+    ('sigmf', 'raw', 'audio')
+    >>> capture_format("notes.txt") is None
+    True
+    """
+    suffix = Path(path).suffix
+    fmt = CAPTURE_FORMATS.get(suffix.lower())
+    if fmt == "sigmf" and suffix not in CAPTURE_FORMATS:
+        return None
+    return fmt
+
 # SigMF metadata beyond this size is refused unread: real files are kilobytes, and a cap keeps
 # an endless file (a link to /dev/zero) from filling the memory.
 MAX_META_BYTES = 4 << 20
@@ -671,9 +717,10 @@ def open_capture(path: str | os.PathLike, *, datatype: str | None = None, sample
     ----------
     path : str or PathLike
         A SigMF ``.sigmf-meta`` or ``.sigmf-data`` file (either names the pair),
-        a ``.sigmf`` archive (uncompressed tar of one pair), a ``.wav``/``.flac``
+        a ``.sigmf`` archive (uncompressed tar of one pair), a ``.wav``/``.wave``/``.flac``
         file with I in the left channel and Q in the right, or a raw file of
-        interleaved IQ.
+        interleaved IQ (by :func:`capture_format`: a name of :data:`RAW_SUFFIXES`, or any
+        other name given with its datatype).
     datatype : str, optional
         SigMF datatype of a raw file (required for raw files).
     sample_rate : float, optional
@@ -704,9 +751,10 @@ def open_capture(path: str | os.PathLike, *, datatype: str | None = None, sample
         raise CaptureError(f"{p}: no such file")
     if p.is_dir():
         raise CaptureError(f"{p}: is a folder, expected a capture file")
-    if p.suffix.lower() in _AUDIO_SUFFIXES:
+    fmt = capture_format(p)  # any other name opens as raw, as the datatype given says
+    if fmt == "audio":
         return _open_audio(p)
-    if p.suffix.lower() == ".sigmf":
+    if fmt == "sigmf-archive":
         return _open_sigmf_archive(p, sample_rate)
     if datatype is None:
         raise CaptureError(f"{p}: raw capture without metadata: give its datatype (--datatype, e.g. cu8)")

@@ -38,7 +38,8 @@ from .framing import PREAMBLE_BITS, frame_symbols
 from .link import MAX_FREQUENCY_HZ, Link, finite_number
 from .files import atomic_files, check_distinct, classify_output
 
-__all__ = ["SynthConfig", "synthesize", "fsk_burst", "amplitude_for_ebn0", "sigmf_paths", "payload_bit_errors"]
+__all__ = ["SynthConfig", "synthesize", "fsk_burst", "amplitude_for_ebn0", "sigmf_paths", "payload_bit_errors",
+           "DEFAULT_CENTRE_HZ"]
 
 TAIL_BITS = 8
 _BLOCK = 1 << 20
@@ -46,6 +47,9 @@ _BLOCK = 1 << 20
 # The ranges the generator accepts (each stated in the command's help).
 EBN0_RANGE_DB = (-50.0, 100.0)
 MAX_FRAMES = 1_000_000
+#: The capture centre written to the metadata unless told otherwise: the demo fleet's own channel
+#: plan, chosen for this project (no device's default).
+DEFAULT_CENTRE_HZ = 868_837_500.0
 MAX_CLOCK_PPM = 10_000.0  # 1 %: far beyond any crystal, small enough that the symbol clock stays positive
 GAUSSIAN_BT_RANGE = (0.1, 10.0)  # below 0.1 the pulse spans hundreds of symbols (GMSK uses 0.3–0.5)
 MAX_GAP_S = 3600.0
@@ -133,7 +137,8 @@ class SynthConfig:
     noise_rms : float
         σ, the total rms of the complex noise per sample (full scale = 1).
     centre_hz : float or None
-        Capture centre frequency written as SigMF core:frequency.
+        Capture centre frequency written as SigMF core:frequency (default
+        :data:`DEFAULT_CENTRE_HZ`, 868.8375 MHz).
     preamble_bits : int
     seed : int
     """
@@ -147,7 +152,7 @@ class SynthConfig:
     gap_s: tuple[float, float] = (0.01, 0.03)
     lead_s: float = 0.02
     noise_rms: float = 0.05
-    centre_hz: float | None = 869_525_000.0
+    centre_hz: float | None = DEFAULT_CENTRE_HZ
     preamble_bits: int = PREAMBLE_BITS
     seed: int = 1
     start_time: str | None = None

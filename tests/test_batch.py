@@ -16,6 +16,7 @@ import pytest
 from click.testing import CliRunner
 
 from iqdemod import batch as B
+from iqdemod.batch import executors
 from iqdemod.errors import IqdemodError, LinkError
 from iqdemod.profile import link_to_toml
 from iqdemod.synth import SynthConfig, synthesize
@@ -47,8 +48,10 @@ def frame_keys(records) -> collections.Counter:
 def tree(tmp_path):
     """Empty files with capture-like names (collection never opens them)."""
     names = ["a/x.sigmf-meta", "a/x.sigmf-data", "a/x.truth.json", "a/lone.sigmf-data", "a/meta_only.sigmf-meta",
-             "b/y.cu8", "b/z.wav", "b/w.FLAC", "b/notes.txt", "b/.hidden.cu8", "b/up.CF32", ".hid/v.cu8",
-             "b/deep/er/t.ci16", "b/report.csv", "b/frames.jsonl"]
+             "b/y.cu8", "b/z.wav", "b/w.FLAC", "b/notes.txt", "b/.hidden.cu8", "b/up.CF32_LE", ".hid/v.cu8",
+             "b/deep/er/t.ci16_le", "b/report.csv", "b/frames.jsonl", "b/s.wave",
+             # other programs' own naming conventions, not SigMF datatype names: never collected
+             "b/o.cs8", "b/o.cs16", "b/o.cfile", "b/o.cf32", "b/o.ci16"]
     for n in names:
         (tmp_path / n).parent.mkdir(parents=True, exist_ok=True)
         (tmp_path / n).write_bytes(b"")
@@ -57,8 +60,8 @@ def tree(tmp_path):
 
 def test_collect_folder_pairs_once_and_skips_the_rest(tree):
     got = [p.relative_to(tree).as_posix() for p in B.collect_captures([tree])]
-    assert got == ["a/lone.sigmf-data", "a/meta_only.sigmf-meta", "a/x.sigmf-meta", "b/deep/er/t.ci16",
-                   "b/up.CF32", "b/w.FLAC", "b/y.cu8", "b/z.wav"]
+    assert got == ["a/lone.sigmf-data", "a/meta_only.sigmf-meta", "a/x.sigmf-meta", "b/deep/er/t.ci16_le",
+                   "b/s.wave", "b/up.CF32_LE", "b/w.FLAC", "b/y.cu8", "b/z.wav"]
 
 
 def test_collect_a_pair_counts_once_whichever_file_is_named(tree):
@@ -72,7 +75,7 @@ def test_collect_globs_and_stable_order(tree):
     got = B.collect_captures([str(tree / "*" / "x.sigmf-*")])
     assert got == [tree / "a/x.sigmf-meta"]
     got = [p.name for p in B.collect_captures([str(tree / "b" / "**" / "*.c*")])]
-    assert got == ["t.ci16", "y.cu8"]  # sorted by path; hidden ones skipped (the pattern is case-sensitive)
+    assert got == ["t.ci16_le", "y.cu8"]  # sorted by path; hidden ones skipped (the pattern is case-sensitive)
     one = B.collect_captures([tree / "b", tree / "a"])
     two = B.collect_captures([tree / "a", str(tree / "b/*"), tree / "b"])
     assert one == two == sorted(one, key=str)
@@ -155,8 +158,9 @@ def test_acceptance_report(local_run, archive):
     assert all(int(r["frames"]) == 4 and int(r["frames_crc_ok"]) == 4 for r in good)
     assert all(r["start_time"].startswith("2026-01-0") and "(mtime)" not in r["start_time"] for r in good)
     assert by[BROKEN]["start_time"].endswith("(mtime)")
-    for col in ("duration_s", "ebn0_db", "per_predicted", "per_observed", "freq_error_hz", "clock_error_ppm",
-                "margin_db", "size_bytes", "mtime_ns"):
+    for col in ("duration_s", "ebn0_db", "ebn0_db_low", "ebn0_db_high", "fer_predicted", "fer_observed",
+                "freq_error_hz", "clock_error_ppm", "clipped_fraction", "dc_dbfs", "level_dbfs", "frequency_hz",
+                "margin_db", "size_bytes", "mtime_ns", "settings_digest"):
         assert all(r[col] != "" for r in good), col
     tx = {int(Path(r["capture"]).name[3:5]): r["transmitter"] for r in good}  # odd: +300 Hz, even: +2500 Hz
     def label_hz(label: str) -> float:  # "tx2 (+2499 Hz)" -> 2499.0
@@ -236,7 +240,7 @@ def test_any_exception_becomes_a_row(archive, tmp_path, monkeypatch):
     def boom(*a, **k):
         raise ZeroDivisionError("division by zero in a stage")
 
-    monkeypatch.setattr(iqdemod.health, "assess", boom)
+    monkeypatch.setattr(iqdemod.health, "assess_with_frames", boom)
     res = B.run_batch([archive / "site_b"], make_link(), report=tmp_path / "r.csv", jobs=1)
     assert res.n_failed == 5 and res.n_ok == 0
     assert {r.error for r in res.rows} == {"ZeroDivisionError: division by zero in a stage"}
@@ -355,7 +359,7 @@ def test_spawned_workers_give_the_same_rows(local_run, archive, tmp_path, monkey
     # fork is used only while this process has no other thread; the fallback must agree
     import multiprocessing
 
-    monkeypatch.setattr(B, "_pool_context", lambda: multiprocessing.get_context("spawn"))
+    monkeypatch.setattr(executors, "_pool_context", lambda: multiprocessing.get_context("spawn"))
     res = B.run_batch([archive / "site_b"], make_link(), report=tmp_path / "r.csv", jobs=2)
     local = {r["capture"]: r for r in read_csv(local_run[1])}
     assert [(r.status, r.frames, r.warnings) for r in res.rows] == [

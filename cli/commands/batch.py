@@ -72,7 +72,7 @@ def command(ctx, paths, report, frames, jobs, resume, cluster, target_ber, plot,
         result = B.run_batch(
             paths, link, report=report, frames=frames, jobs=jobs, resume=resume, cluster=cluster,
             target_ber=target_ber, link_overrides=overrides, plot=plot, progress=not quiet,
-            inputs=[("--link profile", link_path)],
+            link_source=link_path, inputs=[("--link profile", link_path)],
         )
     except KeyboardInterrupt as exc:
         say(f"interrupted: every finished capture is kept in {B.partial_path(report)}; "

@@ -35,7 +35,7 @@ DEFAULT_RATE = 1_024_000
               help="Quiet time between bursts, seconds (uniform between LOW and HIGH, each 0–3600).")
 @click.option("--noise-rms", type=finite(*SY.NOISE_RMS_RANGE), default=0.05, show_default=True,
               help="Total rms of the complex noise per sample, full scale = 1.")
-@click.option("--centre", "centre_hz", type=finite(0, MAX_FREQUENCY_HZ, min_open=True), default=869_525_000.0,
+@click.option("--centre", "centre_hz", type=finite(0, MAX_FREQUENCY_HZ, min_open=True), default=SY.DEFAULT_CENTRE_HZ,
               show_default=True, help="Capture centre frequency written to the metadata, Hz.")
 @click.option("--seed", type=click.IntRange(0, SY.MAX_SEED), default=1, show_default=True,
               help="Random seed (the same seed gives the same file).")

@@ -1,0 +1,232 @@
+"""Running a batch: collect, resume, process on an executor, journal, label, commit the report."""
+
+from __future__ import annotations
+
+import contextlib
+import dataclasses
+import os
+import sys
+import time
+from pathlib import Path
+from typing import Any, Iterable, Mapping
+
+from ..files import atomic_files, check_distinct, classify_output
+from ..errors import IqdemodError, LinkError, OutputError, quote
+from ..link import Link
+from . import executors, journal
+from .collect import FolderLink, Found, discover, fingerprint, folder_links, mtime_time
+from .journal import Journal, lock_path, partial_path
+from .report import BatchResult, CaptureRow, labelled_frames, settings_digest, write_rows
+from .transmitters import label_transmitters
+from .worker import CaptureTask
+
+__all__ = ["run_batch"]
+
+
+def _check_arguments(target_ber: float, jobs: int | None, report: Path, frames: Path | None, plot,
+                     cluster: str | None) -> None:
+    """Refuse before any work: a bad number, an output that cannot take a journal, a missing extra."""
+    if not 0 < target_ber < 0.5:
+        raise IqdemodError(f"target BER {target_ber:g}: must be within (0, 0.5)")
+    if jobs is not None and jobs < 1:
+        raise IqdemodError(f"jobs {jobs}: must be >= 1")
+    for role, target in (("report", report), ("frames file", frames)):
+        if target is not None and classify_output(target).kind != "file":
+            raise OutputError(f"{role} {quote(str(target))}: must be a regular file (its journal "
+                              f"{partial_path(target).name} is kept beside it), not a FIFO, device or -")
+    if plot is not None:
+        classify_output(plot)
+        from ..plots import require_matplotlib
+
+        require_matplotlib()
+    if cluster is not None:
+        executors.check_cluster_address(cluster)
+
+
+def _check_outputs(report: Path, frames: Path | None, plot, found: list[Found], links: list[FolderLink],
+                   inputs: Iterable[tuple[str, Any]]) -> None:
+    """Refuse before any work: an output (journals and locks included) that is an input or another output."""
+    from ..capture import capture_files
+
+    outputs = [("report", report), ("report journal", partial_path(report)), ("report lock", lock_path(report))]
+    if frames is not None:
+        outputs += [("frames file", frames), ("frames journal", partial_path(frames)),
+                    ("frames lock", lock_path(frames))]
+    outputs.append(("plot", plot))
+    ins = list(inputs)
+    for f in found:
+        ins += [("capture", c) for c in capture_files(f.path)]
+    ins += [("folder link profile", p) for p in dict.fromkeys(lk.path for lk in links if lk.path)]
+    check_distinct(outputs, ins)
+
+
+def _link_source(link_source, inputs: list[tuple[str, Any]]) -> str:
+    """The name of the batch's own link for the ``link`` column: given, or the profile among `inputs`."""
+    if link_source is None:  # the command line names its --link profile among the inputs
+        link_source = next((p for role, p in inputs if p is not None and "link" in role), None)
+    return "" if link_source is None else os.fspath(link_source)
+
+
+def _tasks(found: list[Found], links: list[FolderLink], *, target_ber: float, want_frames: bool,
+           link_source: str) -> list[CaptureTask]:
+    tasks = []
+    for f, lk in zip(found, links):
+        size, mtime = fingerprint(f.path)
+        tasks.append(CaptureTask(
+            capture=str(f.path), path=os.path.abspath(f.path), link=lk.link, target_ber=target_ber,
+            want_frames=want_frames, link_path=lk.path or (link_source if lk.link is not None else ""),
+            link_error=lk.error, transmitter=lk.label, size_bytes=size, mtime_ns=mtime,
+            mtime_time=mtime_time(f.path), settings_digest=settings_digest(lk.link, target_ber),
+        ))
+    return tasks
+
+
+def _process(todo: list[CaptureTask], rows: dict[str, CaptureRow], report: Path, frames: Path | None, *,
+             jobs: int | None, cluster: str | None, lock_fd: int | None, progress: bool) -> Journal:
+    """Every capture of `todo` through an executor into the journal (and `rows`); the journal, closed."""
+    # the workers first: a forked worker must find no other thread and no open journal
+    source = executors.start(todo, jobs=jobs, cluster=cluster, lock_fd=lock_fd)
+    interrupted = True
+    book = bar = None
+    try:
+        book = Journal(report, frames)
+        if progress:
+            from tqdm import tqdm
+
+            bar = tqdm(total=len(todo), unit="capture", desc="batch", file=sys.stderr, dynamic_ncols=True)
+        n_failed = 0
+        for task, outcome in source:
+            book.add(outcome)
+            rows[task.path] = outcome.row
+            if bar is not None:
+                n_failed += not outcome.row.ok
+                bar.set_postfix(failed=n_failed, refresh=False)
+                bar.update(1)
+        interrupted = False
+    finally:
+        source.close(interrupted=interrupted)
+        if bar is not None:
+            bar.close()
+        if book is not None:
+            book.close()
+    return book
+
+
+def _commit(ordered: list[CaptureRow], book: Journal, report: Path, frames: Path | None) -> None:
+    """The frames (labelled) and the report that vouches for them last, together or not at all."""
+    with atomic_files() as files:
+        if frames is not None:
+            labelled_frames(book.frames_part, files.open(frames, "w"),
+                            {r.capture: r.transmitter for r in ordered})
+        write_rows(files.open(report, "w"), ordered)
+    for part in filter(None, (book.frames_part, book.report_part)):  # kept for --resume until now
+        with contextlib.suppress(FileNotFoundError):
+            os.unlink(part)
+
+
+def run_batch(
+    paths: Iterable[str | os.PathLike],
+    link: Link | None,
+    *,
+    report: str | os.PathLike,
+    frames: str | os.PathLike | None = None,
+    jobs: int | None = None,
+    resume: bool = False,
+    cluster: str | None = None,
+    target_ber: float = 1e-5,
+    link_overrides: Mapping[str, Any] | None = None,
+    link_source: str | os.PathLike | None = None,
+    plot: str | os.PathLike | None = None,
+    progress: bool = False,
+    inputs: Iterable[tuple[str, str | os.PathLike | None]] = (),
+) -> BatchResult:
+    """Assess every capture under `paths` and write the report (and frames).
+
+    Parameters
+    ----------
+    paths : iterable of str or PathLike
+        Files, folders or glob patterns (see :func:`collect_captures`).
+    link : Link or None
+        The link of every capture not below a folder ``link.toml``; None when
+        every capture has a folder profile.
+    report : str or PathLike
+        The CSV report, one row per capture (columns: :data:`COLUMNS`, described in
+        :data:`COLUMN_HELP`).
+    frames : str or PathLike, optional
+        Write every frame of every capture here as JSON Lines (``capture`` is the
+        report's name of the capture, ``transmitter`` its label). Each capture's
+        frames are together and in time order; the captures in the order they finished.
+    jobs : int, optional
+        Worker processes, each decoding with one thread; default one per core. 1
+        runs in this process, with one thread.
+    resume : bool
+        Keep the captures an earlier run finished (see the package notes).
+    cluster : str, optional
+        Address of a running Dask scheduler (``tcp://host:8786``); the captures
+        are then processed by its workers, `jobs` is ignored.
+    target_ber : float
+        The BER the margin is measured against.
+    link_overrides : mapping, optional
+        Flag-style values (:func:`iqdemod.load_link`) applied on top of every
+        folder profile, as they were on top of `link`.
+    link_source : str or PathLike, optional
+        What the ``link`` column names for `link` (its profile); by default the
+        input whose role names a link profile in `inputs`, else nothing.
+    plot : str or PathLike, optional
+        Also write the trend figure (:func:`plot_trend`) here.
+    progress : bool
+        A tqdm bar over the captures, with ETA, on stderr.
+    inputs : iterable of (role, path)
+        Other files this run reads (the ``--link`` profile); with the captures
+        and the folder profiles, none may be an output.
+
+    Returns
+    -------
+    BatchResult
+
+    Raises
+    ------
+    IqdemodError
+        When nothing is collected, a path does not exist, no link applies,
+        the report or frames file is locked by another batch, or the cluster is
+        unreachable. :class:`~iqdemod.errors.OutputError` when an output (the
+        report, the frames file, their journals, the plot) is an input or
+        another output, or is not a regular file.
+        A capture that fails is *not* raised: its row says why.
+    KeyboardInterrupt
+        After Ctrl-C (or SIGTERM turned into it); every finished capture is
+        in the journal (:func:`partial_path` of `report`) for ``resume``.
+    """
+    t_start = time.perf_counter()
+    report = Path(report)
+    frames_path = None if frames is None else Path(frames)
+    _check_arguments(target_ber, jobs, report, frames_path, plot, cluster)
+    found = discover(paths)
+    if not found:
+        raise IqdemodError("no captures found (looked for SigMF, WAV/FLAC and raw IQ files)")
+    links = folder_links(found, link, link_overrides or {})
+    inputs = list(inputs)
+    _check_outputs(report, frames_path, plot, found, links, inputs)
+    if link is None and all(lk.link is None and "no link" in lk.error for lk in links):
+        raise LinkError("no link: give --link FILE (or --baud and --shift), or put a link.toml in the capture folders")
+    tasks = _tasks(found, links, target_ber=target_ber, want_frames=frames_path is not None,
+                   link_source=_link_source(link_source, inputs))
+    with journal.exclusive(*filter(None, (report, frames_path))) as lock_fd:
+        if resume:
+            rows = journal.carry_over(tasks, report, frames_path)
+        else:
+            rows = {}
+            journal.clear(report, frames_path)
+        todo = [t for t in tasks if t.path not in rows]
+        book = _process(todo, rows, report, frames_path, jobs=jobs, cluster=cluster, lock_fd=lock_fd,
+                        progress=progress)
+        ordered = [rows[t.path] for t in tasks]
+        ordered = [dataclasses.replace(r, transmitter=lab) for r, lab in zip(ordered, label_transmitters(ordered))]
+        _commit(ordered, book, report, frames_path)
+    if plot is not None:
+        from .trend import plot_trend
+
+        plot_trend(ordered, plot)
+    return BatchResult.of(ordered, n_skipped=len(tasks) - len(todo), report=str(report),
+                          frames=None if frames_path is None else str(frames_path),
+                          elapsed_s=time.perf_counter() - t_start)
