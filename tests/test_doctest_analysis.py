@@ -13,8 +13,14 @@ import iqdemod.binomial
 import iqdemod.estimate
 import iqdemod.health
 import iqdemod.predict
+import iqdemod.predict_args
+import iqdemod.predict_bank
+import iqdemod.predict_closed_form
+import iqdemod.predict_curves
+import iqdemod.predict_inverse
 
-MODULES = [iqdemod.predict, iqdemod.binomial, iqdemod.estimate, iqdemod.health]
+MODULES = [iqdemod.predict, iqdemod.predict_args, iqdemod.predict_closed_form, iqdemod.predict_bank,
+           iqdemod.predict_inverse, iqdemod.predict_curves, iqdemod.binomial, iqdemod.estimate, iqdemod.health]
 
 
 @pytest.mark.parametrize("module", MODULES, ids=lambda m: m.__name__)
