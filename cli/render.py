@@ -308,7 +308,7 @@ def batch_summary(result, *, weakest_shown: int = 5) -> list[str]:
         for r in result.weakest:
             tx = f"  [{r.transmitter}]" if r.transmitter else ""
             ebn0 = "" if r.ebn0_db is None else f"  Eb/N0 {r.ebn0_db:5.1f} dB"
-            fer = _row_fer_observed(r)
+            fer = r.fer_observed
             fer_text = "" if fer is None else f"  frame error rate {pct(fer)}"
             lines.append(f"  {r.capture:<{width}}  margin {r.margin_db:+6.1f} dB{ebn0}{fer_text}{tx}")
     failed = [r for r in result.rows if not r.ok]
@@ -316,9 +316,3 @@ def batch_summary(result, *, weakest_shown: int = 5) -> list[str]:
     if len(failed) > weakest_shown:
         lines.append(f"failed: … and {len(failed) - weakest_shown} more (see the report)")
     return lines
-
-
-def _row_fer_observed(row) -> float | None:
-    # A report row names it fer_observed once iqdemod.batch has followed issue 13; per_observed until then.
-    return getattr(row, "fer_observed", getattr(row, "per_observed", None))
-

@@ -16,15 +16,13 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import stats
 
 from .errors import LinkError
-from .estimate import CONFIDENCE, EbN0Estimate
+from .estimate import Z90, EbN0Estimate
+from .estimate_result import db_or_minus_inf
 from .sequence import SequenceDecisions, SequencePlan, check_inputs, detect, slot_samples
 
 __all__ = ["estimate_sequence_data_aided", "estimate_sequence_decision_directed"]
-
-_Z = float(stats.norm.isf((1.0 - CONFIDENCE) / 2.0))  # the two-sided interval of estimate.py
 
 
 def _known_fit(x, starts, period, bits, plan, sub_window):
@@ -96,10 +94,9 @@ def _estimate_from_fit(fit, period, n_symbols, method, noise_bandwidth):
     s_dims = max(shifted - q, 0.0)
     # Delta method on log(shifted): Var U = (q + 2·S)·N0'², Var V = ν·N0'² (N0' = 1 here).
     se = math.sqrt((q + 2.0 * s_dims) / max(s_dims + q, 1e-300) ** 2 + 1.0 / nu)
-    lo = scale * (shifted * math.exp(-_Z * se) - q)
-    hi = scale * (shifted * math.exp(_Z * se) - q)
-    to_db = lambda v: 10.0 * math.log10(v) if v > 0 else -math.inf
-    return EbN0Estimate(to_db(rho), (to_db(lo), to_db(max(hi, lo))), n_symbols, method)
+    lo = scale * (shifted * math.exp(-Z90 * se) - q)
+    hi = scale * (shifted * math.exp(Z90 * se) - q)
+    return EbN0Estimate(db_or_minus_inf(rho), (db_or_minus_inf(lo), db_or_minus_inf(max(hi, lo))), n_symbols, method)
 
 
 def estimate_sequence_data_aided(

@@ -13,7 +13,7 @@ from click.testing import CliRunner
 from matplotlib.colors import to_hex
 
 import iqdemod.plots as plots
-from iqdemod.health import LEGACY_KEYS, assess
+from iqdemod.health import assess
 from iqdemod_cli.main import main
 from iqdemod_cli.render import pct, sync_word
 
@@ -68,15 +68,6 @@ def test_health_json_names_the_frame_error_rate_fer(capture):
     assert not [k for k in d if k.startswith("per_")]
     assert {"fer_predicted", "fer_observed", "fer_observed_ci95", "fer_p_value", "theory_ebn0_needed_db"} <= set(d)
     assert 0 <= d["fer_observed"] <= 1 and d["sync_word"] == "0x9B3C57E1"
-
-
-def test_old_per_keys_still_answer_until_batch_moves(capture):
-    # transitional: iqdemod.batch reads d["per_observed"]; the keys are never listed or written
-    meta, _ = capture
-    d = assess(meta, make_link()).as_dict()
-    for old, new in LEGACY_KEYS.items():
-        assert old not in d and d[old] == d[new]
-    assert "per_observed" not in json.dumps(d)
 
 
 def test_health_plot_says_what_it_wrote(capture, tmp_path):

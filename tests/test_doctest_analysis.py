@@ -11,10 +11,24 @@ import pytest
 
 import iqdemod.binomial
 import iqdemod.estimate
+import iqdemod.estimate_bounds
+import iqdemod.estimate_methods
+import iqdemod.estimate_pooling
+import iqdemod.estimate_result
 import iqdemod.health
+import iqdemod.health_accumulator
+import iqdemod.health_prediction
 import iqdemod.predict
+import iqdemod.predict_args
+import iqdemod.predict_bank
+import iqdemod.predict_closed_form
+import iqdemod.predict_curves
+import iqdemod.predict_inverse
 
-MODULES = [iqdemod.predict, iqdemod.binomial, iqdemod.estimate, iqdemod.health]
+MODULES = [iqdemod.predict, iqdemod.predict_args, iqdemod.predict_closed_form, iqdemod.predict_bank,
+           iqdemod.predict_inverse, iqdemod.predict_curves, iqdemod.binomial, iqdemod.estimate, iqdemod.estimate_result,
+           iqdemod.estimate_methods, iqdemod.estimate_pooling, iqdemod.estimate_bounds, iqdemod.health,
+           iqdemod.health_accumulator, iqdemod.health_prediction]
 
 
 @pytest.mark.parametrize("module", MODULES, ids=lambda m: m.__name__)
@@ -24,7 +38,7 @@ def test_examples_run(module):
 
 
 # Classes whose methods do work (beyond holding results) are held to the same rule as functions.
-WORKING_CLASSES = {iqdemod.health: ["HealthAccumulator"], iqdemod.estimate: ["EbN0Estimate"]}
+WORKING_CLASSES = {iqdemod.health_accumulator: ["HealthAccumulator"], iqdemod.estimate_result: ["EbN0Estimate"]}
 
 
 def _public_functions(module):

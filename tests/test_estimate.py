@@ -25,6 +25,8 @@ from hypothesis import strategies as st
 from scipy import integrate, stats
 
 import iqdemod.estimate as estimate
+import iqdemod.estimate_bounds as estimate_bounds
+import iqdemod.estimate_methods as estimate_methods
 from iqdemod.errors import EstimateError, IqdemodError
 from iqdemod.estimate import (
     EbN0Estimate,
@@ -143,8 +145,8 @@ def test_data_aided_long_record_normal_limit():
     expected = 1.645 * math.sqrt((1 + 2 * rho + (1 + rho) ** 2) / 150_000)
     assert (hi - lo) / 2 == pytest.approx(expected, rel=0.05)
     # and it meets the exact interval at the switch-over (sums T, O of 1e5 symbols)
-    exact = estimate._data_aided_from_stats((100_000.0, 100_000.0 * 11.2, 100_000.0))
-    approx = estimate._data_aided_from_stats((100_001.0, 100_001.0 * 11.2, 100_001.0))
+    exact = estimate_methods._data_aided_from_stats((100_000.0, 100_000.0 * 11.2, 100_000.0))
+    approx = estimate_methods._data_aided_from_stats((100_001.0, 100_001.0 * 11.2, 100_001.0))
     assert approx.ci90_db == pytest.approx(exact.ci90_db, abs=2e-3)
 
 
@@ -415,7 +417,7 @@ def test_crb_derivation(s):
     g = np.array([1.0, -s])
     crb = float(g @ np.linalg.solve(j, g)) / (s * s)
     assert crb_normalised_variance_noncoherent_da(s, 1) == pytest.approx(crb, rel=2e-5)
-    np.testing.assert_allclose(estimate._rician_fisher(s), j - np.diag([0.0, 1.0]), rtol=2e-5, atol=1e-9)
+    np.testing.assert_allclose(estimate_bounds._rician_fisher(s), j - np.diag([0.0, 1.0]), rtol=2e-5, atol=1e-9)
 
 
 def test_crb_high_snr_limit():
