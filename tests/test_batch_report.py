@@ -121,10 +121,13 @@ def test_every_column_is_described_here_and_in_the_readme():
 
 
 def test_percent_has_three_significant_figures():
-    assert B.format_percent(0.18751) == "18.8 %"
-    assert B.format_percent(0.0123456) == "1.23 %"
-    assert B.format_percent(0.25) == "25.0 %"
-    assert B.format_percent(1.0) == "100 %"
+    from iqdemod_cli.render import pct
+
+    assert pct(0.18751) == "18.8 %"
+    assert pct(0.0123456) == "1.23 %"
+    assert pct(0.25) == "25.0 %"
+    assert pct(1.0) == "100 %"
+    assert pct(0.005) == "0.500 %" and pct(0.0) == "0 %"
 
 
 @pytest.fixture(scope="module")

@@ -73,7 +73,7 @@ from ..capture import CAPTURE_SUFFIXES, RAW_SUFFIXES
 from .collect import FOLDER_LINK, collect_captures
 from .journal import exclusive as _exclusive  # noqa: F401  (tests/test_hardening.py holds a lock with it)
 from .journal import partial_path
-from .report import COLUMN_HELP, COLUMNS, N_WEAKEST, BatchResult, CaptureRow, format_percent, read_report
+from .report import COLUMN_HELP, COLUMNS, N_WEAKEST, BatchResult, CaptureRow, read_report
 from .run import run_batch
 from .transmitters import TX_TOLERANCE_HZ, label_transmitters
 from .trend import plot_trend, zero_error_bound
@@ -99,5 +99,4 @@ __all__ = [
     "plot_trend",
     "zero_error_bound",
     "partial_path",
-    "format_percent",
 ]

@@ -22,7 +22,7 @@ from typing import Any, Iterable, Iterator, Mapping, Sequence
 from ..errors import IqdemodError, IqdemodWarning
 from ..link import Link
 
-__all__ = ["CaptureRow", "COLUMNS", "COLUMN_HELP", "BatchResult", "read_report", "format_percent"]
+__all__ = ["CaptureRow", "COLUMNS", "COLUMN_HELP", "BatchResult", "read_report"]
 
 #: Captures named in the closing summary, weakest margin first.
 N_WEAKEST = 5
@@ -267,20 +267,6 @@ def labelled_frames(journal: Path, out, labels: Mapping[str, str]) -> None:
         out.write(json.dumps(rec) + "\n")
 
 
-def format_percent(fraction: float) -> str:
-    """A rate as a percentage to 3 significant figures, as every text output shows it.
-
-    Examples
-    --------
-    >>> format_percent(0.18751), format_percent(0.005), format_percent(1.0), format_percent(0.0)
-    ('18.8 %', '0.500 %', '100 %', '0 %')
-    """
-    if fraction == 0:
-        return "0 %"
-    text = format(100 * fraction, "#.3g")
-    return (text[:-1] if text.endswith(".") else text) + " %"
-
-
 @dataclass(frozen=True)
 class BatchResult:
     """The outcome of a batch.
@@ -320,25 +306,3 @@ class BatchResult:
         return cls(rows=tuple(rows), n_ok=len(ok), n_failed=len(rows) - len(ok),
                    n_frames=sum(r.frames or 0 for r in ok), n_frames_crc_ok=sum(r.frames_crc_ok or 0 for r in ok),
                    weakest=tuple(measured[:N_WEAKEST]), **kw)
-
-    def summary(self) -> list[str]:
-        """Closing lines for people: counts, the weakest links, the first failures."""
-        skipped = f" ({self.n_skipped} done before)" if self.n_skipped else ""
-        lines = [
-            f"{len(self.rows)} capture(s){skipped}: {self.n_ok} ok, {self.n_failed} failed; "
-            f"{self.n_frames} frame(s), {self.n_frames_crc_ok} with good CRC; {self.elapsed_s:.1f} s -> {self.report}"
-        ]
-        if self.weakest:
-            lines.append(f"weakest {len(self.weakest)} by margin:")
-            width = max(len(r.capture) for r in self.weakest)
-            for r in self.weakest:
-                tx = f"  [{r.transmitter}]" if r.transmitter else ""
-                ebn0 = "" if r.ebn0_db is None else f"  Eb/N0 {r.ebn0_db:5.1f} dB"
-                fer = "" if r.fer_observed is None else f"  frame error rate {format_percent(r.fer_observed)}"
-                lines.append(f"  {r.capture:<{width}}  margin {r.margin_db:+6.1f} dB{ebn0}{fer}{tx}")
-        failed = [r for r in self.rows if not r.ok]
-        for r in failed[:N_WEAKEST]:
-            lines.append(f"failed: {r.capture}: {r.error}")
-        if len(failed) > N_WEAKEST:
-            lines.append(f"failed: … and {len(failed) - N_WEAKEST} more (see the report)")
-        return lines
