@@ -236,7 +236,7 @@ def test_row3_outputs_that_are_each_others_journals_are_refused(inputs, tmp_path
 
 def test_row4_a_second_batch_on_the_same_frames_file_is_refused(inputs, tmp_path):
     frames = tmp_path / "f.jsonl"
-    with B._exclusive(tmp_path / "first.csv", frames):  # the first batch, still running
+    with B.journal.exclusive(tmp_path / "first.csv", frames):  # the first batch, still running
         (tmp_path / "f.jsonl.partial").write_text('{"capture": "x"}\n')
         res = invoke("batch", inputs / "fleet", "-o", tmp_path / "second.csv", "--frames", frames, "-q")
         assert_refused(res, contains="another batch is writing", codes=(1,))

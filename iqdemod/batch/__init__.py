@@ -71,7 +71,6 @@ from __future__ import annotations
 
 from ..capture import CAPTURE_SUFFIXES, RAW_SUFFIXES
 from .collect import FOLDER_LINK, collect_captures
-from .journal import exclusive as _exclusive  # noqa: F401  (tests/test_hardening.py holds a lock with it)
 from .journal import partial_path
 from .report import COLUMN_HELP, COLUMNS, N_WEAKEST, BatchResult, CaptureRow, read_report
 from .run import run_batch
