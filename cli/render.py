@@ -115,7 +115,8 @@ def _health_head(r) -> list[str]:
         frame = "no sync word (raw bits)"
     else:
         length = "length byte" if r.frame_length == "prefix8" else f"{r.frame_length}-byte payload"
-        frame = f"sync word {sync_word(r.sync_word, r.sync_bits)}, {length}, CRC {r.crc}"
+        crc = "no CRC" if str(r.crc).lower() == "none" else str(r.crc)  # catalogue names already say "CRC-…"
+        frame = f"sync word {sync_word(r.sync_word, r.sync_bits)}, {length}, {crc}"
     start = f"recording started {r.start_time}" if r.start_time else "recording start: not recorded in the capture"
     return [
         f"{r.capture}: {r.duration_s:.2f} s, {r.bursts} burst(s), {counted}",

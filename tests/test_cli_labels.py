@@ -45,7 +45,7 @@ def test_health_text_names_the_link_and_splits_the_margin(capture):
     assert res.exit_code == 0, res.stderr
     text = res.stdout
     r = assess(meta, make_link())
-    assert "sync word 0x9B3C57E1 (32 bits), 24-byte payload, CRC CRC-16/IBM-3740" in text
+    assert "sync word 0x9B3C57E1 (32 bits), 24-byte payload, CRC-16/IBM-3740" in text
     assert "9600 Bd, shift 9600 Hz (h = 1)" in text and "recording started 2026-11-30T22:15:07Z" in text
     # the three numbers behind the margin, each on its own: theory (REFERENCE §1, 13.35 dB for h = 1 and
     # no carrier error), the receiver's gain, the coherent reference (12.60 dB)
