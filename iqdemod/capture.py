@@ -519,6 +519,12 @@ def _open_audio(path: Path) -> Capture:
     return Capture(info)
 
 
+def _datatype_of_name(path: Path) -> str | None:
+    """The SigMF datatype a raw file's suffix names (``night.ci16_le`` → ci16_le), else None."""
+    suffix = path.suffix.lower()[1:]
+    return suffix if suffix in SIGMF_COMPLEX_DATATYPES else None
+
+
 def open_capture(path: str | os.PathLike, *, datatype: str | None = None, sample_rate: float | None = None) -> Capture:
     """Open a capture for block reading.
 
@@ -531,7 +537,8 @@ def open_capture(path: str | os.PathLike, *, datatype: str | None = None, sample
         interleaved IQ (by :func:`capture_format`: a name of :data:`RAW_SUFFIXES`, or any
         other name given with its datatype).
     datatype : str, optional
-        SigMF datatype of a raw file (required for raw files).
+        SigMF datatype of a raw file; when not given, a raw file named by a
+        SigMF datatype (``night.cu8``, ``gauge.ci16_le``) is read as that one.
     sample_rate : float, optional
         Samples per second of a raw file (required for raw files).
 
@@ -565,6 +572,8 @@ def open_capture(path: str | os.PathLike, *, datatype: str | None = None, sample
         return _open_audio(p)
     if fmt == "sigmf-archive":
         return _open_sigmf_archive(p, sample_rate)
+    if datatype is None:
+        datatype = _datatype_of_name(p)
     if datatype is None:
         raise CaptureError(f"{p}: raw capture without metadata: give its datatype (--datatype, e.g. cu8)")
     if sample_rate is None:

@@ -186,8 +186,9 @@ def test_plain_errors(tmp_path):
     with pytest.raises(CaptureError, match="empty capture"):
         open_capture(tmp_path / "empty.cu8", datatype="cu8", sample_rate=1)
     (tmp_path / "x.cu8").write_bytes(b"\0\0")
+    (tmp_path / "x.raw").write_bytes(b"\0\0")  # a neutral raw name says no datatype (x.cu8 names its own)
     with pytest.raises(CaptureError, match="give its datatype"):
-        open_capture(tmp_path / "x.cu8")
+        open_capture(tmp_path / "x.raw")
     with pytest.raises(CaptureError, match="datatype 'cq9': unknown"):
         open_capture(tmp_path / "x.cu8", datatype="cq9", sample_rate=1)
 
@@ -273,3 +274,15 @@ def test_nan_is_counted_at_any_float_scale(tmp_path):
             got = read_all(cap)
         assert cap.stats.nonfinite == 1 and cap.stats.clipped == 0
     assert got[7] == 0
+
+
+def test_a_raw_file_named_by_its_sigmf_datatype_needs_no_datatype(tmp_path):
+    # SigMF v1.2 datatype names (cu8: unsigned 8-bit I/Q; ci16_le: signed 16-bit little-endian)
+    raw = np.array([255, 0, 128, 128], np.uint8)
+    (tmp_path / "night.cu8").write_bytes(raw.tobytes())
+    with open_capture(tmp_path / "night.cu8", sample_rate=1000) as cap:
+        got = read_all(cap)
+    assert cap.info.datatype == "cu8" and got[0] == pytest.approx(complex(127.5 / 127.5, -127.5 / 127.5))
+    (tmp_path / "night.dat").write_bytes(raw.tobytes())
+    with pytest.raises(CaptureError, match="give its datatype"):
+        open_capture(tmp_path / "night.dat", sample_rate=1000)
