@@ -221,21 +221,30 @@ def _curves_columns(t: dict) -> list[tuple[tuple[str, str], str, Callable[[float
     extended = "ber_multi_symbol" in t
     gauss = t.get("pulse") == "gaussian"
     n = t.get("detector_symbols")
-    this = ("BER rect pulse" if gauss else "BER this link", f"h = {t['h']:g}")
-    cols = [(("Eb/N0", "dB"), "ebn0_db", "{:.2f}".format), (this, "ber_link", _ber)]
+    name = _curves_link_name(t)
+    cols = [(("Eb/N0", "dB"), "ebn0_db", "{:.2f}".format), ((f"BER {name}", f"h = {t['h']:g}"), "ber_link", _ber)]
     if extended:
-        pulse = f"Gaussian BT {t['bt']:g}" if gauss else "rect pulse"
-        cols += [(("BER one-symbol", pulse), "ber_one_symbol_pulse", _ber),
-                 ((f"BER {n}-symbol", "detector"), "ber_multi_symbol", _ber)]
+        if gauss:  # with a rect pulse the one-symbol bank's curve is the link column itself
+            cols += [(("BER one-symbol", f"Gaussian BT {t['bt']:g}"), "ber_one_symbol_pulse", _ber)]
+        cols += [((f"BER {n}-symbol", "detector"), "ber_multi_symbol", _ber)]
     frame = f"{t['frame_bits']}-bit frame"
     cols += [(("BER non-coherent", "orthogonal"), "ber_noncoherent", _ber),
              (("BER coherent", "orthogonal"), "ber_coherent_orthogonal", _ber),
              (("BER antipodal", "(BPSK)"), "ber_antipodal", _ber),
-             ((f"FER {'rect pulse' if gauss else 'this link'}", frame), "fer_link", pct)]
+             ((f"FER {name}", frame), "fer_link", pct)]
     if extended:
-        cols += [(("FER one-symbol", frame), "fer_one_symbol_pulse", pct),
-                 ((f"FER {n}-symbol", frame), "fer_multi_symbol", pct)]
+        if gauss:
+            cols += [(("FER one-symbol", frame), "fer_one_symbol_pulse", pct)]
+        cols += [((f"FER {n}-symbol", frame), "fer_multi_symbol", pct)]
     return cols
+
+
+def _curves_link_name(t: dict) -> str:
+    """What the 'link' curve is: the link's own receiver, unless the link defaults to the multi-symbol
+    detector, where it is the one-symbol bank (on a rect pulse at this h, for a Gaussian link)."""
+    if t.get("pulse") == "gaussian":
+        return "rect pulse"
+    return "one-symbol bank" if "ber_multi_symbol" in t else "this link"
 
 
 def _ber(x: float) -> str:
@@ -245,11 +254,12 @@ def _ber(x: float) -> str:
 def _curves_needed(t: dict) -> str:
     need = t["needed_db"]
     gauss = t.get("pulse") == "gaussian"
-    text = (f"Eb/N0 needed for BER {t['target_ber']:g}: "
-            f"{'a rect pulse at this h' if gauss else 'this link'} {_need(need['link'])}")
+    name = "a rect pulse at this h" if gauss else _curves_link_name(t)
+    text = f"Eb/N0 needed for BER {t['target_ber']:g}: {name} {_need(need['link'])}"
     if "ber_multi_symbol" in t:
-        text += (f", one-symbol bank with this pulse {_need(need['one_symbol_pulse'])}, "
-                 f"{t['detector_symbols']}-symbol detector {_need(need['multi_symbol'])}")
+        if gauss:
+            text += f", one-symbol bank with this pulse {_need(need['one_symbol_pulse'])}"
+        text += f", {t['detector_symbols']}-symbol detector {_need(need['multi_symbol'])}"
     text += (f", non-coherent orthogonal {need['noncoherent']:.2f} dB, coherent orthogonal "
              f"{need['coherent_orthogonal']:.2f} dB, antipodal {need['antipodal']:.2f} dB")
     return text
