@@ -103,16 +103,16 @@ def symbol_timing(sums: np.ndarray, period_samples: float, *, max_ppm: float = 2
 
     Examples
     --------
-    A burst of 200 random symbols, 16 samples each (1 kbaud at 16 kHz, tones
-    ±500 Hz), its first 11 samples cut off. The grid comes back with a period
-    of 16 samples and a boundary at 4.5: the tone changes between samples 4
-    and 5 (the generator's phase step into sample n uses sample n's tone):
+    A continuous-phase burst of 200 random symbols, 16 samples each (1 kbaud
+    at 16 kHz, tones ±500 Hz), its first 11 samples cut off. The grid comes
+    back with a period of 16 samples and a boundary at 4.5: the tone changes
+    between samples 4 and 5 (the phase step into sample n uses sample n's tone):
 
     >>> import numpy as np
     >>> from iqdemod.correlate import tone_sums
-    >>> from iqdemod.synth import fsk_burst
     >>> bits = np.random.default_rng(1).integers(0, 2, 200)
-    >>> x = fsk_burst(bits, sample_rate_hz=16000, baud=1000, shift_hz=1000, centre_hz=0)[11:]
+    >>> freq_hz = np.repeat(np.where(bits == 1, 500.0, -500.0), 16)
+    >>> x = np.exp(2j * np.pi * np.cumsum(freq_hz) / 16000)[11:]
     >>> t = symbol_timing(tone_sums(x, 16000, (-500.0, 500.0)), 16.0)
     >>> round(t.first_s % 16, 1), round(t.period_samples, 3), t.breaks
     (4.5, 16.0, ())
