@@ -551,6 +551,46 @@ def open_capture(path: str | os.PathLike, *, datatype: str | None = None, sample
     CaptureError
         For a missing file, a folder, an empty file, an unknown datatype, broken
         SigMF metadata or a missing half of a pair, or audio without 2 channels.
+
+    Examples
+    --------
+    A SigMF recording (SigMF v1.2 spec, REFERENCE §6): ``cf32_le`` samples are
+    numpy ``<c8``, interleaved I first; the metadata's ``global``, ``captures``
+    and ``annotations`` objects are all required. Either file names the pair,
+    and blocks are read as complex64, the last one short:
+
+    >>> import json, os, tempfile
+    >>> import numpy as np
+    >>> tmp = tempfile.TemporaryDirectory()
+    >>> base = os.path.join(tmp.name, "buoy7")
+    >>> np.array([1 + 2j, 3 - 4j, 0.5j], "<c8").tofile(base + ".sigmf-data")
+    >>> meta = {"global": {"core:datatype": "cf32_le", "core:version": "1.2.0", "core:sample_rate": 48000},
+    ...         "captures": [{"core:sample_start": 0, "core:frequency": 868837500.0}], "annotations": []}
+    >>> with open(base + ".sigmf-meta", "w", encoding="utf-8") as fh:
+    ...     json.dump(meta, fh)
+    >>> with open_capture(base + ".sigmf-data") as capture:
+    ...     info = capture.info
+    ...     blocks = [b.tolist() for b in capture.blocks(2)]
+    >>> info.kind, info.datatype, info.sample_rate_hz, info.n_samples, info.centre_hz
+    ('sigmf', 'cf32_le', 48000.0, 3, 868837500.0)
+    >>> blocks
+    [[(1+2j), (3-4j)], [0.5j]]
+
+    A raw file needs its datatype and rate; unsigned 8-bit samples are
+    centred on 127.5 (common practice), so the bytes 191, 64 are about 0.5 − 0.5j:
+
+    >>> raw = os.path.join(tmp.name, "night.cu8")
+    >>> with open(raw, "wb") as fh:
+    ...     _ = fh.write(bytes([191, 64, 128, 128]))
+    >>> with open_capture(raw, datatype="cu8", sample_rate=250000) as capture:
+    ...     samples = np.concatenate(list(capture.blocks()))
+    >>> capture.info.kind, np.round(samples, 2).tolist()
+    ('raw', [(0.5-0.5j), 0j])
+    >>> open_capture(raw)
+    Traceback (most recent call last):
+    ...
+    iqdemod.errors.CaptureError: ...night.cu8: raw capture without metadata: give its datatype (--datatype, e.g. cu8)
+    >>> tmp.cleanup()
     """
     p = Path(path)
     pair = sigmf_pair(p)

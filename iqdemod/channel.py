@@ -306,6 +306,17 @@ def channel_size(sample_rate_hz: float, signal: SignalSpec) -> tuple[int, int, i
 
     What :func:`plan_channel` will build, without building it, so that a plan
     too large to hold can be refused first (:meth:`iqdemod.link.Link.check_rate`).
+
+    Examples
+    --------
+    A 1200-baud buoy signal with 1200 Hz shift in a 48 kHz capture: decimate
+    by 5 (9.6 kHz, 8 samples per symbol), a 347-tap filter, FFT blocks of
+    20 480 samples, pass band ±2400 Hz (shift/2 + baud + pull-in shift/2),
+    stop band from ±3000 Hz:
+
+    >>> from iqdemod.link import SignalSpec
+    >>> channel_size(48000, SignalSpec(baud=1200, shift_hz=1200))
+    (5, 347, 20480, 2400.0, 3000.0)
     """
     fs = float(sample_rate_hz)
     passband = min(signal.shift_hz / 2 + signal.baud + signal.pull_in_hz, 0.45 * fs)
@@ -329,6 +340,13 @@ def plan_channel(sample_rate_hz: float, signal: SignalSpec, offset_hz: float) ->
     searched for. The stop band starts half a baud further out. The output
     rate is at least eight samples per symbol and holds the whole stop-band
     edge.
+
+    Examples
+    --------
+    >>> from iqdemod.link import SignalSpec
+    >>> plan = plan_channel(48000, SignalSpec(baud=1200, shift_hz=1200), 6000.0)
+    >>> plan.decimation, plan.output_rate_hz, len(plan.taps), round(float(plan.taps.sum()), 12)
+    (5, 9600.0, 347, 1.0)
     """
     fs = float(sample_rate_hz)
     decimation, n_taps, fft_size, passband, stopband = channel_size(fs, signal)
@@ -353,6 +371,17 @@ def plan_channels(sample_rate_hz: float, signals: "list[tuple[SignalSpec, float]
     ----------
     signals : list of (SignalSpec, float)
         Each signal with its offset from the capture centre, Hz.
+
+    Examples
+    --------
+    Two buoys in one 48 kHz capture: each keeps its decimation, both share
+    the block size and the lead:
+
+    >>> from iqdemod.link import SignalSpec
+    >>> plans = plan_channels(48000, [(SignalSpec(baud=1200, shift_hz=1200), -6000.0),
+    ...                               (SignalSpec(baud=2400, shift_hz=2400), 9000.0)])
+    >>> [(p.decimation, p.output_rate_hz, p.fft_size, p.lead_samples) for p in plans]
+    [(5, 9600.0, 20480, 350), (2, 24000.0, 20480, 350)]
     """
     plans = [plan_channel(sample_rate_hz, sig, off) for sig, off in signals]
     if len(plans) <= 1:
@@ -496,13 +525,50 @@ def channelize(x: np.ndarray, plan: ChannelPlan, state: ChannelState) -> tuple[n
         Outputs lag the input by up to one block; :func:`flush_channel` hands
         out the rest.
     state : ChannelState
+
+    Examples
+    --------
+    A tone 600 Hz above a signal centred 6 kHz above the capture centre
+    comes out at +600 Hz and unit amplitude at 9.6 kHz. Fed in two reads
+    with the state carried, then flushed, the output is one output per D
+    input samples, the same as one call on the whole input:
+
+    >>> import numpy as np
+    >>> from iqdemod.link import SignalSpec
+    >>> plan = plan_channel(48000, SignalSpec(baud=1200, shift_hz=1200), 6000.0)
+    >>> x = np.exp(2j * np.pi * 6600 * np.arange(48000) / 48000).astype(np.complex64)
+    >>> y1, state = channelize(x[:30000], plan, plan.initial_state())
+    >>> y2, state = channelize(x[30000:], plan, state)
+    >>> y3, state = flush_channel(plan, state)
+    >>> y = np.concatenate([y1, y2, y3])
+    >>> len(y), len(x) // plan.decimation
+    (9600, 9600)
+    >>> step = np.angle(np.sum(y[201:400] * np.conj(y[200:399])))
+    >>> round(float(step / (2 * np.pi) * plan.output_rate_hz), 2), round(float(np.abs(y[200:400]).mean()), 4)
+    (600.0, 1.0)
+    >>> whole, end = channelize(x, plan, plan.initial_state())
+    >>> bool(np.array_equal(np.concatenate([whole, flush_channel(plan, end)[0]]), y))
+    True
     """
     ys, state = channelize_many(x, (plan,), state)
     return ys[0], state
 
 
 def flush_channel(plan: ChannelPlan, state: ChannelState) -> tuple[np.ndarray, ChannelState]:
-    """End of input: the outputs for the samples still held (zeros after the last sample)."""
+    """End of input: the outputs for the samples still held (zeros after the last sample).
+
+    Examples
+    --------
+    The front end holds back up to a block; at the end of the input the rest comes out:
+
+    >>> import numpy as np
+    >>> from iqdemod.link import SignalSpec
+    >>> plan = plan_channel(48000, SignalSpec(baud=1200, shift_hz=1200), 6000.0)
+    >>> y, state = channelize(np.ones(10000, np.complex64), plan, plan.initial_state())
+    >>> rest, state = flush_channel(plan, state)
+    >>> len(y), len(rest), state.n_in
+    (0, 2000, 10000)
+    """
     ys, state = flush_channels((plan,), state)
     return ys[0], state
 
@@ -514,12 +580,44 @@ def channelize_many(x: np.ndarray, plans: tuple[ChannelPlan, ...], state: Channe
     `plans` come from :func:`plan_channels` (one block grid); the state from
     ``plans[0].initial_state()``. Returns each channel's samples, in the plans' order.
     The DC line and the IQ correction are the capture's, so every channel shares them.
+
+    Examples
+    --------
+    Two buoys (tones 300 Hz below the first centre, 1200 Hz above the second)
+    cut from one FFT pass:
+
+    >>> import numpy as np
+    >>> from iqdemod.link import SignalSpec
+    >>> plans = plan_channels(48000, [(SignalSpec(baud=1200, shift_hz=1200), -6000.0),
+    ...                               (SignalSpec(baud=2400, shift_hz=2400), 9000.0)])
+    >>> n = np.arange(48000)
+    >>> x = (np.exp(-2j * np.pi * 6300 * n / 48000) + 0.5 * np.exp(2j * np.pi * 10200 * n / 48000)).astype(np.complex64)
+    >>> ys, state = channelize_many(x, plans, plans[0].initial_state())
+    >>> ends, state = flush_channels(plans, state)
+    >>> for p, a, b in zip(plans, ys, ends):
+    ...     y = np.concatenate([a, b])[200:400]
+    ...     f = np.angle(np.sum(y[1:] * np.conj(y[:-1]))) / (2 * np.pi) * p.output_rate_hz
+    ...     print(len(a) + len(b), round(float(f), 1), round(float(np.abs(y).mean()), 3))
+    9600 -300.0 1.0
+    24000 1200.0 0.5
     """
     return _advance(np.asarray(x, dtype=np.complex64), tuple(plans), state, final=False)
 
 
 def flush_channels(plans: tuple[ChannelPlan, ...], state: ChannelState) -> tuple[list[np.ndarray], ChannelState]:
-    """End of input for :func:`channelize_many`."""
+    """End of input for :func:`channelize_many`.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from iqdemod.link import SignalSpec
+    >>> plans = plan_channels(48000, [(SignalSpec(baud=1200, shift_hz=1200), -6000.0),
+    ...                               (SignalSpec(baud=2400, shift_hz=2400), 9000.0)])
+    >>> ys, state = channelize_many(np.ones(10000, np.complex64), plans, plans[0].initial_state())
+    >>> ends, state = flush_channels(plans, state)
+    >>> [len(a) + len(b) for a, b in zip(ys, ends)]  # 10 000 input samples / D
+    [2000, 5000]
+    """
     return _advance(np.zeros(0, np.complex64), tuple(plans), state, final=True)
 
 

@@ -132,6 +132,15 @@ def bytes_to_bits(data: bytes, order: str = "msb") -> np.ndarray:
     data : bytes
     order : {"msb", "lsb"}
         Most or least significant bit of each byte first.
+
+    Examples
+    --------
+    The byte 0xA5 (bits 1010 0101) sent most, then least significant bit first:
+
+    >>> bytes_to_bits(bytes([0xA5])).tolist()
+    [1, 0, 1, 0, 0, 1, 0, 1]
+    >>> bytes_to_bits(bytes([0x01]), "lsb").tolist()
+    [1, 0, 0, 0, 0, 0, 0, 0]
     """
     if order not in BIT_ORDERS:
         raise ValueError(f"bit order {order!r}: expected one of {', '.join(BIT_ORDERS)}")
@@ -152,7 +161,13 @@ def bits_to_bytes(bits: np.ndarray, order: str = "msb") -> bytes:
 
 
 def symbols_per_bit(coding: str) -> int:
-    """Symbols on the air per data bit: 1 for NRZ, 2 (chips) for Manchester."""
+    """Symbols on the air per data bit: 1 for NRZ, 2 (chips) for Manchester.
+
+    Examples
+    --------
+    >>> symbols_per_bit("nrz"), symbols_per_bit("manchester"), symbols_per_bit("manchester-inverted")
+    (1, 2, 2)
+    """
     if coding not in CODINGS:
         raise ValueError(f"coding {coding!r}: expected one of {', '.join(CODINGS)}")
     return 1 if coding == "nrz" else 2
@@ -194,6 +209,24 @@ def manchester_decode(chips: np.ndarray, coding: str = "manchester") -> tuple[np
     bits : numpy.ndarray of uint8
     invalid : numpy.ndarray of bool
         True where the pair was 0,0 or 1,1 (a coding error).
+
+    Examples
+    --------
+    REFERENCE §9 (IEEE 802.3 clause 7): the byte 0xA5 is sent as the chips
+    0x66 0x99, and the Thomas convention's chips 0x99 0x66 decode to it too:
+
+    >>> bits, invalid = manchester_decode(bytes_to_bits(bytes([0x66, 0x99])))
+    >>> bits_to_bytes(bits).hex(), int(invalid.sum())
+    ('a5', 0)
+    >>> bits, _ = manchester_decode(bytes_to_bits(bytes([0x99, 0x66])), "manchester-inverted")
+    >>> bits_to_bytes(bits).hex()
+    'a5'
+
+    A pair 1,1 is no symbol: decided by its first chip and flagged.
+
+    >>> bits, invalid = manchester_decode([0, 1, 1, 1, 1, 0])
+    >>> bits.tolist(), invalid.tolist()
+    ([1, 0, 0], [False, True, False])
     """
     c = np.asarray(chips, dtype=np.uint8) & 1
     n = len(c) // 2

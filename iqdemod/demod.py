@@ -237,6 +237,29 @@ def demodulate_burst(raw: RawBurst, plan: ReceiverPlan, *, capture: str = "") ->
     -------
     list of Burst
         One per transmission, in time order (the same index, pieces numbered on).
+
+    Examples
+    --------
+    A detector buffer at the tuner's rate holding one buoy frame in noise
+    (9.6 kHz, 8 samples per symbol, tones ±600 Hz): one transmission, its
+    frame read with a good CRC. ``sample`` counts input samples (48 kHz),
+    the tuner's decimation by 5 and delay included:
+
+    >>> import numpy as np
+    >>> from iqdemod.bursts import RawBurst
+    >>> from iqdemod.framing import frame_bits
+    >>> from iqdemod.plan import plan_receiver
+    >>> from iqdemod.profile import load_link
+    >>> link = load_link(None, baud=1200, shift=1200, offset=6000, sync="0x2DD4", sync_bits=16, length=12)
+    >>> plan = plan_receiver(link, 48000)
+    >>> bits = np.concatenate([np.tile([1, 0], 16), frame_bits(b"buoy-7 12.5C", link.frame), np.zeros(8, np.uint8)])
+    >>> x = np.exp(2j * np.pi * np.cumsum(np.repeat(np.where(bits == 1, 600.0, -600.0), 8)) / 9600)
+    >>> rng = np.random.default_rng(4)
+    >>> y = np.concatenate([np.zeros(400), x, np.zeros(400)])
+    >>> y = (y + 0.1 * (rng.standard_normal(len(y)) + 1j * rng.standard_normal(len(y)))).astype(np.complex64)
+    >>> bursts = demodulate_burst(RawBurst(index=0, start=0, samples=y, core=(400, 400 + len(x))), plan)
+    >>> [(f.payload, f.crc_ok, f.sync_errors, f.sample) for b in bursts for f in b.frames]
+    [(b'buoy-7 12.5C', True, 0, 3102)]
     """
     sig = plan.link.signal
     rate = plan.rate_hz
@@ -436,6 +459,24 @@ def drop_repeats(burst: Burst, last_sample: float, half_symbol: float) -> tuple[
     """`burst` without the frames that overlapping buffers already handed out (same sync position).
 
     Returns the burst and the latest frame sample seen so far.
+
+    Examples
+    --------
+    A burst whose frame (at input sample 3102) was already handed out by an
+    overlapping buffer keeps no frames:
+
+    >>> import numpy as np
+    >>> from iqdemod.demod import Frame
+    >>> frame = Frame(capture="", t_s=0.0646, sample=3102, burst=0, length=12, payload=b"buoy-7 12.5C",
+    ...               crc_ok=True, sync_errors=0, freq_error_hz=0.0, ebn0_db=None)
+    >>> burst = Burst(index=0, sample=1822, n_symbols=169, freq_error_hz=0.0, residual_hz=0.0, clock_error_ppm=0.0,
+    ...               z0sq=np.zeros(0), z1sq=np.zeros(0), bits=np.zeros(0, np.uint8), frames=(frame,))
+    >>> kept, last = drop_repeats(burst, -1.0, 2.5)
+    >>> len(kept.frames), last
+    (1, 3102)
+    >>> again, last = drop_repeats(burst, last, 2.5)
+    >>> len(again.frames), last
+    (0, 3102)
     """
     kept = tuple(f for f in burst.frames if f.sample > last_sample + half_symbol)
     if len(kept) != len(burst.frames):

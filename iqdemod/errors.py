@@ -47,6 +47,10 @@ class IqdemodWarning(UserWarning):
 def quote(value: object, limit: int = QUOTE_CHARS) -> str:
     """``repr`` of a user's value, cut to `limit` characters and marked so.
 
+    Examples
+    --------
+    Error messages quote the value the user gave, e.g. a buoy's name:
+
     >>> quote("buoy-7")
     "'buoy-7'"
     >>> quote("x" * 1000, limit=10)

@@ -92,6 +92,21 @@ def classify_output(path: str | os.PathLike) -> OutputTarget:
     ------
     OutputError
         For an empty name, a folder, a block device or socket, or a missing folder.
+
+    Examples
+    --------
+    >>> import os, tempfile
+    >>> tmp = tempfile.TemporaryDirectory()
+    >>> new = classify_output(os.path.join(tmp.name, "frames.csv"))
+    >>> new.kind, new.exists, new.path.name
+    ('file', False, 'frames.csv')
+    >>> classify_output("-").kind, classify_output(os.devnull).kind
+    ('stdout', 'stream')
+    >>> classify_output(tmp.name)
+    Traceback (most recent call last):
+    ...
+    iqdemod.errors.OutputError: output '...': is a folder, expected a file name
+    >>> tmp.cleanup()
     """
     given = os.fspath(path)
     if given == "":
@@ -155,6 +170,23 @@ def check_distinct(outputs: Iterable[tuple[str, str | os.PathLike | None]],
     yet, by their real path. Character devices may appear twice among the
     outputs (``/dev/null`` for two outputs is harmless); any output that is an
     input is refused.
+
+    Examples
+    --------
+    Outputs that are distinct files pass; an output that is an input, by
+    another spelling of its name, is refused:
+
+    >>> import os, tempfile
+    >>> tmp = tempfile.TemporaryDirectory()
+    >>> capture = os.path.join(tmp.name, "night.cu8")
+    >>> _ = open(capture, "wb").close()
+    >>> check_distinct([("--frames", os.path.join(tmp.name, "frames.csv")), ("--report", "-")],
+    ...                inputs=[("capture", capture)])
+    >>> check_distinct([("--frames", os.path.join(tmp.name, ".", "night.cu8"))], inputs=[("capture", capture)])
+    Traceback (most recent call last):
+    ...
+    iqdemod.errors.OutputError: --frames '...night.cu8' is the capture '...night.cu8': refusing to overwrite an input
+    >>> tmp.cleanup()
     """
     seen_in: dict = {}
     for role, p in inputs:
@@ -222,6 +254,25 @@ def atomic_writer(path: str | os.PathLike, mode: str = "w", *, encoding: str | N
     ------
     OutputError
         See :func:`classify_output`.
+
+    Examples
+    --------
+    The file appears whole on success; on an error the old contents stay:
+
+    >>> import os, tempfile
+    >>> tmp = tempfile.TemporaryDirectory()
+    >>> path = os.path.join(tmp.name, "buoys.csv")
+    >>> with atomic_writer(path) as fh:
+    ...     _ = fh.write("buoy,t_s" + os.linesep)
+    >>> try:
+    ...     with atomic_writer(path) as fh:
+    ...         _ = fh.write("half a line")
+    ...         raise RuntimeError("interrupted")
+    ... except RuntimeError:
+    ...     pass
+    >>> open(path, encoding="utf-8").read().strip(), sorted(os.listdir(tmp.name))
+    ('buoy,t_s', ['buoys.csv'])
+    >>> tmp.cleanup()
     """
     target = classify_output(path)
     if target.kind != "file":

@@ -175,6 +175,13 @@ def capture_files(path: str | os.PathLike) -> list[Path]:
     """The files a capture is read from: both files of a SigMF pair, else the file itself.
 
     Used to keep outputs off the inputs; names that do not exist are included too.
+
+    Examples
+    --------
+    >>> [p.name for p in capture_files("captures/night.sigmf-data")]
+    ['night.sigmf-meta', 'night.sigmf-data']
+    >>> [p.name for p in capture_files("captures/night.cu8")]
+    ['night.cu8']
     """
     p = Path(path)
     pair = sigmf_pair(p)
@@ -182,7 +189,19 @@ def capture_files(path: str | os.PathLike) -> list[Path]:
 
 
 def sigmf_pair(path: Path) -> tuple[Path, Path] | None:
-    """(meta, data) paths when `path` names either file of a SigMF pair, else None."""
+    """(meta, data) paths when `path` names either file of a SigMF pair, else None.
+
+    Examples
+    --------
+    A SigMF recording is ``NAME.sigmf-meta`` with ``NAME.sigmf-data`` (SigMF
+    spec, REFERENCE §6); either name gives both:
+
+    >>> from pathlib import Path
+    >>> [p.name for p in sigmf_pair(Path("buoy7.sigmf-meta"))]
+    ['buoy7.sigmf-meta', 'buoy7.sigmf-data']
+    >>> sigmf_pair(Path("buoy7.sigmf")) is None  # an archive, not a pair
+    True
+    """
     name = path.name
     for suffix in (SIGMF_META, SIGMF_DATA):
         if name.endswith(suffix):
@@ -202,6 +221,18 @@ def read_sigmf_meta(meta_path: Path) -> dict:
     CaptureError
         For a file that is not a regular file or is too large, unreadable
         JSON, missing required objects or keys, or bad values.
+
+    Examples
+    --------
+    >>> import json, os, tempfile
+    >>> from pathlib import Path
+    >>> meta = {"global": {"core:datatype": "ci16_le", "core:version": "1.2.0", "core:sample_rate": 250000},
+    ...         "captures": [{"core:sample_start": 0, "core:frequency": 868837500}], "annotations": []}
+    >>> with tempfile.TemporaryDirectory() as tmp:
+    ...     path = Path(tmp) / "buoy7.sigmf-meta"
+    ...     _ = path.write_text(json.dumps(meta), encoding="utf-8")
+    ...     read_sigmf_meta(path)["global"]["core:sample_rate"]
+    250000
     """
     where = str(meta_path)
     text = read_small_text(meta_path, MAX_META_BYTES, CaptureError, where, "SigMF metadata file", regular_only=True)
@@ -214,7 +245,22 @@ def _no_constant(name: str):
 
 
 def parse_sigmf_meta(text: str, where: str) -> dict:
-    """Check SigMF metadata text (see :func:`read_sigmf_meta`); `where` names it in errors."""
+    """Check SigMF metadata text (see :func:`read_sigmf_meta`); `where` names it in errors.
+
+    Examples
+    --------
+    The SigMF spec (REFERENCE §6) requires the top-level objects ``global``,
+    ``captures`` and ``annotations``, and ``core:datatype`` in ``global``:
+
+    >>> text = ('{"global": {"core:datatype": "cf32_le", "core:version": "1.2.0"},'
+    ...         ' "captures": [{"core:sample_start": 0}], "annotations": []}')
+    >>> parse_sigmf_meta(text, "buoy7.sigmf-meta")["global"]["core:datatype"]
+    'cf32_le'
+    >>> parse_sigmf_meta('{"global": {"core:datatype": "cf32_le"}, "captures": []}', "buoy7.sigmf-meta")
+    Traceback (most recent call last):
+    ...
+    iqdemod.errors.CaptureError: buoy7.sigmf-meta: broken SigMF metadata: required object 'annotations' missing
+    """
     if len(text) > MAX_META_BYTES:
         raise CaptureError(f"{where}: SigMF metadata larger than {MAX_META_BYTES // (1 << 20)} MB: refused")
     try:

@@ -79,12 +79,28 @@ class FrameHit:
 
 
 def int_to_bits(value: int, n: int) -> np.ndarray:
-    """`value` as `n` bits, MSB first, uint8."""
+    """`value` as `n` bits, MSB first, uint8.
+
+    Examples
+    --------
+    >>> int_to_bits(0xB, 4).tolist()
+    [1, 0, 1, 1]
+    >>> bits_to_bytes(int_to_bits(0x2DD4, 16)).hex()
+    '2dd4'
+    """
     return np.array([(value >> (n - 1 - i)) & 1 for i in range(n)], dtype=np.uint8)
 
 
 def bits_to_bytes(bits: np.ndarray, order: str = "msb") -> bytes:
-    """Pack bits (MSB first, or `order`) into bytes; a short last byte is padded with zeros."""
+    """Pack bits (MSB first, or `order`) into bytes; a short last byte is padded with zeros.
+
+    Examples
+    --------
+    >>> bits_to_bytes([1, 0, 1, 0, 0, 1, 0, 1]).hex()
+    'a5'
+    >>> bits_to_bytes([1, 1, 1]).hex()  # padded with zeros to a whole byte
+    'e0'
+    """
     return _pack(bits, order)
 
 
@@ -148,6 +164,17 @@ def frame_bits(payload: bytes, spec: FrameSpec) -> np.ndarray:
     ------
     ValueError
         When the payload does not fit the spec's length.
+
+    Examples
+    --------
+    A buoy's 9-byte frame with a 16-bit sync word and a CRC-16/IBM-3740 sent
+    low byte first: 16 + 8·(9 + 2) bits. The last two bytes are the catalogue
+    check value 0x29B1 of "123456789" sent little-endian (REFERENCE §9):
+
+    >>> spec = FrameSpec(sync_word=0x2DD4, sync_bits=16, length=9, crc="CRC-16/IBM-3740", crc_order="little")
+    >>> bits = frame_bits(b"123456789", spec)
+    >>> len(bits), bits_to_bytes(bits[:16]).hex(), bits_to_bytes(bits[-16:]).hex()
+    (104, '2dd4', 'b129')
     """
     if spec.sync_word is None:
         raise ValueError("frame_bits needs a sync word (raw mode has no frames)")
@@ -156,7 +183,20 @@ def frame_bits(payload: bytes, spec: FrameSpec) -> np.ndarray:
 
 
 def frame_symbols(payload: bytes, spec: FrameSpec) -> np.ndarray:
-    """The symbols of one frame on the air from the sync word on (Manchester chips, or the bits)."""
+    """The symbols of one frame on the air from the sync word on (Manchester chips, or the bits).
+
+    Examples
+    --------
+    With Manchester coding every bit from the sync word on is two chips;
+    IEEE 802.3 (0 → 1,0; 1 → 0,1) sends 0x2D (0010 1101) as the chips 0xA6 0x59:
+
+    >>> spec = FrameSpec(sync_word=0x2DD4, sync_bits=16, length=9, coding="manchester")
+    >>> chips = frame_symbols(b"123456789", spec)
+    >>> len(chips), bits_to_bytes(chips[:16]).hex()
+    (208, 'a659')
+    >>> len(frame_symbols(b"123456789", FrameSpec(sync_word=0x2DD4, sync_bits=16, length=9)))
+    104
+    """
     bits = frame_bits(payload, spec)
     return bits if spec.coding == "nrz" else manchester_encode(bits, spec.coding)
 
@@ -267,6 +307,18 @@ def find_frames(bits: np.ndarray, spec: FrameSpec, *, stats: tuple[np.ndarray, n
     -------
     list of FrameHit
         Positions and lengths in symbols on the air.
+
+    Examples
+    --------
+    A frame behind an alternating preamble, with one bit of its sync word
+    flipped, is found and its CRC checks:
+
+    >>> import numpy as np
+    >>> spec = FrameSpec(sync_word=0x2DD4, sync_bits=16, sync_tolerance=2, length=9)
+    >>> bits = np.concatenate([np.tile([1, 0], 16), frame_bits(b"buoy-0042", spec), np.zeros(8, np.uint8)])
+    >>> bits[32 + 3] ^= 1
+    >>> [(h.bit_index, h.sync_errors, h.payload, h.crc_ok, h.n_bits) for h in find_frames(bits, spec)]
+    [(32, 1, b'buoy-0042', True, 104)]
     """
     if spec.sync_word is None:
         raise ValueError("find_frames needs a sync word (raw mode has no frames)")

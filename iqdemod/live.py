@@ -118,6 +118,30 @@ def open_live(path: str | os.PathLike, *, datatype: str | None = None, sample_ra
     ------
     CaptureError
         As :func:`iqdemod.open_capture`; for standard input, a missing datatype or rate.
+
+    Examples
+    --------
+    A raw file read as it stands (``follow=False``); its length is not known
+    in advance, so ``info.n_samples`` is 0, and blocks come as samples arrive:
+
+    >>> import os, tempfile
+    >>> import numpy as np
+    >>> tmp = tempfile.TemporaryDirectory()
+    >>> path = os.path.join(tmp.name, "harbour.cf32")
+    >>> np.exp(2j * np.pi * np.arange(1000) / 8).astype("<c8").tofile(path)
+    >>> with open_live(path, datatype="cf32_le", sample_rate=48000) as live:
+    ...     sizes = [len(b) for b in live.blocks(400)]
+    >>> live.info.kind, live.info.n_samples, sizes
+    ('live', 0, [400, 400, 200])
+
+    Standard input (``"-"``) holds raw samples, so their datatype and rate
+    must be given:
+
+    >>> open_live("-")
+    Traceback (most recent call last):
+    ...
+    iqdemod.errors.CaptureError: standard input holds raw samples: give their datatype and rate (--datatype, --rate)
+    >>> tmp.cleanup()
     """
     if not idle_s > 0 or not np.isfinite(idle_s):
         raise CaptureError(f"idle time {idle_s!r} s: must be a finite number of seconds > 0")

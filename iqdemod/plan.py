@@ -149,6 +149,24 @@ def plan_receiver(link: Link, sample_rate_hz: float, centre_hz: float | None = N
     ------
     LinkError
         When the signal does not fit the capture (see :meth:`Link.check_rate`).
+
+    Examples
+    --------
+    A 1200-baud buoy link in a 48 kHz capture: the tuner decimates by 5 to
+    9.6 kHz (8 samples per symbol), and the tones sit at ±600 Hz:
+
+    >>> from iqdemod.profile import load_link
+    >>> link = load_link(None, baud=1200, shift=1200, offset=6000, sync="0x2DD4", sync_bits=16, length=12)
+    >>> plan = plan_receiver(link, 48000)
+    >>> plan.offset_hz, plan.tuner.decimation, plan.rate_hz, plan.period, plan.tones_hz
+    (6000.0, 5, 9600.0, 8.0, (-600.0, 600.0))
+
+    A signal that does not fit the capture is refused, naming the values:
+
+    >>> plan_receiver(link, 4800)
+    Traceback (most recent call last):
+    ...
+    iqdemod.errors.LinkError: baud 1200 at sample rate 4800 Hz: 4 samples per symbol, the receiver needs at least 8 (a capture at 9600 Hz or more)
     """
     return plan_receivers((link,), sample_rate_hz, centre_hz)[0]
 

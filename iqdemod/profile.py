@@ -84,7 +84,18 @@ def _parse_length(value: Any) -> int | str:
 
 
 def link_with(tables: Mapping[str, Mapping[str, Any]], overrides: Mapping[str, Any]) -> Link:
-    """A link from a profile's tables with flag-style overrides on top (see :func:`load_link`)."""
+    """A link from a profile's tables with flag-style overrides on top (see :func:`load_link`).
+
+    Examples
+    --------
+    A profile's tables, with the command line's ``offset`` and ``length`` on top:
+
+    >>> tables = {"signal": {"baud": 1200, "shift_hz": 1200, "offset_hz": 0},
+    ...           "frame": {"sync_word": "0x2DD4", "sync_bits": 16, "length": 24}}
+    >>> link = link_with(tables, {"offset": 6000, "length": 12, "crc": None})
+    >>> link.signal.offset_hz, link.frame.length, hex(link.frame.sync_word)
+    (6000.0, 12, '0x2dd4')
+    """
     merged = {name: dict(tables.get(name, {})) for name in _KEYS}
     for flag, value in overrides.items():
         if value is None:
@@ -139,6 +150,30 @@ def load_link(path: str | Path | None = None, **overrides: Any) -> Link:
     LinkError
         On TOML syntax (with its line), an unknown table or key, a wrong type or
         a value out of range, naming the key.
+
+    Examples
+    --------
+    From flags alone (a buoy link: 1200 baud, 1200 Hz shift, 6 kHz above the
+    capture centre), and from a TOML profile with a flag on top:
+
+    >>> link = load_link(None, baud=1200, shift=1200, offset=6000, sync="0x2DD4", sync_bits=16, length=12)
+    >>> link.signal.h, link.frame.crc
+    (1.0, 'CRC-16/IBM-3740')
+    >>> import os, tempfile
+    >>> with tempfile.TemporaryDirectory() as tmp:
+    ...     path = os.path.join(tmp, "buoy.toml")
+    ...     with open(path, "w", encoding="utf-8") as fh:
+    ...         _ = fh.write('[signal]\\nbaud = 1200\\nshift_hz = 1200\\n[frame]\\nsync_word = "0x2DD4"\\nsync_bits = 16\\n')
+    ...     link = load_link(path, length=12)
+    >>> link.signal.baud, link.frame.sync_bits, link.frame.length
+    (1200.0, 16, 12)
+
+    A bad value names its key or flag:
+
+    >>> load_link(None, baud=-1200, shift=1200)
+    Traceback (most recent call last):
+    ...
+    iqdemod.errors.LinkError: --baud: baud -1200: must be > 0
     """
     if path is None:
         return _apply_overrides({}, overrides)
@@ -161,6 +196,23 @@ def load_links(paths: "Sequence[str | Path]", **overrides: Any) -> dict[str, Lin
     ------
     LinkError
         As :func:`load_link`; also on two links of the same name.
+
+    Examples
+    --------
+    One profile with two ``[[signal]]`` entries (two buoys on one capture)
+    sharing its ``[frame]`` table gives two links, by name:
+
+    >>> import os, tempfile
+    >>> text = ('[[signal]]\\nname = "buoy-7"\\nbaud = 1200\\nshift_hz = 1200\\noffset_hz = -6000\\n'
+    ...         '[[signal]]\\nname = "buoy-9"\\nbaud = 2400\\nshift_hz = 2400\\noffset_hz = 9000\\n'
+    ...         '[frame]\\nsync_word = "0x2DD4"\\nsync_bits = 16\\nlength = 12\\n')
+    >>> with tempfile.TemporaryDirectory() as tmp:
+    ...     path = os.path.join(tmp, "harbour.toml")
+    ...     with open(path, "w", encoding="utf-8") as fh:
+    ...         _ = fh.write(text)
+    ...     links = load_links([path])
+    >>> {name: (link.signal.baud, link.signal.offset_hz, link.frame.length) for name, link in links.items()}
+    {'buoy-7': (1200.0, -6000.0, 12), 'buoy-9': (2400.0, 9000.0, 12)}
     """
     out: dict[str, Link] = {}
     for path in paths:
@@ -267,7 +319,35 @@ def _apply_overrides(tables: Mapping[str, Mapping[str, Any]], overrides: Mapping
 
 
 def link_to_toml(link: Link, *, comment: str | None = None) -> str:
-    """Render `link` as a TOML profile that :func:`load_link` reads back."""
+    """Render `link` as a TOML profile that :func:`load_link` reads back.
+
+    Examples
+    --------
+    The profile text reads back as the same link:
+
+    >>> import os, tempfile
+    >>> link = load_link(None, rate=48000, baud=1200, shift=1200, offset=6000, sync="0x2DD4", sync_bits=16, length=12)
+    >>> text = link_to_toml(link, comment="harbour buoy 7")
+    >>> print(text[:text.index("[frame]")])
+    # harbour buoy 7
+    [capture]
+    sample_rate = 48000
+    [signal]
+    baud = 1200
+    shift_hz = 1200
+    offset_hz = 6000
+    invert = false
+    pulse = "rect"
+    bt = 0.5
+    detector_symbols = 5
+    <BLANKLINE>
+    >>> with tempfile.TemporaryDirectory() as tmp:
+    ...     path = os.path.join(tmp, "buoy.toml")
+    ...     with open(path, "w", encoding="utf-8") as fh:
+    ...         _ = fh.write(text)
+    ...     load_link(path) == link
+    True
+    """
 
     def val(v: Any) -> str:
         if isinstance(v, bool):

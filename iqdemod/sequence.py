@@ -146,6 +146,18 @@ def slot_samples(x: np.ndarray, starts: np.ndarray, period: float):
     """Each slot's samples (zero where absent), their offsets from the slot start and the count.
 
     Returns xg (K, M), first offset f (K,) in [0, 1), valid mask (K, M), index (K, M).
+
+    Examples
+    --------
+    Slots of 4 samples starting at 0.5, 4.5 and 7.25 (sample n is centred on
+    n + 0.5): the last slot's first sample is 7, 0.25 after its start, and its
+    fourth sample (10) lies past the end of x:
+
+    >>> xg, f, valid, idx = slot_samples(np.arange(10) + 0j, np.array([0.5, 4.5, 7.25]), 4.0)
+    >>> xg.real.tolist()
+    [[0.0, 1.0, 2.0, 3.0], [4.0, 5.0, 6.0, 7.0], [7.0, 8.0, 9.0, 0.0]]
+    >>> f.tolist(), valid.sum(axis=1).tolist(), idx[2].tolist()
+    ([0.0, 0.0, 0.25], [4, 4, 3], [7, 8, 9, 10])
     """
     m = np.arange(int(math.ceil(period)))
     n0 = np.ceil(starts - 0.5).astype(np.int64)
@@ -216,6 +228,31 @@ class SequenceDecisions:
 
 
 def check_inputs(x, starts, period_samples, offset_hz, rate_hz):
+    """Check the detector's and estimators' common inputs; return (x, starts, period) ready to use.
+
+    `x` comes back as complex128 with `offset_hz` mixed out (at `rate_hz`),
+    `starts` as float64 and the period as a float.
+
+    Raises
+    ------
+    LinkError
+        For x not 1-D, starts not finite or not increasing, a period below 2
+        samples, or an offset without a valid rate.
+
+    Examples
+    --------
+    A tone at 1 kHz, sampled at 8 kHz, with its 1 kHz offset removed is a
+    constant:
+
+    >>> x = np.exp(2j * np.pi * 1000 * np.arange(8) / 8000)
+    >>> y, starts, period = check_inputs(x, [0.5, 4.5], 4, 1000.0, 8000.0)
+    >>> bool(np.allclose(y, 1)), starts.tolist(), period
+    (True, [0.5, 4.5], 4.0)
+    >>> check_inputs(x, [4.5, 0.5], 4, 0.0, None)
+    Traceback (most recent call last):
+    ...
+    iqdemod.errors.LinkError: starts: must increase
+    """
     x = np.asarray(x)
     if x.ndim != 1:
         raise LinkError(f"x of shape {x.shape}: must be a 1-D array of complex samples")

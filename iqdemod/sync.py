@@ -43,6 +43,28 @@ def sync_candidates(sums: np.ndarray, plan: ReceiverPlan, *, threshold: float = 
     list of (position, score)
         Sample positions (cumulative-sum convention) of the sync word's first
         symbol, strongest first; the score relative to the noise-free one.
+
+    Examples
+    --------
+    A buoy frame (32 preamble symbols, a 16-bit sync word, 12 bytes and a
+    CRC) at 8 samples per symbol, after 400 samples of noise: the strongest
+    candidate is the sync word's first symbol, 400 + 32·8 = 656:
+
+    >>> import numpy as np
+    >>> from iqdemod.correlate import tone_sums
+    >>> from iqdemod.framing import frame_bits
+    >>> from iqdemod.plan import plan_receiver
+    >>> from iqdemod.profile import load_link
+    >>> link = load_link(None, baud=1200, shift=1200, offset=6000, sync="0x2DD4", sync_bits=16, length=12)
+    >>> plan = plan_receiver(link, 48000)  # 9.6 kHz after the tuner, tones ±600 Hz
+    >>> bits = np.concatenate([np.tile([1, 0], 16), frame_bits(b"buoy-7 12.5C", link.frame)])
+    >>> x = np.exp(2j * np.pi * np.cumsum(np.repeat(np.where(bits == 1, 600.0, -600.0), 8)) / 9600)
+    >>> rng = np.random.default_rng(4)
+    >>> y = np.concatenate([np.zeros(400), x, np.zeros(400)])
+    >>> y = y + 0.1 * (rng.standard_normal(len(y)) + 1j * rng.standard_normal(len(y)))
+    >>> position, score = sync_candidates(tone_sums(y, plan.rate_hz, plan.tones_hz), plan)[0]
+    >>> position, round(score, 2)
+    (656.0, 0.99)
     """
     norm = sync_scores(sums, plan) / plan.sync_score
     above = np.flatnonzero(norm >= threshold)
@@ -58,7 +80,20 @@ def sync_candidates(sums: np.ndarray, plan: ReceiverPlan, *, threshold: float = 
 def merge_candidates(a: list[tuple[float, float]], b: list[tuple[float, float]], plan: ReceiverPlan
                       ) -> list[tuple[float, float]]:
     """Two candidate lists as one, strongest first, keeping the best of those within half a sync word
-    (the one non-maximum suppression of the sync search; ties keep the earlier)."""
+    (the one non-maximum suppression of the sync search; ties keep the earlier).
+
+    Examples
+    --------
+    Candidates closer than half a sync word (16 symbols of 8 samples: 64
+    samples) are one; the stronger stays:
+
+    >>> from iqdemod.plan import plan_receiver
+    >>> from iqdemod.profile import load_link
+    >>> link = load_link(None, baud=1200, shift=1200, offset=6000, sync="0x2DD4", sync_bits=16, length=12)
+    >>> plan = plan_receiver(link, 48000)
+    >>> merge_candidates([(656.0, 0.98)], [(650.0, 0.91), (1500.0, 0.6)], plan)
+    [(656.0, 0.98), (1500.0, 0.6)]
+    """
     radius = len(sync_symbols(plan.link.frame)) * plan.period / 2
     out: list[tuple[float, float]] = []
     for pos, score in sorted(a + b, key=lambda c: -c[1]):
@@ -73,6 +108,25 @@ def sync_scores(sums: np.ndarray, plan: ReceiverPlan) -> np.ndarray:
     The score is evaluated every ``SCORE_STEP`` samples (a sync word's peak is
     several samples wide, and its position is refined by the transmission's
     own timing) and held in between.
+
+    Examples
+    --------
+    A noise-free frame of the buoy link (see :func:`sync_candidates`): the
+    score peaks where the sync word starts, at what a noise-free sync word
+    of this link scores (:attr:`ReceiverPlan.sync_score`):
+
+    >>> import numpy as np
+    >>> from iqdemod.correlate import tone_sums
+    >>> from iqdemod.framing import frame_bits
+    >>> from iqdemod.plan import plan_receiver
+    >>> from iqdemod.profile import load_link
+    >>> link = load_link(None, baud=1200, shift=1200, offset=6000, sync="0x2DD4", sync_bits=16, length=12)
+    >>> plan = plan_receiver(link, 48000)
+    >>> bits = np.concatenate([np.tile([1, 0], 16), frame_bits(b"buoy-7 12.5C", link.frame)])
+    >>> x = np.exp(2j * np.pi * np.cumsum(np.repeat(np.where(bits == 1, 600.0, -600.0), 8)) / 9600)
+    >>> score = sync_scores(tone_sums(x, plan.rate_hz, plan.tones_hz), plan)
+    >>> int(np.argmax(score)), round(float(score.max() / plan.sync_score), 2)
+    (256, 1.0)
     """
     T = plan.period
     pattern = sync_symbols(plan.link.frame).astype(np.float64) * 2 - 1

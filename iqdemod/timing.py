@@ -100,6 +100,22 @@ def symbol_timing(sums: np.ndarray, period_samples: float, *, max_ppm: float = 2
     Returns
     -------
     Timing
+
+    Examples
+    --------
+    A continuous-phase burst of 200 random symbols, 16 samples each (1 kbaud
+    at 16 kHz, tones ±500 Hz), its first 11 samples cut off. The grid comes
+    back with a period of 16 samples and a boundary at 4.5: the tone changes
+    between samples 4 and 5 (the phase step into sample n uses sample n's tone):
+
+    >>> import numpy as np
+    >>> from iqdemod.correlate import tone_sums
+    >>> bits = np.random.default_rng(1).integers(0, 2, 200)
+    >>> freq_hz = np.repeat(np.where(bits == 1, 500.0, -500.0), 16)
+    >>> x = np.exp(2j * np.pi * np.cumsum(freq_hz) / 16000)[11:]
+    >>> t = symbol_timing(tone_sums(x, 16000, (-500.0, 500.0)), 16.0)
+    >>> round(t.first_s % 16, 1), round(t.period_samples, 3), t.breaks
+    (4.5, 16.0, ())
     """
     n = sums.shape[1] - 1
     T = float(period_samples)
@@ -206,7 +222,13 @@ def _breaks(resid: list[float], w: list[float], edges: list[int]) -> tuple[int, 
 
 
 def symbol_starts(timing: Timing, n_samples: int) -> np.ndarray:
-    """Starts of every whole symbol window inside a burst of `n_samples`."""
+    """Starts of every whole symbol window inside a burst of `n_samples`.
+
+    Examples
+    --------
+    >>> symbol_starts(Timing(first_s=20.5, period_samples=16.0, strength=1.0), 64).tolist()
+    [4.5, 20.5, 36.5]
+    """
     T = timing.period_samples
     k_first = int(np.ceil(-timing.first_s / T))
     k_last = int(np.floor((n_samples - T - timing.first_s) / T))

@@ -63,6 +63,19 @@ def set_math_threads(n: int) -> list[tuple[object, int | None]]:
 
     A forked worker inherits numpy's BLAS with the parent's thread count, which the thread
     variables can no longer change. Best effort: a library without a setter is left alone.
+
+    Examples
+    --------
+    Which math libraries are loaded depends on the machine, so this shows the
+    use: one thread, then each library set back to its own count:
+
+    >>> import ctypes
+    >>> previous = set_math_threads(1)
+    >>> all(old is None or old >= 1 for _, old in previous)
+    True
+    >>> for setter, old in previous:
+    ...     if old is not None:
+    ...         _ = setter(ctypes.c_int(old))
     """
     done = []
     for lib in _loaded_math_libraries():
@@ -79,7 +92,18 @@ def set_math_threads(n: int) -> list[tuple[object, int | None]]:
 
 @contextlib.contextmanager
 def one_thread() -> Iterator[None]:
-    """This process decodes with one thread while inside (FFT, read-ahead and BLAS); restored after."""
+    """This process decodes with one thread while inside (FFT, read-ahead and BLAS); restored after.
+
+    Examples
+    --------
+    >>> from iqdemod import channel, receiver
+    >>> before = channel.FFT_WORKERS, receiver.PIPELINE
+    >>> with one_thread():
+    ...     channel.FFT_WORKERS, receiver.PIPELINE
+    (1, False)
+    >>> (channel.FFT_WORKERS, receiver.PIPELINE) == before
+    True
+    """
     from .. import channel, receiver
 
     saved = channel.FFT_WORKERS, receiver.PIPELINE
@@ -264,7 +288,22 @@ class Cluster:
 
 
 def check_cluster_address(address: str) -> None:
-    """Fail fast, once: a malformed address, or a scheduler that does not answer within 5 s."""
+    """Fail fast, once: a malformed address, or a scheduler that does not answer within 5 s.
+
+    Examples
+    --------
+    A malformed address, and a port where no scheduler listens (port 9, the
+    discard service, closed here), are refused at once:
+
+    >>> check_cluster_address("buoys-scheduler")
+    Traceback (most recent call last):
+    ...
+    iqdemod.errors.IqdemodError: cluster 'buoys-scheduler': not a scheduler address such as tcp://10.0.0.5:8786 (...)
+    >>> check_cluster_address("tcp://127.0.0.1:9")
+    Traceback (most recent call last):
+    ...
+    iqdemod.errors.IqdemodError: cluster 'tcp://127.0.0.1:9': cannot connect (...)
+    """
     import socket
 
     _require_distributed()
@@ -286,7 +325,14 @@ def check_cluster_address(address: str) -> None:
 
 
 def default_jobs() -> int:
-    """One job per core this process may run on."""
+    """One job per core this process may run on.
+
+    Examples
+    --------
+    >>> import os
+    >>> default_jobs() == len(os.sched_getaffinity(0))
+    True
+    """
     try:
         return max(1, len(os.sched_getaffinity(0)))
     except (AttributeError, OSError):
@@ -297,6 +343,27 @@ def start(tasks: list[CaptureTask], *, jobs: int | None, cluster: str | None, lo
     """The executor for `tasks`: the cluster when given, else a pool of `jobs`, else this process.
 
     Biggest captures go first, so that the workers' last captures end close together.
+
+    Examples
+    --------
+    One job: the captures are done in this process, one after the other.
+    A synthetic capture of four buoy frames at 14 dB:
+
+    >>> import os, tempfile
+    >>> from iqdemod.profile import load_link
+    >>> from iqdemod.synth import SynthConfig, synthesize
+    >>> link = load_link(None, rate=48000, baud=1200, shift=1200, offset=6000, sync="0x2DD4", sync_bits=16, length=12)
+    >>> tmp = tempfile.TemporaryDirectory()
+    >>> base = os.path.join(tmp.name, "night0")
+    >>> _ = synthesize(base, SynthConfig(link=link, ebn0_db=(14.0,), n_frames=4, seed=5))
+    >>> task = CaptureTask(capture="night0.sigmf-meta", path=base + ".sigmf-meta", link=link)
+    >>> executor = start([task], jobs=1, cluster=None, lock_fd=None)
+    >>> type(executor).__name__
+    'Inline'
+    >>> [(t.capture, outcome.row.status, outcome.row.frames_crc_ok) for t, outcome in executor]
+    [('night0.sigmf-meta', 'ok', 4)]
+    >>> executor.close(interrupted=False)
+    >>> tmp.cleanup()
     """
     n_jobs = default_jobs() if jobs is None else jobs
     longest_first = sorted(tasks, key=lambda t: -(t.size_bytes or 0))

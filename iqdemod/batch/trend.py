@@ -125,6 +125,29 @@ def plot_trend(source: str | os.PathLike | Sequence[CaptureRow], png: str | os.P
     ------
     IqdemodError
         When matplotlib is missing (``pip install 'iqdemod[plot]'``).
+
+    Examples
+    --------
+    The trend of a two-capture batch (see :func:`iqdemod.batch.run.run_batch`);
+    the drawing is not checked here, the file is, by its PNG file signature
+    (W3C PNG specification §5.2, cited from memory):
+
+    >>> import os, tempfile
+    >>> from iqdemod.batch.run import run_batch
+    >>> from iqdemod.profile import load_link
+    >>> from iqdemod.synth import SynthConfig, synthesize
+    >>> link = load_link(None, rate=48000, baud=1200, shift=1200, offset=6000, sync="0x2DD4", sync_bits=16, length=12)
+    >>> tmp = tempfile.TemporaryDirectory()
+    >>> for i, start_time in enumerate(("2026-11-30T22:00:00Z", "2026-11-30T23:00:00Z")):
+    ...     _ = synthesize(os.path.join(tmp.name, f"night{i}"),
+    ...                    SynthConfig(link=link, ebn0_db=(14.0,), n_frames=4, seed=5 + i, start_time=start_time))
+    >>> report = os.path.join(tmp.name, "report.csv")
+    >>> _ = run_batch([tmp.name], link, report=report, jobs=1)
+    >>> plot_trend(report, os.path.join(tmp.name, "trend.png"))
+    >>> with open(os.path.join(tmp.name, "trend.png"), "rb") as fh:
+    ...     fh.read(8).hex()
+    '89504e470d0a1a0a'
+    >>> tmp.cleanup()
     """
     from ..plots import new_figure, save_figure, series_colour
 

@@ -250,6 +250,22 @@ def activity_update(y: np.ndarray, plan: ActivityPlan, state: ActivityState, *,
     bursts : list of ActivityBurst
         Bursts completed by this call.
     state : ActivityState
+
+    Examples
+    --------
+    Noise (σ = 0.05) at 100 kHz with a 6000-sample tone burst from sample
+    30 000, fed in two pieces; the second call is the end of the stream:
+
+    >>> plan = plan_activity(100_000, 10_000, floor_density=0.05**2 / 100_000)
+    >>> rng = np.random.default_rng(6)
+    >>> y = (0.05 / np.sqrt(2) * (rng.standard_normal(60000) + 1j * rng.standard_normal(60000))).astype(np.complex64)
+    >>> y[30000:36000] += 0.5 * np.exp(2j * np.pi * 3000 * np.arange(6000) / 100_000).astype(np.complex64)
+    >>> found, state = activity_update(y[:33000], plan, plan.initial_state())
+    >>> found
+    []
+    >>> found, state = activity_update(y[33000:], plan, state, final=True)
+    >>> [(b.index, b.core) for b in found]
+    [(0, (29952, 36096))]
     """
     found, det = detect(np.asarray(y, np.complex64), plan.detector, state.detector)
     if final:
@@ -297,7 +313,34 @@ class Watch:
 
 def plan_watch(sample_rate_hz: float, low_hz: float, high_hz: float, spec: Spectrum, excess_db: float = 0.0) -> Watch:
     """Front end and detector for the band `low_hz`–`high_hz`, with a quarter of its width (two bins at least)
-    of margin."""
+    of margin.
+
+    Examples
+    --------
+    The band found in the spectrum of four synthetic buoy bursts (1200 baud,
+    tones at 5400 and 6600 Hz, 48 kHz): the watch's tuner keeps it at 24 kHz:
+
+    >>> import os, tempfile
+    >>> from iqdemod.capture import open_capture
+    >>> from iqdemod.profile import load_link
+    >>> from iqdemod.survey.spectrum import find_bands, finish_spectrum, plan_spectrum, spectrum_update
+    >>> from iqdemod.synth import SynthConfig, synthesize
+    >>> link = load_link(None, rate=48000, baud=1200, shift=1200, offset=6000, sync="0x2DD4", sync_bits=16, length=12)
+    >>> tmp = tempfile.TemporaryDirectory()
+    >>> _ = synthesize(os.path.join(tmp.name, "buoys"), SynthConfig(link=link, ebn0_db=(16.0,), n_frames=4, seed=5))
+    >>> capture = open_capture(os.path.join(tmp.name, "buoys.sigmf-meta"))
+    >>> plan = plan_spectrum(48000)
+    >>> state = plan.initial_state()
+    >>> for block in capture.blocks(16384):
+    ...     state = spectrum_update(block, plan, state)
+    >>> spec = finish_spectrum(plan, state)
+    >>> band = find_bands(spec)[0]
+    >>> watch = plan_watch(48000, band.low_hz, band.high_hz, spec, band.excess_db)
+    >>> watch.low_hz, watch.high_hz, watch.rate_hz, watch.tuner.decimation
+    (3843.75, 8343.75, 24000.0, 2)
+    >>> capture.close()
+    >>> tmp.cleanup()
+    """
     width = high_hz - low_hz
     margin = max(width / 4, 2 * spec.bin_hz)
     tuner = band_channel(sample_rate_hz, (low_hz + high_hz) / 2, width / 2 + margin)
@@ -317,7 +360,15 @@ class Activity:
 
 
 def progress_bar(capture: Capture, enabled: bool, desc: str):
-    """A tqdm bar over the capture's samples (stderr), or None when not `enabled`."""
+    """A tqdm bar over the capture's samples (stderr), or None when not `enabled`.
+
+    Examples
+    --------
+    No bar unless asked for (a library function prints nothing by default):
+
+    >>> progress_bar(None, False, "survey: spectrum") is None
+    True
+    """
     if not enabled:
         return None
     from tqdm import tqdm
@@ -337,7 +388,35 @@ def _take(act: Activity, found: list[ActivityBurst]) -> None:
 
 def watch_bands(capture: Capture, watches: Sequence[Watch], *, block_samples: int, progress: bool,
                 desc: str) -> list[Activity]:
-    """One pass: tune every band with the receiver's front end, detect its bursts, keep the first few as excerpts."""
+    """One pass: tune every band with the receiver's front end, detect its bursts, keep the first few as excerpts.
+
+    Examples
+    --------
+    One pass over four synthetic buoy bursts, watching the band the spectrum
+    found: every burst is seen, and the first ones kept as excerpts:
+
+    >>> import os, tempfile
+    >>> from iqdemod.capture import open_capture
+    >>> from iqdemod.profile import load_link
+    >>> from iqdemod.survey.spectrum import find_bands, finish_spectrum, plan_spectrum, spectrum_update
+    >>> from iqdemod.synth import SynthConfig, synthesize
+    >>> link = load_link(None, rate=48000, baud=1200, shift=1200, offset=6000, sync="0x2DD4", sync_bits=16, length=12)
+    >>> tmp = tempfile.TemporaryDirectory()
+    >>> _ = synthesize(os.path.join(tmp.name, "buoys"), SynthConfig(link=link, ebn0_db=(16.0,), n_frames=4, seed=5))
+    >>> capture = open_capture(os.path.join(tmp.name, "buoys.sigmf-meta"))
+    >>> plan = plan_spectrum(48000)
+    >>> state = plan.initial_state()
+    >>> for block in capture.blocks(16384):
+    ...     state = spectrum_update(block, plan, state)
+    >>> spec = finish_spectrum(plan, state)
+    >>> band = find_bands(spec)[0]
+    >>> watch = plan_watch(48000, band.low_hz, band.high_hz, spec, band.excess_db)
+    >>> act, = watch_bands(capture, [watch], block_samples=16384, progress=False, desc="survey: bursts")
+    >>> len(act.intervals), len(act.excerpts)
+    (4, 4)
+    >>> capture.close()
+    >>> tmp.cleanup()
+    """
     acts = [Activity(w) for w in watches]
     tstates: list[ChannelState] = [w.tuner.initial_state() for w in watches]
     dstates = [w.detector.initial_state() for w in watches]
@@ -398,6 +477,34 @@ def group_bands(acts: list[Activity]) -> list[list[int]]:
     alternating preamble, though a band holding one tone may go quiet inside
     a burst during a long run of the other). Two transmitters keyed by one
     clock in bands far apart would be taken for one signal.
+
+    Examples
+    --------
+    Four synthetic buoy bursts in one band are one transmitter; a band that
+    saw no burst is in no group:
+
+    >>> import os, tempfile
+    >>> from iqdemod.capture import open_capture
+    >>> from iqdemod.profile import load_link
+    >>> from iqdemod.survey.spectrum import find_bands, finish_spectrum, plan_spectrum, spectrum_update
+    >>> from iqdemod.synth import SynthConfig, synthesize
+    >>> link = load_link(None, rate=48000, baud=1200, shift=1200, offset=6000, sync="0x2DD4", sync_bits=16, length=12)
+    >>> tmp = tempfile.TemporaryDirectory()
+    >>> _ = synthesize(os.path.join(tmp.name, "buoys"), SynthConfig(link=link, ebn0_db=(16.0,), n_frames=4, seed=5))
+    >>> capture = open_capture(os.path.join(tmp.name, "buoys.sigmf-meta"))
+    >>> plan = plan_spectrum(48000)
+    >>> state = plan.initial_state()
+    >>> for block in capture.blocks(16384):
+    ...     state = spectrum_update(block, plan, state)
+    >>> spec = finish_spectrum(plan, state)
+    >>> band = find_bands(spec)[0]
+    >>> busy = plan_watch(48000, band.low_hz, band.high_hz, spec, band.excess_db)
+    >>> quiet = plan_watch(48000, -15000.0, -12000.0, spec)
+    >>> acts = watch_bands(capture, [busy, quiet], block_samples=16384, progress=False, desc="survey: bursts")
+    >>> [len(a.intervals) for a in acts], group_bands(acts)
+    ([4, 0], [[0]])
+    >>> capture.close()
+    >>> tmp.cleanup()
     """
     n = len(acts)
     tols = [2 * a.watch.detector.frame_len * a.watch.tuner.decimation for a in acts]

@@ -357,6 +357,22 @@ def frame_layout(burst_bits: list[np.ndarray]) -> Layout:
     Every coding the bursts could carry (NRZ; Manchester in both conventions
     when the chips pair into valid symbols) and every whitening is tried; the
     layout whose frames check on most bursts wins, the plainer one on a tie.
+
+    Examples
+    --------
+    Three bursts of a buoy link (32 preamble bits, sync word 0x2DD4, 12-byte
+    payloads, CRC-16/IBM-3740) built with the framer: the layout comes back.
+    The last preamble bits are the same in every burst, so the survey reads
+    them as part of a longer sync word:
+
+    >>> from iqdemod.framing import frame_bits
+    >>> from iqdemod.link import FrameSpec
+    >>> spec = FrameSpec(sync_word=0x2DD4, sync_bits=16, length=12, crc="CRC-16/IBM-3740")
+    >>> bursts = [np.concatenate([np.tile([1, 0], 16), frame_bits(p, spec), np.zeros(8, np.uint8)])
+    ...           for p in (b"buoy-7 12.5C", b"buoy-9 11.8C", b"buoy-2 13.1C")]
+    >>> layout = frame_layout(bursts)
+    >>> hex(layout.sync_word), layout.sync_bits, layout.length, layout.crc, layout.frames_crc_ok, layout.coding
+    ('0xaaaa2dd4', 32, 12, 'CRC-16/IBM-3740', 3, 'nrz')
     """
     best: Layout | None = None
     fallback: tuple[str, list[np.ndarray], list] | None = None
@@ -398,7 +414,28 @@ def _with_symbols(layout: Layout) -> Layout:
 
 
 def demodulated_bits(capture: Capture, signal: SignalSpec, *, block_samples: int, progress: bool) -> list[np.ndarray]:
-    """Hard bits of the first few bursts, from the project's receiver in raw mode (stops reading early)."""
+    """Hard bits of the first few bursts, from the project's receiver in raw mode (stops reading early).
+
+    Examples
+    --------
+    The bits of the first bursts of a synthetic buoy capture (16-bit sync
+    word 0x2DD4, 12 bytes, CRC-16/IBM-3740), from the receiver in raw mode:
+
+    >>> import os, tempfile
+    >>> from iqdemod.capture import open_capture
+    >>> from iqdemod.link import SignalSpec
+    >>> from iqdemod.profile import load_link
+    >>> from iqdemod.synth import SynthConfig, synthesize
+    >>> link = load_link(None, rate=48000, baud=1200, shift=1200, offset=6000, sync="0x2DD4", sync_bits=16, length=12)
+    >>> tmp = tempfile.TemporaryDirectory()
+    >>> _ = synthesize(os.path.join(tmp.name, "buoys"), SynthConfig(link=link, ebn0_db=(16.0,), n_frames=4, seed=5))
+    >>> with open_capture(os.path.join(tmp.name, "buoys.sigmf-meta")) as capture:
+    ...     bits = demodulated_bits(capture, SignalSpec(baud=1200, shift_hz=1200, offset_hz=6000),
+    ...                             block_samples=16384, progress=False)
+    >>> len(bits), all(len(b) >= 32 + 16 + 8 * 14 for b in bits)  # preamble, sync word, payload and CRC
+    (2, True)
+    >>> tmp.cleanup()
+    """
     link = Link(signal=signal, frame=FrameSpec(sync_word=None, crc="none"))
     out = []
     gen = iter_bursts(capture, link, block_samples=block_samples, progress=progress)

@@ -56,6 +56,30 @@ def survey(
         When the capture is shorter than one FFT.
     IqdemodError
         For a bad `max_signals`.
+
+    Examples
+    --------
+    Four synthetic buoy bursts (1200 baud, 1200 Hz shift, 6 kHz above the
+    centre, 16 dB, sync word 0x2DD4, 12 bytes, CRC-16/IBM-3740): one signal,
+    its tones, rate and frame layout found with nothing said about them. The
+    last preamble bits, the same in every burst, are read as part of the sync
+    word:
+
+    >>> import os, tempfile
+    >>> from iqdemod.capture import open_capture
+    >>> from iqdemod.profile import load_link
+    >>> from iqdemod.synth import SynthConfig, synthesize
+    >>> link = load_link(None, rate=48000, baud=1200, shift=1200, offset=6000, sync="0x2DD4", sync_bits=16, length=12)
+    >>> tmp = tempfile.TemporaryDirectory()
+    >>> _ = synthesize(os.path.join(tmp.name, "buoys"), SynthConfig(link=link, ebn0_db=(16.0,), n_frames=4, seed=5))
+    >>> with open_capture(os.path.join(tmp.name, "buoys.sigmf-meta")) as capture:
+    ...     result = survey(capture, block_samples=16384)
+    >>> s, = result.signals
+    >>> round(s.tone_low_hz, -2), round(s.tone_high_hz, -2), round(s.baud), s.bursts, round(s.ebn0_db)
+    (5400.0, 6600.0, 1200, 4, 16)
+    >>> s.sync_word, s.length, s.crc, s.frames_crc_ok > 0, s.pulse
+    ('0xaaaa2dd4', 12, 'CRC-16/IBM-3740', True, 'rect')
+    >>> tmp.cleanup()
     """
     if isinstance(max_signals, bool) or not isinstance(max_signals, int) or max_signals < 1:
         raise IqdemodError(f"max_signals {max_signals!r}: must be a whole number >= 1")

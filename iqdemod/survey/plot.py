@@ -15,7 +15,14 @@ __all__ = ["plot_survey", "require_plotting"]
 
 
 def require_plotting() -> None:
-    """Check that matplotlib is there (see :func:`iqdemod.plots.require_matplotlib`)."""
+    """Check that matplotlib is there (see :func:`iqdemod.plots.require_matplotlib`).
+
+    Examples
+    --------
+    Nothing happens when matplotlib (the ``plot`` extra) is installed:
+
+    >>> require_plotting()
+    """
     from ..plots import require_matplotlib
 
     require_matplotlib()
@@ -34,6 +41,29 @@ def plot_survey(result: SurveyResult, path: str | os.PathLike) -> None:
     ------
     IqdemodError
         When matplotlib is not installed.
+
+    Examples
+    --------
+    The picture of a survey of four synthetic buoy bursts; the drawing is not
+    checked here, the file is, by its PNG file signature (W3C PNG
+    specification §5.2, cited from memory):
+
+    >>> import os, tempfile
+    >>> from iqdemod.capture import open_capture
+    >>> from iqdemod.profile import load_link
+    >>> from iqdemod.survey import survey
+    >>> from iqdemod.synth import SynthConfig, synthesize
+    >>> link = load_link(None, rate=48000, baud=1200, shift=1200, offset=6000, sync="0x2DD4", sync_bits=16, length=12)
+    >>> tmp = tempfile.TemporaryDirectory()
+    >>> _ = synthesize(os.path.join(tmp.name, "buoys"), SynthConfig(link=link, ebn0_db=(16.0,), n_frames=4, seed=5))
+    >>> with open_capture(os.path.join(tmp.name, "buoys.sigmf-meta")) as capture:
+    ...     result = survey(capture, block_samples=16384, framing=False)
+    >>> path = os.path.join(tmp.name, "survey.png")
+    >>> plot_survey(result, path)
+    >>> with open(path, "rb") as fh:
+    ...     fh.read(8).hex()
+    '89504e470d0a1a0a'
+    >>> tmp.cleanup()
     """
     from ..plots import new_figure, save_figure
 

@@ -172,6 +172,38 @@ def pulse_shape(excerpts: list[ActivityBurst], watch: Watch, mod: Modulation) ->
     plainer pulse, on a near tie). Also measured: the share of the signal's
     power beyond Carson's bandwidth within those bins, noise removed, dB.
     None when the bursts are too short or too few for a spectrum.
+
+    Examples
+    --------
+    Four synthetic buoy bursts with a rectangular pulse: called rect, and
+    little of their power lies beyond Carson's bandwidth:
+
+    >>> import os, tempfile
+    >>> from iqdemod.capture import open_capture
+    >>> from iqdemod.profile import load_link
+    >>> from iqdemod.survey.spectrum import find_bands, finish_spectrum, plan_spectrum, spectrum_update
+    >>> from iqdemod.synth import SynthConfig, synthesize
+    >>> link = load_link(None, rate=48000, baud=1200, shift=1200, offset=6000, sync="0x2DD4", sync_bits=16, length=12)
+    >>> tmp = tempfile.TemporaryDirectory()
+    >>> _ = synthesize(os.path.join(tmp.name, "buoys"), SynthConfig(link=link, ebn0_db=(16.0,), n_frames=4, seed=5))
+    >>> capture = open_capture(os.path.join(tmp.name, "buoys.sigmf-meta"))
+    >>> plan = plan_spectrum(48000)
+    >>> state = plan.initial_state()
+    >>> for block in capture.blocks(16384):
+    ...     state = spectrum_update(block, plan, state)
+    >>> spec = finish_spectrum(plan, state)
+    >>> band = find_bands(spec)[0]
+    >>> from iqdemod.survey.activity import plan_watch, watch_bands
+    >>> watch = plan_watch(48000, band.low_hz, band.high_hz, spec, band.excess_db)
+    >>> act, = watch_bands(capture, [watch], block_samples=16384, progress=False, desc="survey: bursts")
+    >>> from iqdemod.survey.modulation import estimate_modulation
+    >>> mod = estimate_modulation(act.excerpts, watch.rate_hz, (watch.high_hz - watch.low_hz) / 2,
+    ...                           watch.detector.frame_len)
+    >>> shape = pulse_shape(act.excerpts, watch, mod)
+    >>> shape.pulse, shape.bt, shape.beyond_carson_db < -15
+    ('rect', None, True)
+    >>> capture.close()
+    >>> tmp.cleanup()
     """
     rate, baud = watch.rate_hz, mod.baud
     h = (mod.tone_high_hz - mod.tone_low_hz) / baud

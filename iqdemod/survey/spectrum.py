@@ -234,6 +234,26 @@ def finish_spectrum(plan: SpectrumPlan, state: SpectrumState) -> Spectrum:
     ------
     CaptureError
         When not one FFT segment was fed.
+
+    Examples
+    --------
+    White noise (σ = 0.05) at 48 kHz with a tone at +6 kHz: 256 bins of
+    187.5 Hz from −24 kHz, the tone's bin standing out from the baseline:
+
+    >>> rng = np.random.default_rng(7)
+    >>> n = 48000
+    >>> x = 0.05 / np.sqrt(2) * (rng.standard_normal(n) + 1j * rng.standard_normal(n))
+    >>> x = (x + 0.1 * np.exp(2j * np.pi * 6000 * np.arange(n) / 48000)).astype(np.complex64)
+    >>> plan = plan_spectrum(48000)
+    >>> spec = finish_spectrum(plan, spectrum_update(x, plan, plan.initial_state()))
+    >>> len(spec.freqs_hz), float(spec.freqs_hz[0]), float(spec.freqs_hz[1] - spec.freqs_hz[0]), spec.n_segments
+    (256, -24000.0, 187.5, 374)
+    >>> float(spec.freqs_hz[np.argmax(spec.mean)])
+    6000.0
+    >>> finish_spectrum(plan, plan.initial_state())
+    Traceback (most recent call last):
+    ...
+    iqdemod.errors.CaptureError: ...
     """
     if state.n_segments == 0:
         raise CaptureError(f"capture of {len(state.tail)} samples: too short to survey (need at least {plan.nfft})")
@@ -307,6 +327,20 @@ def find_bands(spec: Spectrum) -> list[Band]:
 
     The fine resolutions give the bands; the coarse one adds only bands that
     none of the fine ones sees (a wide, weak signal).
+
+    Examples
+    --------
+    The tone of the :func:`finish_spectrum` example is the one band found:
+
+    >>> rng = np.random.default_rng(7)
+    >>> n = 48000
+    >>> x = 0.05 / np.sqrt(2) * (rng.standard_normal(n) + 1j * rng.standard_normal(n))
+    >>> x = (x + 0.1 * np.exp(2j * np.pi * 6000 * np.arange(n) / 48000)).astype(np.complex64)
+    >>> plan = plan_spectrum(48000)
+    >>> spec = finish_spectrum(plan, spectrum_update(x, plan, plan.initial_state()))
+    >>> bands = find_bands(spec)
+    >>> len(bands), bands[0].low_hz <= 6000.0 <= bands[0].high_hz
+    (1, True)
     """
     n = len(spec.freqs_hz)
     fine = np.zeros(n, dtype=bool)
