@@ -31,6 +31,7 @@ from typing import Iterator
 
 import numpy as np
 
+from .convert import Converter, pile_up, sample_converter
 from .errors import CaptureError, quote
 from .formats import (CAPTURE_FORMATS, CAPTURE_SUFFIXES, MAX_META_BYTES, RAW_SUFFIXES, SIGMF_COMPLEX_DATATYPES,
                       SIGMF_DATA, SIGMF_META, Datatype, capture_files, capture_format, parse_datatype,
@@ -55,6 +56,8 @@ __all__ = [
     "read_sigmf_meta",
     "parse_sigmf_meta",
     "MAX_META_BYTES",
+    "pile_up",
+    "sample_converter",
 ]
 
 DEFAULT_BLOCK_SAMPLES = 1 << 20
@@ -133,107 +136,6 @@ class CaptureStats:
         if self.clipped:
             out.append(f"{self.clipped_fraction:.2%} of samples clipped at full scale")
         return out
-
-
-PILE_UP_STRIDE = 64  # the look for a pile-up reads one component in this many
-PILE_UP_HITS = 2  # a pile-up: this many of the components looked at sit exactly at one extreme
-
-
-def pile_up(comp: np.ndarray, lo: float, hi: float) -> int:
-    """Samples clipped in a float block: those at an extreme value that many samples share.
-
-    A float capture has no full scale, so clipping shows only as a pile-up:
-    many samples exactly at the block's largest (or smallest) value, where
-    continuous data reaches its extreme once. A strided look (every component
-    of a small block, one in ``PILE_UP_STRIDE`` of a large one) decides whether
-    to count: a pile-up of about 0.1 % of the samples or more is seen. Then
-    every sample with a component at the piled-up extreme is counted.
-
-    Parameters
-    ----------
-    comp : numpy.ndarray
-        float32 components, interleaved I, Q.
-    lo, hi : float
-        The block's smallest and largest component.
-    """
-    if not lo < hi:  # a constant block (or an empty one) is no clipping
-        return 0
-    at = [v for v in (hi, lo) if v != 0 and np.count_nonzero(_look(comp) == v) >= PILE_UP_HITS]
-    if not at:
-        return 0
-    pairs = comp.reshape(-1, 2)
-    mask = np.zeros(len(pairs), bool)
-    for v in at:
-        mask |= (pairs == v).any(axis=1)
-    return int(mask.sum())
-
-
-def _look(comp: np.ndarray) -> np.ndarray:
-    """Every component of a small block, one in PILE_UP_STRIDE of a large one (at least ~2000 looked at)."""
-    return comp[:: min(PILE_UP_STRIDE, max(1, comp.size // 2048))]
-
-
-def _float_block(comp: np.ndarray) -> tuple[np.ndarray, int, int]:
-    """float32 components to complex64: (samples, non-finite samples zeroed, clipped samples).
-
-    One reduction over the block (a sum: NaN and Inf propagate through it)
-    and a look at the strided components cost the common case; the block's
-    own extremes are found only when the look holds a repeated extreme, so
-    the count is exactly :func:`pile_up`'s.
-    """
-    bad = 0
-    with np.errstate(over="ignore", invalid="ignore"):
-        finite = np.isfinite(np.add.reduce(comp, dtype=np.float32))
-    if not finite:  # NaN or Inf somewhere (or a sum past float32's range: then nothing is counted)
-        comp = comp.copy()
-        bad_pairs = ~np.isfinite(comp).reshape(-1, 2).all(axis=1)
-        bad = int(bad_pairs.sum())
-        comp.reshape(-1, 2)[bad_pairs] = 0.0
-    look = _look(comp)
-    suspect = any(v != 0 and np.count_nonzero(look == v) >= PILE_UP_HITS for v in (look.max(), look.min()))
-    clipped = pile_up(comp, comp.min(), comp.max()) if suspect else 0
-    return comp.view(np.complex64), bad, clipped
-
-
-class _Converter:
-    """Raw bytes to complex64, counting clipping and non-finite values."""
-
-    def __init__(self, dt: Datatype):
-        self.dt = dt
-        self._lut = None
-        if dt.numpy in ("|u1", "|i1"):
-            raw = np.arange(256, dtype=np.uint8).view(dt.numpy)
-            self._lut = ((raw.astype(np.float32) - np.float32(dt.offset)) * np.float32(dt.scale)).astype(np.float32)
-
-    def __call__(self, buf: np.ndarray) -> tuple[np.ndarray, int, int]:
-        """Convert components `buf` (raw dtype); return (complex64, nonfinite, clipped).
-
-        The common case costs two reductions (min and max) and, for floats, a
-        strided look for a pile-up; the counting runs only when they say it is
-        needed. Integer formats clip at their full scale; floats have none (see
-        :func:`pile_up`).
-        """
-        dt = self.dt
-        if dt.is_float:
-            with np.errstate(over="ignore", invalid="ignore"):  # out-of-range float64 becomes inf, then 0
-                comp = buf.astype(np.float32, copy=False)  # native cf32: no copy at all
-            if comp.size == 0:
-                return comp.view(np.complex64), 0, 0
-            # floats have no full scale: only a pile-up at one extreme counts as clipping
-            return _float_block(comp)
-        lo, hi = dt.full_scale
-        clipped = 0
-        if buf.size and (buf.min() <= lo or buf.max() >= hi):
-            pairs = buf.reshape(-1, 2)
-            clipped = int(((pairs == lo) | (pairs == hi)).any(axis=1).sum())
-        if self._lut is not None:
-            comp = self._lut[buf.view(np.uint8)]
-        else:
-            comp = buf.astype(np.float32)
-            if dt.offset:
-                comp -= np.float32(dt.offset)
-            comp *= np.float32(dt.scale)
-        return comp.view(np.complex64), 0, clipped
 
 
 class Capture:
@@ -323,7 +225,7 @@ class Capture:
 
     def _raw_blocks(self, step: int) -> Iterator[np.ndarray]:
         dt = self._dt
-        convert = _Converter(dt)
+        convert = Converter(dt)
         remaining = self.info.n_samples
         if self._fh is None:
             try:
@@ -576,20 +478,21 @@ def open_capture(path: str | os.PathLike, *, datatype: str | None = None, sample
     >>> blocks
     [[(1+2j), (3-4j)], [0.5j]]
 
-    A raw file needs its datatype and rate; unsigned 8-bit samples are
-    centred on 127.5 (common practice), so the bytes 191, 64 are about 0.5 − 0.5j:
+    A raw file needs its datatype and rate (a name that is a SigMF datatype,
+    ``night.cu8``, gives the datatype); unsigned 8-bit samples are centred on
+    127.5 (common practice), so the bytes 191, 64 are about 0.5 − 0.5j:
 
-    >>> raw = os.path.join(tmp.name, "night.cu8")
+    >>> raw = os.path.join(tmp.name, "night.raw")
     >>> with open(raw, "wb") as fh:
     ...     _ = fh.write(bytes([191, 64, 128, 128]))
     >>> with open_capture(raw, datatype="cu8", sample_rate=250000) as capture:
     ...     samples = np.concatenate(list(capture.blocks()))
     >>> capture.info.kind, np.round(samples, 2).tolist()
     ('raw', [(0.5-0.5j), 0j])
-    >>> open_capture(raw)
+    >>> open_capture(raw, sample_rate=250000)
     Traceback (most recent call last):
     ...
-    iqdemod.errors.CaptureError: ...night.cu8: raw capture without metadata: give its datatype (--datatype, e.g. cu8)
+    iqdemod.errors.CaptureError: ...night.raw: raw capture without metadata: give its datatype (--datatype, e.g. cu8)
     >>> tmp.cleanup()
     """
     p = Path(path)
@@ -623,10 +526,3 @@ def open_capture(path: str | os.PathLike, *, datatype: str | None = None, sample
     return Capture(_raw_info(p, p, dt, rate, kind="raw"), _datatype=dt)
 
 
-def sample_converter(datatype: str):
-    """The converter from raw components of `datatype` to complex64 that every reader uses.
-
-    Called on an array of components (the datatype's numpy type), it returns
-    (complex64 samples, non-finite samples, clipped samples).
-    """
-    return _Converter(parse_datatype(datatype))

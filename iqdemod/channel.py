@@ -58,16 +58,15 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .frontend_moments import FrontEndMoments, FrontEndReport, front_end_report, run_moments
 from .link import SignalSpec
 
-__all__ = ["ChannelPlan", "ChannelState", "FrontEndMoments", "FrontEndReport", "plan_channel", "plan_channels",
-           "channel_size", "channelize", "channelize_many", "flush_channels",
-           "flush_channel", "STOPBAND_DB"]
+__all__ = ["ChannelPlan", "ChannelState", "FrontEndMoments", "FrontEndReport", "front_end_report", "plan_channel",
+           "plan_channels", "channel_size", "channelize", "channelize_many", "flush_channels", "flush_channel",
+           "STOPBAND_DB"]
 
 STOPBAND_DB = 70.0
 MIN_FFT = 1 << 14  # smallest block: keeps the per-block overhead small against the FFT itself
-DC_BLOCKS = 16  # the DC line is the mean of about this many blocks' means
-IMBALANCE_SIGMAS = 4.0  # an IQ imbalance is corrected once the moments show it this many standard errors out
 BATCH = 16  # whole blocks transformed in one FFT call
 FFT_WORKERS = max(1, min(2, os.cpu_count() or 1))
 
@@ -173,39 +172,6 @@ class ChannelPlan:
         return ChannelState(pending=np.zeros(lead, np.complex64), n_in=0, next_sample=0, moments=FrontEndMoments())
 
 
-@dataclass(frozen=True)
-class FrontEndMoments:
-    """Running sums over the input, for the DC level and the IQ imbalance.
-
-    Attributes
-    ----------
-    blocks : int
-        FFT blocks so far.
-    dc_estimate : complex
-        The DC line removed from the last block.
-    n : int
-        Input samples summed.
-    dc_sum : complex
-        Σ of each block's mean times its new samples (for the mean DC level).
-    power : float
-        Σ|x − m|² (C), the block means m removed.
-    pseudo : complex
-        Σ(x − m)² (P), the non-circular part an imbalance leaves.
-    pseudo_after : complex
-        The same sum for the corrected samples (what the correction left).
-    power_after : float
-    """
-
-    blocks: int = 0
-    dc_estimate: complex = 0j
-    n: int = 0
-    dc_sum: complex = 0j
-    power: float = 0.0
-    pseudo: complex = 0j
-    pseudo_after: complex = 0j
-    power_after: float = 0.0
-
-
 @dataclass(frozen=True, eq=False)
 class ChannelState:
     """What the front end carries between reads.
@@ -228,77 +194,6 @@ class ChannelState:
     n_in: int
     next_sample: int
     moments: FrontEndMoments
-
-
-@dataclass(frozen=True)
-class FrontEndReport:
-    """What the front end measured about the receiver that made the capture.
-
-    Attributes
-    ----------
-    dc_dbfs : float or None
-        The DC offset's level, dB re full scale (1.0); None before any sample.
-    iq_gain_db : float or None
-        Q-branch gain relative to I, dB (shared/REFERENCE.md §11: g).
-    iq_phase_deg : float or None
-        Q-branch phase error φ, degrees.
-    image_rejection_db : float or None
-        Image rejection of the capture as recorded, dB (capped at ``MAX_IRR_DB``).
-    image_rejection_after_db : float or None
-        What is left after the correction, dB (capped likewise).
-    """
-
-    dc_dbfs: float | None = None
-    iq_gain_db: float | None = None
-    iq_phase_deg: float | None = None
-    image_rejection_db: float | None = None
-    image_rejection_after_db: float | None = None
-
-
-MAX_IRR_DB = 80.0
-
-
-def image_rejection_db(power: float, pseudo: complex) -> float:
-    """Image rejection from the moments: x = K1·s + K2·s* gives |E x²|/E|x|² = 2r/(1 + r²), r = |K2/K1|.
-
-    Returns −20·log10 r, at most ``MAX_IRR_DB``.
-    """
-    if power <= 0:
-        return MAX_IRR_DB
-    rho = min(abs(pseudo) / power, 1.0)
-    if rho <= 0:
-        return MAX_IRR_DB
-    r = (1.0 - math.sqrt(max(0.0, 1.0 - rho * rho))) / rho
-    return min(MAX_IRR_DB, -20.0 * math.log10(r)) if r > 0 else MAX_IRR_DB
-
-
-def front_end_report(moments: FrontEndMoments) -> FrontEndReport:
-    """The DC level and IQ imbalance behind a run's moments (shared/REFERENCE.md §11)."""
-    if moments.n == 0:
-        return FrontEndReport()
-    dc = abs(moments.dc_sum) / moments.n
-    dc_dbfs = 20 * math.log10(dc) if dc > 0 else -math.inf
-    c, p = moments.power / moments.n, moments.pseudo / moments.n
-    ii, qq, iq = (c + p.real) / 2, (c - p.real) / 2, p.imag / 2
-    if ii <= 0 or qq <= 0:
-        return FrontEndReport(dc_dbfs=dc_dbfs)
-    g = math.sqrt(qq / ii)
-    phi = math.asin(max(-1.0, min(1.0, iq / math.sqrt(ii * qq))))
-    return FrontEndReport(
-        dc_dbfs=dc_dbfs,
-        iq_gain_db=20 * math.log10(g),
-        iq_phase_deg=math.degrees(phi),
-        image_rejection_db=image_rejection_db(moments.power, moments.pseudo),
-        image_rejection_after_db=image_rejection_db(moments.power_after, moments.pseudo_after),
-    )
-
-
-def _compensator(power: float, pseudo: complex) -> complex:
-    """w such that y = x − w·x* is circular: w²·P* − 2w·C + P = 0, the small root."""
-    if power <= 0 or pseudo == 0:
-        return 0j
-    disc = math.sqrt(max(0.0, power * power - abs(pseudo) ** 2))
-    return (power - disc) / pseudo.conjugate()
 
 
 def channel_size(sample_rate_hz: float, signal: SignalSpec) -> tuple[int, int, int, float, float]:
@@ -402,44 +297,6 @@ def _kaiser_taps(ripple_db: float, width: float) -> int:
     return n | 1
 
 
-def _steps(moments: FrontEndMoments, means: np.ndarray, sums: np.ndarray, squares: np.ndarray, new: int,
-           fresh_sums: np.ndarray | None = None) -> tuple[FrontEndMoments, np.ndarray, np.ndarray]:
-    """The running moments after a run of blocks, and the DC line and IQ compensator w of each.
-
-    Block r has `new` fresh samples with mean ``means[r]``, Σ|x|² ``sums[r]``
-    and Σx² ``squares[r]`` (and Σx ``fresh_sums[r]``, else taken as `new` × the
-    block mean). Its DC line is the block means averaged over the
-    last DC_BLOCKS blocks (all of them at first), so that a signal sitting on
-    the centre keeps its own low frequencies; its moments are taken about that
-    line. The imbalance is corrected only once the moments can tell it from
-    their own noise: for a circular signal |ΣP|/ΣC has a standard error of
-    about 1/√n, and a correction fitted to that noise would add an image
-    rather than remove one. The loop is over plain numbers, block by block in
-    order (each block's w depends on all before it).
-    """
-    blocks, dc, n_tot, dc_sum = moments.blocks, moments.dc_estimate, moments.n, moments.dc_sum
-    c_tot, p_tot, p_after_tot, c_after_tot = moments.power, moments.pseudo, moments.pseudo_after, moments.power_after
-    ws = np.zeros(len(means), np.complex128)
-    dcs = np.zeros(len(means), np.complex128)
-    totals = (means * new if fresh_sums is None else fresh_sums).tolist()
-    for r, (mean, c_raw, p_raw, total) in enumerate(zip(means.tolist(), sums.tolist(), squares.tolist(), totals)):
-        dc = dc + max(1.0 / (blocks + 1), 1.0 / DC_BLOCKS) * (mean - dc)
-        # the block's moments about the DC line
-        power = c_raw - 2 * (dc.conjugate() * total).real + new * abs(dc) ** 2
-        pseudo = p_raw - 2 * dc * total + new * dc * dc
-        c_tot, p_tot, n_tot = c_tot + power, p_tot + pseudo, n_tot + new
-        w = _compensator(c_tot, p_tot) if abs(p_tot) > IMBALANCE_SIGMAS * c_tot / math.sqrt(max(n_tot, 1)) else 0j
-        # what the correction leaves: y = x − w·x* has E y² = P − 2wC + w²P*, E|y|² = (1 + |w|²)C − 2Re(w*P)
-        p_after_tot += pseudo - 2 * w * power + w * w * pseudo.conjugate()
-        c_after_tot += (1 + abs(w) ** 2) * power - 2 * (w.conjugate() * pseudo).real
-        dc_sum += mean * new
-        blocks += 1
-        ws[r], dcs[r] = w, dc
-    moments = FrontEndMoments(blocks=blocks, dc_estimate=dc, n=n_tot, dc_sum=dc_sum, power=c_tot, pseudo=p_tot,
-                              pseudo_after=p_after_tot, power_after=c_after_tot)
-    return moments, ws, dcs
-
-
 def _block(plans: tuple[ChannelPlan, ...], xb: np.ndarray, new: int, moments: FrontEndMoments,
            block_start: int) -> tuple[list[np.ndarray], FrontEndMoments]:
     """One overlap-save block that is not all input: the stream's first (zeros before sample 0)
@@ -454,7 +311,7 @@ def _block(plans: tuple[ChannelPlan, ...], xb: np.ndarray, new: int, moments: Fr
     hi = n - plan.hop + new
     mean = complex(xb[lo:hi].mean()) if hi > lo else 0j
     fresh = xb[n - plan.hop : n - plan.hop + new]
-    moments, ws, dcs = _steps(moments, np.array([mean]), np.array([np.vdot(fresh, fresh).real]),
+    moments, ws, dcs = run_moments(moments, np.array([mean]), np.array([np.vdot(fresh, fresh).real]),
                               np.array([np.dot(fresh, fresh)]), new, np.array([fresh.sum(dtype=np.complex128)]))
     xb = xb.copy()
     xb[lo:hi] -= np.complex64(dcs[0])
@@ -482,7 +339,7 @@ def _whole_blocks(plans: tuple[ChannelPlan, ...], rows: np.ndarray, moments: Fro
     fresh = [rows[r, lead:] for r in range(count)]
     sums = np.array([np.vdot(f, f).real for f in fresh])
     squares = np.array([np.dot(f, f) for f in fresh])
-    moments, ws, dcs = _steps(moments, means, sums, squares, hop)
+    moments, ws, dcs = run_moments(moments, means, sums, squares, hop)
     specs[:, 0] -= (n * dcs).astype(np.complex64)  # x − dc, for free
     starts = next_sample + np.arange(count) * hop - lead
     return [_to_channel(p, specs, ws, starts) for p in plans], moments
@@ -689,7 +546,7 @@ def _fine_rotation(plan: ChannelPlan, n_out: int, count: int) -> np.ndarray:
     d = plan.decimation
     step = plan.fine_hz * d / plan.sample_rate_hz  # cycles per output sample
     start = np.mod(plan.fine_hz * (n_out * d - plan.delay_samples) / plan.sample_rate_hz, 1.0)
-    return _rotation_steps(step, count) * np.complex64(np.exp(-2j * np.pi * start))
+    return _rotationrun_moments(step, count) * np.complex64(np.exp(-2j * np.pi * start))
 
 
 @functools.lru_cache(maxsize=32)
@@ -700,7 +557,7 @@ def _rotation_table(step: float, length: int) -> np.ndarray:
     return table
 
 
-def _rotation_steps(step: float, count: int) -> np.ndarray:
+def _rotationrun_moments(step: float, count: int) -> np.ndarray:
     """exp(−j2π·step·k) for k < count: exact phases from k, not a recurrence; tables kept per step."""
     length = 1 << max(16, (max(count, 1) - 1).bit_length())
     return _rotation_table(step, length)[:count]

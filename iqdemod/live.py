@@ -21,8 +21,9 @@ from typing import BinaryIO, Iterator
 
 import numpy as np
 
-from .capture import (Capture, CaptureError, CaptureInfo, CaptureStats, DEFAULT_BLOCK_SAMPLES, open_capture,
-                      parse_datatype, sample_converter, sigmf_pair)
+from .capture import Capture, CaptureError, CaptureInfo, CaptureStats, DEFAULT_BLOCK_SAMPLES, open_capture
+from .convert import sample_converter
+from .formats import parse_datatype, sigmf_pair
 
 __all__ = ["LiveCapture", "open_live"]
 

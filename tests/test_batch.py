@@ -290,9 +290,15 @@ def test_raw_and_audio_captures(archive, tmp_path):
     with_rate = B.run_batch([tmp_path / "in"], make_link(datatype="cu8"), report=tmp_path / "a.csv", jobs=1)
     assert [(Path(r.capture).name, r.status, r.frames_crc_ok) for r in with_rate.rows] == [
         ("audio.wav", "ok", 4), ("raw.cu8", "ok", 4)]
-    # a raw file needs its datatype from the link; without it, its row says so
-    without = B.run_batch([tmp_path / "in"], make_link(), report=tmp_path / "b.csv", jobs=1)
-    assert without.rows[1].status == "error" and "give its datatype" in without.rows[1].error
+    # a raw file named by its SigMF datatype needs none from the link; a neutral name does, and
+    # without it its row says so
+    named = B.run_batch([tmp_path / "in"], make_link(), report=tmp_path / "b.csv", jobs=1)
+    assert [(Path(r.capture).name, r.status, r.frames_crc_ok) for r in named.rows] == [
+        ("audio.wav", "ok", 4), ("raw.cu8", "ok", 4)]
+    (tmp_path / "in2").mkdir()
+    (tmp_path / "in2/raw.iq").write_bytes(src.read_bytes())
+    without = B.run_batch([tmp_path / "in2"], make_link(), report=tmp_path / "c.csv", jobs=1)
+    assert without.rows[0].status == "error" and "give its datatype" in without.rows[0].error
 
 
 def test_no_link_anywhere_is_an_error(archive, tmp_path):
