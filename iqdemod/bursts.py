@@ -183,9 +183,9 @@ def _minimum_bias(n_bins: int, n_frames: int) -> float:
     A frame statistic is the mean of `n_bins` independent exponential bins,
     Gamma(K, 1/K); its 1/(n+1) quantile stands for the smallest of n.
     """
-    from scipy.stats import gamma
+    from scipy.special import gammaincinv  # the Gamma(K, 1) quantile, without importing scipy.stats
 
-    return float(gamma.ppf(1.0 / (n_frames + 1), n_bins) / n_bins)
+    return float(gammaincinv(n_bins, 1.0 / (n_frames + 1)) / n_bins)
 
 
 def _floor_from(minima: tuple[float, ...], n_bins: int) -> float:

@@ -63,7 +63,7 @@ from .link import SignalSpec
 
 __all__ = ["ChannelPlan", "ChannelState", "FrontEndMoments", "FrontEndReport", "front_end_report", "plan_channel",
            "plan_channels", "channel_size", "channelize", "channelize_many", "flush_channels", "flush_channel",
-           "STOPBAND_DB"]
+           "STOPBAND_DB", "kaiser_beta", "kaiser_lowpass"]
 
 STOPBAND_DB = 70.0
 MIN_FFT = 1 << 14  # smallest block: keeps the per-block overhead small against the FFT itself
@@ -245,11 +245,7 @@ def plan_channel(sample_rate_hz: float, signal: SignalSpec, offset_hz: float) ->
     """
     fs = float(sample_rate_hz)
     decimation, n_taps, fft_size, passband, stopband = channel_size(fs, signal)
-    from scipy import signal as _sig  # filter design only
-
-    beta = _sig.kaiser_beta(STOPBAND_DB)  # Kaiser's β depends on the attenuation alone
-    taps = _sig.firwin(n_taps, (passband + stopband) / 2, window=("kaiser", beta), fs=fs)
-    taps = taps / taps.sum()
+    taps = kaiser_lowpass(n_taps, (passband + stopband) / 2 / fs, STOPBAND_DB)
     return ChannelPlan(fs, float(offset_hz), decimation, taps, passband, stopband, fft_size)
 
 
@@ -290,11 +286,53 @@ def plan_channels(sample_rate_hz: float, signals: "list[tuple[SignalSpec, float]
 
 
 def _kaiser_taps(ripple_db: float, width: float) -> int:
-    """Kaiser's formula for the length of a window design (odd: an integer delay)."""
-    from scipy import signal as _sig
+    """Kaiser's formula for the length of a window design (odd: an integer delay).
 
-    n, _ = _sig.kaiserord(ripple_db, width)
-    return n | 1
+    N = (A − 7.95)/(2.285·Δω) + 1 with Δω = π·width, width the transition as
+    a fraction of the Nyquist band (Kaiser 1974; Oppenheim & Schafer, the
+    section on the Kaiser window method).
+    """
+    return int(math.ceil((ripple_db - 7.95) / (2.285 * math.pi * width) + 1)) | 1
+
+
+def kaiser_beta(attenuation_db: float) -> float:
+    """Kaiser's β for a stop band `attenuation_db` down (Kaiser 1974; Oppenheim & Schafer).
+
+    Examples
+    --------
+    >>> round(kaiser_beta(70.0), 4)  # 0.1102·(A − 8.7) above 50 dB
+    6.7553
+    >>> round(kaiser_beta(40.0), 4)  # 0.5842·(A − 21)^0.4 + 0.07886·(A − 21) from 21 to 50 dB
+    3.3953
+    """
+    a = float(attenuation_db)
+    if a > 50:
+        return 0.1102 * (a - 8.7)
+    if a >= 21:
+        return 0.5842 * (a - 21) ** 0.4 + 0.07886 * (a - 21)
+    return 0.0
+
+
+def kaiser_lowpass(n_taps: int, cutoff: float, attenuation_db: float) -> np.ndarray:
+    """A linear-phase low-pass FIR by the window method: the ideal sinc response times a Kaiser window.
+
+    `cutoff` is in cycles per sample (½ is the Nyquist frequency); the taps
+    are scaled to unit gain at 0 Hz. The filter design of
+    ``scipy.signal.firwin(n, cutoff, window=("kaiser", β), fs=1)`` in a few
+    lines of numpy, so the receiver's start-up does not import scipy.signal.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from scipy import signal
+    >>> taps = kaiser_lowpass(101, 0.1, 70.0)
+    >>> reference = signal.firwin(101, 0.1, window=("kaiser", kaiser_beta(70.0)), fs=1.0)
+    >>> bool(np.allclose(taps, reference / reference.sum(), rtol=0, atol=1e-15)), round(float(taps.sum()), 12)
+    (True, 1.0)
+    """
+    m = np.arange(n_taps) - (n_taps - 1) / 2.0
+    taps = 2.0 * cutoff * np.sinc(2.0 * cutoff * m) * np.kaiser(n_taps, kaiser_beta(attenuation_db))
+    return taps / taps.sum()
 
 
 def _block(plans: tuple[ChannelPlan, ...], xb: np.ndarray, new: int, moments: FrontEndMoments,

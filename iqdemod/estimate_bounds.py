@@ -11,7 +11,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import integrate, special
+from scipy import special
 
 from iqdemod.errors import EstimateError
 
@@ -46,6 +46,8 @@ def _rician_fisher(snr: float) -> np.ndarray:
 
         lo, hi = max(0.0, root - 12.0), root + 12.0
         pts = [root] if lo < root < hi else None
+        from scipy import integrate  # late: only the bounds integrate
+
         return integrate.quad(f, lo, hi, points=pts, epsabs=1e-13, epsrel=1e-10, limit=200)[0]
 
     j_ss, j_sn, j_nn = entry(0, 0), entry(0, 1), entry(1, 1)

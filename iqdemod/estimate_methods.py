@@ -26,7 +26,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import optimize, special
+from scipy import special
 
 from iqdemod.errors import EstimateError
 from iqdemod.estimate_result import CONFIDENCE, Z90, EbN0Estimate, db_or_minus_inf
@@ -129,6 +129,8 @@ def _invert_increasing(fun, guess: float) -> float:
     if lo <= 1e-9:
         lo = 0.0
     # rtol 1e-9 is far below the interval's meaning (dB to 3 decimals).
+    from scipy import optimize  # late: only the exact interval and the bias map need a root finder
+
     return optimize.brentq(fun, lo, hi, xtol=1e-12, rtol=1e-9)
 
 
@@ -377,6 +379,8 @@ def debias_decision_directed(ebn0_dd):
     arr = np.asarray(ebn0_dd, dtype=float)
     if np.any(np.isnan(arr)):
         raise EstimateError(f"ebn0_dd {ebn0_dd!r}: must not be nan")
+
+    from scipy import optimize  # late: the decoder's import need not pay for it
 
     def one(v: float) -> float:
         if not v > 2.0:
