@@ -347,7 +347,7 @@ def detect(
     window_symbols = present[n_sym : n_sym + k] - present[:k]
 
     yt = np.ascontiguousarray(ypad.T)
-    n_left, left_code, right_row = plan._combine
+    n_left, left_code, right_row = plan.combine_tables
     n_right = n_sym - n_left
     n_h = plan.n_hypotheses
     half_h = n_h // 2

@@ -198,7 +198,7 @@ class SequencePlan:
         return out
 
     @functools.cached_property
-    def _combine(self) -> tuple[int, np.ndarray, np.ndarray]:
+    def combine_tables(self) -> tuple[int, np.ndarray, np.ndarray]:
         """How a window's metric is put together from two half-windows (meet in the middle).
 
         The window's first ``n_left`` slots depend on hypothesis bits
