@@ -338,7 +338,6 @@ def link_to_toml(link: Link, *, comment: str | None = None) -> str:
     offset_hz = 6000
     invert = false
     pulse = "rect"
-    bt = 0.5
     detector_symbols = 5
     <BLANKLINE>
     >>> with tempfile.TemporaryDirectory() as tmp:
@@ -361,6 +360,8 @@ def link_to_toml(link: Link, *, comment: str | None = None) -> str:
     lines = [f"# {line}" for line in (comment or "").splitlines()]
     for name, table in link.as_dict().items():
         items = [(k, v) for k, v in table.items() if v is not None]
+        if name == "signal" and table.get("pulse") == "rect":  # a BT means nothing for a rectangular pulse
+            items = [(k, v) for k, v in items if k != "bt"]
         if not items:
             continue
         lines.append(f"[{name}]")

@@ -240,7 +240,10 @@ class SignalFound:
         >>> (link.signal.baud, link.signal.shift_hz, hex(link.frame.sync_word), link.frame.sync_tolerance)
         (9600.0, 9600.0, '0x9b3c57e1', 3)
         """
-        sig = SignalSpec(baud=float(self.baud), shift_hz=float(self.shift_hz), offset_hz=float(self.offset_hz),
+        # to a precision well below what the survey measures (a baud to 0.001 Bd, frequencies to 0.1 Hz),
+        # so that the written profile reads as figures, not as floating-point noise
+        sig = SignalSpec(baud=round(float(self.baud), 3), shift_hz=round(float(self.shift_hz), 1),
+                         offset_hz=round(float(self.offset_hz), 1),
                          **pulse_options(self.pulse, self.bt))
         if self.sync_word is None or self.length is None:
             frame = FrameSpec(sync_word=None, crc="none")
