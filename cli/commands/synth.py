@@ -39,7 +39,7 @@ DEFAULT_RATE = 1_024_000
               show_default=True, help="Capture centre frequency written to the metadata, Hz.")
 @click.option("--seed", type=click.IntRange(0, SY.MAX_SEED), default=1, show_default=True,
               help="Random seed (the same seed gives the same file).")
-@click.option("--start-time", default=None, help="SigMF core:datetime to record (RFC 3339, UTC); default now.")
+@click.option("--start-time", default=None, metavar="TIME", help="SigMF core:datetime to record (RFC 3339, UTC); default now.")
 @click.option("-q", "--quiet", is_flag=True, help="No progress bar and no summary line.")
 def command(output, ebn0, n_frames, freq_error, clock_ppm, gap, noise_rms, centre_hz, seed, start_time,
             quiet, **link_kw) -> None:
