@@ -199,17 +199,24 @@ class DecodeSummary:
         Frames whose CRC is good.
     stats : CaptureStats or None
         The reader's counts (samples read, clipped, non-finite, cut bytes).
+    links : tuple of (str, int, int)
+        With several named links: each link's name, frames and good frames.
     """
 
     bursts: int = 0
     frames: int = 0
     good: int = 0
     stats: CaptureStats | None = None
+    links: tuple[tuple[str, int, int], ...] = ()
 
     def counted(self, burst: Burst) -> "DecodeSummary":
         """This summary with one more demodulated transmission counted."""
+        links = self.links
+        if links and burst.frames:
+            links = tuple((name, n + sum(f.link == name for f in burst.frames),
+                           good + sum(f.link == name and f.crc_ok for f in burst.frames)) for name, n, good in links)
         return dataclasses.replace(self, bursts=self.bursts + (burst.piece == 0), frames=self.frames + len(burst.frames),
-                                   good=self.good + sum(f.crc_ok for f in burst.frames))
+                                   good=self.good + sum(f.crc_ok for f in burst.frames), links=links)
 
 
 class Decoding:
@@ -220,7 +227,8 @@ class Decoding:
 
     def __init__(self, path, link, *, block_samples: int, progress: bool, start_time: str | None):
         self._args = (path, link, block_samples, progress, start_time)
-        self._summary = DecodeSummary()
+        names = _named_links(link)[1]
+        self._summary = DecodeSummary(links=tuple((n, 0, 0) for n in names if n is not None) if len(names) > 1 else ())
         self._started = False
 
     @property

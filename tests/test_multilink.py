@@ -149,3 +149,15 @@ def test_command_line_takes_several_profiles_in_one_pass(two_fleets, tmp_path):
     before = slow.read_bytes()
     res = CliRunner().invoke(main, ["decode", str(meta), "--link", str(fast), "--link", str(slow), "-o", str(slow)])
     assert res.exit_code != 0 and "--link profile" in res.output and slow.read_bytes() == before
+
+
+def test_the_summary_counts_each_link(two_fleets):
+    meta, truth, txs = two_fleets
+    links = dict(_links(), **{"empty channel": iqdemod.load_link(None, **COMMON, **dict(FAST, offset=300_000))})
+    decoding = iqdemod.decode(meta, links)
+    frames = list(decoding)
+    counts = {name: (n, good) for name, n, good in decoding.summary.links}
+    assert counts["empty channel"] == (0, 0)
+    for name in ("harbour-fast", "harbour-slow"):
+        mine = [f for f in frames if f.link == name]
+        assert counts[name] == (len(mine), sum(f.crc_ok for f in mine)) and counts[name][1] == 3
