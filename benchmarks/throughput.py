@@ -97,13 +97,11 @@ def floor_pass(data: Path, kind: str) -> tuple[float, int]:
     return time.perf_counter() - t0, total
 
 
-def best_of(repeat: int, fn) -> tuple[float, object]:
-    best, result = float("inf"), None
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        result = fn()
-        best = min(best, time.perf_counter() - t0)
-    return best, result
+def timed(fn) -> tuple[float, object]:
+    """(wall seconds, result) of one call."""
+    t0 = time.perf_counter()
+    result = fn()
+    return time.perf_counter() - t0, result
 
 
 def links_for(k: int) -> dict[str, iqdemod.Link]:
@@ -121,7 +119,7 @@ def in_process(meta: Path, kind: str, repeat: int) -> dict:
     for _ in range(repeat):  # alternate, so that both see the same load on a shared machine
         t, n = floor_pass(data, kind)
         t_floor = min(t_floor, t)
-        t, frames = best_of(1, lambda: list(iqdemod.decode(meta, link)))
+        t, frames = timed(lambda: list(iqdemod.decode(meta, link)))
         t_dec = min(t_dec, t)
     return {
         "samples": n,
@@ -156,7 +154,7 @@ def several_links(meta: Path, ks: list[int], repeat: int) -> dict:
     found: dict[int, int] = {}
     for _ in range(repeat):  # alternate the k's, so that each sees the same load
         for k in ks:
-            t, frames = best_of(1, lambda: list(iqdemod.decode(meta, links_for(k))))
+            t, frames = timed(lambda: list(iqdemod.decode(meta, links_for(k))))
             times[k] = min(times[k], t)
             found[k] = sum(f.crc_ok for f in frames)
     base = times[min(ks)]

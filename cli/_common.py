@@ -119,13 +119,18 @@ def link_from_options(kw: dict[str, Any], *, optional: bool = False) -> iqdemod.
     and neither --baud nor --shift, which every link needs) gives None, for a
     command that can find links elsewhere (batch: a folder's link.toml).
     """
-    overrides = link_overrides(kw)
-    path = kw.pop("link", None)
-    for name in overrides:
-        kw.pop(name, None)
+    path, overrides = _pop_link_options(kw)
     if optional and path is None and overrides["baud"] is None and overrides["shift"] is None:
         return None
     return iqdemod.load_link(path, **overrides)
+
+
+def _pop_link_options(kw: dict[str, Any]) -> tuple[Any, dict[str, Any]]:
+    """Take ``--link`` and the override flags out of `kw`: (the --link value, the overrides)."""
+    overrides = link_overrides(kw)
+    for name in overrides:
+        kw.pop(name, None)
+    return kw.pop("link", None), overrides
 
 
 def links_from_options(kw: dict[str, Any]) -> tuple[iqdemod.Link | dict[str, iqdemod.Link], list[Path]]:
@@ -135,18 +140,12 @@ def links_from_options(kw: dict[str, Any]) -> tuple[iqdemod.Link | dict[str, iqd
     :func:`link_from_options` does; several give a dict of named links. Also
     returns the profile paths (inputs that no output may replace).
     """
-    paths = list(kw.get("link") or ())
-    if len(paths) <= 1:
-        kw["link"] = paths[0] if paths else None
-        try:
-            return link_from_options(dict(kw)), paths
-        except iqdemod.errors.LinkError as exc:
-            if "[[signal]] entries" not in str(exc):
-                raise
-    overrides = link_overrides(kw)
-    for name in (*overrides, "link"):
-        kw.pop(name, None)
-    return iqdemod.load_links(paths, **overrides), paths
+    given, overrides = _pop_link_options(kw)
+    paths = list(given or ())
+    if not paths:  # flags alone
+        return iqdemod.load_link(None, **overrides), paths
+    links = iqdemod.load_links(paths, **overrides)
+    return (next(iter(links.values())) if len(links) == 1 else links), paths
 
 
 def say(message: str) -> None:

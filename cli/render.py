@@ -85,7 +85,7 @@ def decode_summary(summary, name: str, *, raw: bool) -> str:
                 "raw mode (no sync word): no CRC checked")
     else:
         text = f"{name}: {summary.bursts} burst(s), {summary.frames} frame(s), {summary.good} good"
-        if getattr(summary, "links", ()):
+        if summary.links:
             text += " (" + "; ".join(f"{link}: {n} frame(s), {good} good" for link, n, good in summary.links) + ")"
     if summary.stats is not None and summary.stats.clipped:
         text += f", {summary.stats.clipped_fraction:.3%} clipped"

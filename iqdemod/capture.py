@@ -34,7 +34,7 @@ import numpy as np
 from .convert import Converter, pile_up, sample_converter
 from .errors import CaptureError, quote
 from .formats import (CAPTURE_FORMATS, CAPTURE_SUFFIXES, MAX_META_BYTES, RAW_SUFFIXES, SIGMF_COMPLEX_DATATYPES,
-                      SIGMF_DATA, SIGMF_META, Datatype, capture_files, capture_format, parse_datatype,
+                      SIGMF_DATA, SIGMF_META, Datatype, capture_files, capture_format, datatype_of_name, parse_datatype,
                       parse_sigmf_meta, read_sigmf_meta, sigmf_pair)
 
 __all__ = [
@@ -421,12 +421,6 @@ def _open_audio(path: Path) -> Capture:
     return Capture(info)
 
 
-def _datatype_of_name(path: Path) -> str | None:
-    """The SigMF datatype a raw file's suffix names (``night.ci16_le`` → ci16_le), else None."""
-    suffix = path.suffix.lower()[1:]
-    return suffix if suffix in SIGMF_COMPLEX_DATATYPES else None
-
-
 def open_capture(path: str | os.PathLike, *, datatype: str | None = None, sample_rate: float | None = None) -> Capture:
     """Open a capture for block reading.
 
@@ -516,7 +510,7 @@ def open_capture(path: str | os.PathLike, *, datatype: str | None = None, sample
     if fmt == "sigmf-archive":
         return _open_sigmf_archive(p, sample_rate)
     if datatype is None:
-        datatype = _datatype_of_name(p)
+        datatype = datatype_of_name(p)
     if datatype is None:
         raise CaptureError(f"{p}: raw capture without metadata: give its datatype (--datatype, e.g. cu8)")
     if sample_rate is None:

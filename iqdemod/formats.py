@@ -32,6 +32,7 @@ __all__ = [
     "Datatype",
     "parse_datatype",
     "capture_format",
+    "datatype_of_name",
     "capture_files",
     "sigmf_pair",
     "read_sigmf_meta",
@@ -68,6 +69,18 @@ CAPTURE_FORMATS = {
 
 
 CAPTURE_SUFFIXES = tuple(CAPTURE_FORMATS)
+
+
+def datatype_of_name(path: str | os.PathLike) -> str | None:
+    """The SigMF datatype a raw file's name gives by its suffix, else None.
+
+    Examples
+    --------
+    >>> datatype_of_name("night.cu8"), datatype_of_name("gauge.CI16_LE"), datatype_of_name("night.raw")
+    ('cu8', 'ci16_le', None)
+    """
+    suffix = Path(path).suffix.lower()[1:]
+    return suffix if suffix in SIGMF_COMPLEX_DATATYPES else None
 
 
 def capture_format(path: str | os.PathLike) -> str | None:

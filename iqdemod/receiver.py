@@ -88,60 +88,36 @@ class Receiver:
 
     def feed(self, block: np.ndarray) -> list[Burst]:
         """Process one block of input samples; return the bursts it completed (every link's)."""
-        return [b for k, raw in self.detect_all(self.tune_all(block)) for b in self.demodulate(raw, k)]
+        return [b for k, raw in self.buffers(block) for b in self.demodulate(raw, k)]
 
     def flush(self) -> list[Burst]:
         """End of input: hand out the bursts still open (every link's)."""
-        found = self.detect_all(self.tune_end_all()) + self.detect_end_all()
-        return [b for k, raw in found for b in self.demodulate(raw, k)]
+        return [b for k, raw in self.end_buffers() for b in self.demodulate(raw, k)]
 
-    def tune(self, block: np.ndarray) -> np.ndarray:
-        """The front end alone on one block: the first link's channel samples."""
-        return self.tune_all(block)[0]
-
-    def tune_end(self) -> np.ndarray:
-        """The front end's last channel samples (the first link's), at the end of input."""
-        return self.tune_end_all()[0]
-
-    def tune_all(self, block: np.ndarray) -> list[np.ndarray]:
-        """The front end on one block: every link's channel samples, from one FFT pass."""
+    def buffers(self, block: np.ndarray) -> list[tuple[int, RawBurst]]:
+        """The front end and the burst detectors on one block (the first half of :meth:`feed`):
+        the detector buffers it completed, as (link index, buffer) in order of start."""
         ys, self._tuner = channelize_many(block, self._tuners, self._tuner)
-        return ys
+        return self._in_order([(k, raw) for k, y in enumerate(ys) for raw in self._detect(y, k)])
 
-    def tune_end_all(self) -> list[np.ndarray]:
-        """Every link's last channel samples, at the end of input."""
+    def end_buffers(self) -> list[tuple[int, RawBurst]]:
+        """End of input (the first half of :meth:`flush`): the front end's last samples through the
+        detectors, then the buffers the detectors still hold."""
         ys, self._tuner = flush_channels(self._tuners, self._tuner)
-        return ys
+        found = [(k, raw) for k, y in enumerate(ys) for raw in self._detect(y, k)]
+        for k, plan in enumerate(self.plans):
+            held, self._detectors[k] = _bursts.flush(plan.detector, self._detectors[k])
+            found += [(k, raw) for raw in held]
+        return self._in_order(found)
 
-    def take(self, y: np.ndarray, link: int = 0) -> list[Burst]:
-        """One link's channel samples in, the bursts they completed out."""
-        return [burst for raw in self.detect(y, link) for burst in self.demodulate(raw, link)]
-
-    def detect(self, y: np.ndarray, link: int = 0) -> list[RawBurst]:
-        """The burst detector alone: one link's channel samples in, the detector buffers they completed out."""
+    def _detect(self, y: np.ndarray, link: int) -> list[RawBurst]:
         found, self._detectors[link] = _bursts.detect(y, self.plans[link].detector, self._detectors[link])
         return found
-
-    def detect_end(self, link: int = 0) -> list[RawBurst]:
-        """End of input, after the front end's last samples went through :meth:`detect`: the buffers still open."""
-        found, self._detectors[link] = _bursts.flush(self.plans[link].detector, self._detectors[link])
-        return found
-
-    def detect_all(self, ys: list[np.ndarray]) -> list[tuple[int, RawBurst]]:
-        """Every link's detector on its channel samples: (link index, buffer) pairs, in order of start."""
-        return self._in_order([(k, raw) for k, y in enumerate(ys) for raw in self.detect(y, k)])
-
-    def detect_end_all(self) -> list[tuple[int, RawBurst]]:
-        return self._in_order([(k, raw) for k in range(len(self.plans)) for raw in self.detect_end(k)])
 
     def _in_order(self, found: list[tuple[int, RawBurst]]) -> list[tuple[int, RawBurst]]:
         if len(self.plans) > 1:
             found.sort(key=lambda item: item[1].start * self.plans[item[0]].tuner.decimation)
         return found
-
-    def close_detector(self) -> list[Burst]:
-        """After the front end's last samples went through :meth:`take`: the bursts the detector still holds."""
-        return [burst for raw in self.detect_end() for burst in self.demodulate(raw)]
 
     @property
     def front_end(self) -> FrontEndReport:
@@ -227,7 +203,8 @@ class Decoding:
 
     def __init__(self, path, link, *, block_samples: int, progress: bool, start_time: str | None):
         self._args = (path, link, block_samples, progress, start_time)
-        names = _named_links(link)[1]
+        links, names = _named_links(link)
+        self._first = links[0]  # its capture table names a raw file's datatype and rate
         self._summary = DecodeSummary(links=tuple((n, 0, 0) for n in names if n is not None) if len(names) > 1 else ())
         self._started = False
 
@@ -244,7 +221,7 @@ class Decoding:
 
     def _frames(self) -> Iterator[Frame]:
         path, link, block_samples, progress, start_time = self._args
-        first = _named_links(link)[0][0]
+        first = self._first
         with contextlib.ExitStack() as stack:
             cap = path if isinstance(path, Capture) else stack.enter_context(
                 open_capture(path, datatype=first.capture.datatype, sample_rate=first.capture.sample_rate)
@@ -341,8 +318,8 @@ def drive(rx: "Receiver", capture: Capture, *, block_samples: int = DEFAULT_BLOC
 
     def buffers() -> Iterator[tuple[list[tuple[int, RawBurst]], int]]:
         for block in capture.blocks(block_samples):
-            yield rx.detect_all(rx.tune_all(block)), len(block)
-        yield rx.detect_all(rx.tune_end_all()) + rx.detect_end_all(), 0
+            yield rx.buffers(block), len(block)
+        yield rx.end_buffers(), 0
 
     # Reading, the front end and the burst detector run one block ahead in a second thread
     # while this one demodulates: the FFTs and reads release the interpreter lock, the
