@@ -38,8 +38,8 @@ DETECTOR_BINS = 24  # FFT bins in the band per detector frame (sets the frame le
 MIN_DETECTOR_BINS = 16
 ON_SIGMAS, OFF_SIGMAS = 6.0, 3.0  # the hysteresis, in standard deviations of the noise statistic over the floor
 MIN_BURST_FRAMES = 3  # shorter bursts are the noise's own peaks
-GROUPING_BURSTS = 256
-KEPT_BAND = 2.0  # the front end's flat pass band, in half-widths of the band watched  # bursts compared when deciding whether two bands are one signal
+GROUPING_BURSTS = 256  # bursts compared when deciding whether two bands are one signal
+KEPT_BAND = 2.0  # the front end's flat pass band, in half-widths of the band watched
 
 
 def band_channel(sample_rate_hz: float, centre_hz: float, half_width_hz: float) -> ChannelPlan:
@@ -60,7 +60,7 @@ def band_channel(sample_rate_hz: float, centre_hz: float, half_width_hz: float) 
     --------
     >>> plan = band_channel(1_024_000, -213_000.0, 4000.0)
     >>> plan.passband_hz, plan.decimation, plan.offset_hz
-    (8000.0, 51, -213000.0)
+    (8000.0, 50, -213000.0)
     """
     half = min(float(half_width_hz), 0.45 * float(sample_rate_hz))
     baud = 0.625 * half
