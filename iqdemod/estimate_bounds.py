@@ -11,7 +11,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import special
 
 from iqdemod.errors import EstimateError
 
@@ -28,6 +27,8 @@ def _rician_fisher(snr: float) -> np.ndarray:
         d/dS ln f = -1 + A r / sqrt(S)
         d/dN ln f = -1 + r^2 + S - A u
     """
+    from scipy import special  # late: the decoder's import need not pay for it
+
     root = math.sqrt(snr)
 
     def parts(r):

@@ -26,7 +26,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import special
 
 from iqdemod.errors import EstimateError
 from iqdemod.estimate_result import CONFIDENCE, Z90, EbN0Estimate, db_or_minus_inf
@@ -105,6 +104,8 @@ def _ncf_cdf(x: float, dof: float, nc: float) -> float:
     5 % points are needed, and ``stats.ncf.sf`` is wrong at ``nc = 0`` in
     scipy 1.17 (it returns ``-cdf``; scipy issue 26188).
     """
+    from scipy import special  # late: the decoder's (and its worker's) import need not pay for it
+
     return float(special.ncfdtr(dof, dof, nc, x))
 
 

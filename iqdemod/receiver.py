@@ -25,6 +25,7 @@ from typing import Iterator, Mapping, Sequence
 import numpy as np
 
 from . import bursts as _bursts
+from .burst_pool import BurstPool, worth_a_pool
 from .bursts import RawBurst
 from .capture import Capture, CaptureInfo, CaptureStats, DEFAULT_BLOCK_SAMPLES, open_capture
 from .channel import FrontEndReport, channelize_many, flush_channels, front_end_report
@@ -126,10 +127,16 @@ class Receiver:
 
     def demodulate(self, raw: RawBurst, link: int = 0) -> list[Burst]:
         """One detector buffer of a link demodulated: its transmissions, in time order, frames not yet handed out."""
+        return self.accept(demodulate_burst(raw, self.plans[link], capture=self._name), link)
+
+    def accept(self, demodulated: list[Burst], link: int = 0) -> list[Burst]:
+        """The second half of :meth:`demodulate`, for a buffer demodulated elsewhere (a
+        :class:`iqdemod.burst_pool.BurstPool`): frames get their time and link name, and frames
+        an overlapping piece already handed out are dropped. Buffers must come in order."""
         out = []
-        plan, name = self.plans[link], self.names[link]
-        half = 0.5 * plan.sample_rate_hz / plan.link.signal.baud
-        for burst in demodulate_burst(raw, plan, capture=self._name):
+        name = self.names[link]
+        half = 0.5 * self.plans[link].sample_rate_hz / self.plans[link].link.signal.baud
+        for burst in demodulated:
             if burst.frames and (self._start is not None or name is not None):
                 burst = dataclasses.replace(burst, frames=tuple(dataclasses.replace(
                     f, time_utc=None if self._start is None else _utc(self._start, f.t_s), link=name)
@@ -321,6 +328,14 @@ def drive(rx: "Receiver", capture: Capture, *, block_samples: int = DEFAULT_BLOC
             yield rx.buffers(block), len(block)
         yield rx.end_buffers(), 0
 
+    if PIPELINE and worth_a_pool(capture.info.n_samples):
+        # a long capture: the per-burst work goes to a worker process (see iqdemod.burst_pool)
+        try:
+            yield from _pooled(rx, buffers(), bar)
+        finally:
+            if bar is not None:
+                bar.close()
+        return
     # Reading, the front end and the burst detector run one block ahead in a second thread
     # while this one demodulates: the FFTs and reads release the interpreter lock, the
     # per-burst work mostly holds it, so both cores work. The order of everything is unchanged.
@@ -338,6 +353,20 @@ def drive(rx: "Receiver", capture: Capture, *, block_samples: int = DEFAULT_BLOC
 
 
 PIPELINE = True  # batch workers, one process per core, turn this off
+
+
+def _pooled(rx: "Receiver", source: Iterator[tuple[list[tuple[int, RawBurst]], int]], bar) -> Iterator[Burst]:
+    """:func:`drive` with the front end here and the per-burst work shared with a worker process."""
+    with BurstPool(rx.plans, rx._name) as pool:
+        for found, n in source:
+            for k, raw in found:
+                pool.put(k, raw)
+            for k, bursts in pool.ready():
+                yield from rx.accept(bursts, k)
+            if bar is not None and n:
+                bar.update(n)
+        for k, bursts in pool.finish():
+            yield from rx.accept(bursts, k)
 
 
 def _ahead(items: Iterator, depth: int = 2) -> Iterator:

@@ -14,7 +14,6 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import special
 
 from .errors import LinkError
 
@@ -35,6 +34,8 @@ def _gaussian_raw_q(t, sigma):
     g = rect(1 symbol) ⊛ N(0, σ²) is [Φ((t + ½)/σ) − Φ((t − ½)/σ)]/2; with
     ∫Φ(x/σ)dx = x·Φ(x/σ) + σ·φ(x/σ) its integral is [G(t + ½) − G(t − ½)]/2.
     """
+    from scipy import special  # late: the decoder's import need not pay for it
+
     t = np.asarray(t, dtype=np.float64)
 
     def big_g(x):
@@ -309,6 +310,8 @@ def frequency_pulse(t, plan: SequencePlan) -> np.ndarray:
     half = plan.span_symbols / 2.0
     s = plan.sigma_symbols
     lo, hi = plan._q_ends
+    from scipy import special  # late: the decoder's import need not pay for it
+
     raw = (special.ndtr((t + 0.5) / s) - special.ndtr((t - 0.5) / s)) / 2.0
     return np.where(np.abs(t) <= half, raw / (2.0 * (hi - lo)), 0.0)
 

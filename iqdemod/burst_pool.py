@@ -1,0 +1,268 @@
+"""The per-burst work in a second process, so that the front end and the demodulator each have a core.
+
+In one process the two share the interpreter lock. The front end's FFTs and
+reads release it, but the per-burst work is many small numpy calls that mostly
+hold it: on the throughput benchmark (60 s of cf32, 600 bursts) the two
+threads together spent 2.4 s of CPU on what takes 1.0 s (front end) and 0.6 s
+(bursts) apart, and run as two processes they take no longer than apart.
+
+A :class:`BurstPool` keeps one worker process, ``python -m
+iqdemod.burst_worker``, fed through pipes: the receiver's plans once, then the
+detector buffers, a few at a time (``IN_FLIGHT``); a thread reads the answers
+back. A plain child process rather than :mod:`multiprocessing`: its *spawn*
+would run the caller's main script again in the child (a script without the
+``if __name__ == "__main__"`` guard would fail), and *fork* is unsafe in a
+process with threads. Results come back in the order the buffers went in.
+:func:`iqdemod.demod.demodulate_burst` is a pure function of (buffer, plan), so
+the frames are the same either way (``tests/test_burst_pool.py`` checks it).
+
+Nothing waits on a worker that is not keeping up. While it starts (it imports
+numpy and the demodulator, about half a second), and whenever more than
+``BACKLOG`` buffers wait for it, the calling process demodulates the oldest
+waiting buffers itself. At the end of the input it takes them from the back
+of the queue while the worker works from the front. A worker that fails or
+dies leaves its buffers to the calling process, which raises any error there.
+"""
+
+from __future__ import annotations
+
+import collections
+import os
+import pickle
+import queue
+import subprocess
+import sys
+import threading
+from pathlib import Path
+from typing import Iterator, Sequence
+
+from .bursts import RawBurst
+from .demod import Burst, demodulate_burst
+from .plan import ReceiverPlan
+
+__all__ = ["BurstPool", "POOL_MIN_SAMPLES", "BACKLOG", "IN_FLIGHT", "worth_a_pool"]
+
+POOL_MIN_SAMPLES = 1 << 24  # below this (16 s at 1 MS/s) the worker's start would cost more than it saves
+BACKLOG = 256  # buffers waiting for the worker before the calling process takes some itself
+IN_FLIGHT = 4  # buffers sent to the worker and not yet answered
+WORKER_MODULE = "iqdemod.burst_worker"  # run as ``python -m``
+
+_HELD, _SENT, _HERE = "held", "sent", "here"
+
+
+def worth_a_pool(n_samples: int | None) -> bool:
+    """Whether a capture of `n_samples` input samples (None: unknown, a stream) is decoded with a worker.
+
+    Examples
+    --------
+    >>> worth_a_pool(None), worth_a_pool(1000)
+    (False, False)
+    """
+    return bool(n_samples) and n_samples >= POOL_MIN_SAMPLES and (os.cpu_count() or 1) >= 2
+
+
+class BurstPool:
+    """Detector buffers in, their demodulated bursts out in the same order, the work shared with a worker.
+
+    Parameters
+    ----------
+    plans : sequence of ReceiverPlan
+        The receiver's plans, one per link; :meth:`put`'s `link` indexes them.
+    capture : str
+        The name the frames carry.
+
+    Examples
+    --------
+    Used as a context manager: :meth:`put` each buffer, take what is
+    :meth:`ready` as you go, and :meth:`finish` at the end. Here, a capture
+    of three buoy frames whose buffers are all put first:
+
+    >>> import os, tempfile
+    >>> from iqdemod.profile import load_link
+    >>> from iqdemod.receiver import Receiver
+    >>> from iqdemod.capture import open_capture
+    >>> from iqdemod.synth import SynthConfig, synthesize
+    >>> link = load_link(None, rate=48000, baud=1200, shift=1200, offset=6000, sync="0x2DD4", sync_bits=16, length=12)
+    >>> tmp = tempfile.TemporaryDirectory()
+    >>> base = os.path.join(tmp.name, "buoys")
+    >>> truth = synthesize(base, SynthConfig(link=link, ebn0_db=(14.0,), n_frames=3, seed=5))
+    >>> with open_capture(base + ".sigmf-meta") as capture:
+    ...     rx = Receiver(link, capture.info)
+    ...     found = [item for block in capture.blocks() for item in rx.buffers(block)] + rx.end_buffers()
+    >>> with BurstPool(rx.plans, "buoys") as pool:
+    ...     for k, raw in found:
+    ...         pool.put(k, raw)
+    ...     done = list(pool.finish())
+    >>> [f.crc_ok for k, bursts in done for b in bursts for f in b.frames]
+    [True, True, True]
+    >>> tmp.cleanup()
+    """
+
+    def __init__(self, plans: Sequence[ReceiverPlan], capture: str):
+        self._plans = tuple(plans)
+        self._capture = capture
+        self._seq = 0
+        # Entries in order: [seq, link, buffer, state], the state _HELD, _SENT, _HERE or the bursts.
+        # The writer and reader threads and the caller share them under one condition.
+        self._queue: collections.deque[list] = collections.deque()
+        self._held: collections.deque[list] = collections.deque()  # entries not yet sent, oldest first
+        self._sent: dict[int, list] = {}
+        self._cv = threading.Condition()
+        self._alive = True  # the worker answers
+        self._closing = False
+        env = dict(os.environ)
+        root = str(Path(__file__).resolve().parent.parent)  # the worker imports this very iqdemod
+        env["PYTHONPATH"] = os.pathsep.join(p for p in (root, env.get("PYTHONPATH")) if p)
+        try:
+            self._proc: subprocess.Popen | None = subprocess.Popen(
+                [sys.executable, "-m", WORKER_MODULE], stdin=subprocess.PIPE, stdout=subprocess.PIPE,
+                env=env)
+        except OSError:
+            self._proc, self._alive = None, False
+            return
+        self._threads = [threading.Thread(target=self._write, name="iqdemod-burst-jobs", daemon=True),
+                         threading.Thread(target=self._read, name="iqdemod-burst-answers", daemon=True)]
+        for t in self._threads:
+            t.start()
+
+    def __enter__(self) -> "BurstPool":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+    def close(self) -> None:
+        """End the worker; buffers not yet handed back are dropped."""
+        with self._cv:
+            self._closing, self._alive = True, False
+            self._queue.clear()
+            self._held.clear()
+            self._sent.clear()
+            self._cv.notify_all()
+        proc, self._proc = self._proc, None
+        if proc is None:
+            return
+        for t in self._threads[:1]:
+            t.join(timeout=2.0)
+        try:
+            proc.stdin.close()
+        except OSError:
+            pass
+        try:
+            proc.wait(timeout=2.0)
+        except subprocess.TimeoutExpired:  # busy with a buffer nobody wants any more
+            proc.kill()
+            proc.wait()
+        for t in self._threads[1:]:
+            t.join(timeout=2.0)
+        proc.stdout.close()
+
+    def put(self, link: int, raw: RawBurst) -> None:
+        """Hand over one detector buffer of link number `link`."""
+        entry = [self._seq, link, raw, _HELD]
+        self._seq += 1
+        with self._cv:
+            self._queue.append(entry)
+            self._held.append(entry)
+            self._cv.notify_all()
+
+    def ready(self) -> Iterator[tuple[int, list[Burst]]]:
+        """(link, bursts) of the buffers demodulated so far, in order; takes on work if the worker lags."""
+        while True:
+            yield from self._heads()
+            with self._cv:
+                backlog = len(self._held) > (BACKLOG if self._alive else 0)
+                entry = self._take(newest=False) if backlog else None
+            if entry is None:
+                return
+            self._here(entry)
+
+    def finish(self) -> Iterator[tuple[int, list[Burst]]]:
+        """End of input: every remaining buffer's (link, bursts), in order."""
+        while True:
+            yield from self._heads()
+            with self._cv:
+                if not self._queue:
+                    return
+                entry = self._take(newest=True)  # the worker works from the front
+                if entry is None:  # all with the worker: wait for its next answer
+                    self._cv.wait_for(lambda: not self._alive or self._done(self._queue[0]) or bool(self._held))
+                    continue
+            self._here(entry)
+
+    # ------------------------------------------------------------------ internals
+    @staticmethod
+    def _done(entry: list) -> bool:
+        return not isinstance(entry[3], str)
+
+    def _heads(self) -> Iterator[tuple[int, list[Burst]]]:
+        while True:
+            with self._cv:
+                if not self._queue or not self._done(self._queue[0]):
+                    return
+                entry = self._queue.popleft()
+            yield entry[1], entry[3]
+
+    def _take(self, *, newest: bool) -> list | None:
+        """A held entry (the oldest or the newest) for the caller to demodulate; call under the lock."""
+        if not self._held:
+            return None
+        entry = self._held.pop() if newest else self._held.popleft()
+        entry[3] = _HERE
+        return entry
+
+    def _here(self, entry: list) -> None:
+        bursts = demodulate_burst(entry[2], self._plans[entry[1]], capture=self._capture)
+        with self._cv:
+            entry[2], entry[3] = None, bursts
+
+    def _write(self) -> None:
+        """The writer thread: the plans, then held buffers, oldest first, while fewer than IN_FLIGHT are out."""
+        stdin = self._proc.stdin
+        job = (self._plans, self._capture)
+        while True:
+            try:
+                pickle.dump(job, stdin, protocol=pickle.HIGHEST_PROTOCOL)
+                stdin.flush()
+            except (OSError, ValueError):  # the worker has gone
+                self._lost()
+                return
+            with self._cv:
+                self._cv.wait_for(lambda: self._closing or not self._alive
+                                  or (len(self._sent) < IN_FLIGHT and bool(self._held)))
+                if self._closing or not self._alive:
+                    return
+                entry = self._held.popleft()
+                entry[3] = _SENT
+                self._sent[entry[0]] = entry
+                job = (entry[0], entry[1], entry[2])
+
+    def _read(self) -> None:
+        """The reader thread: the worker's answers, until it ends."""
+        stream = self._proc.stdout
+        while True:
+            try:
+                seq, bursts, failed = pickle.load(stream)
+            except (EOFError, OSError, pickle.UnpicklingError, ValueError):
+                self._lost()
+                return
+            with self._cv:
+                entry = self._sent.pop(seq, None)
+                if entry is not None:
+                    if failed:  # done again by the caller, so that its error is raised there
+                        entry[3] = _HELD
+                        self._held.appendleft(entry)
+                    else:
+                        entry[2], entry[3] = None, bursts
+                self._cv.notify_all()
+
+    def _lost(self) -> None:
+        """The worker has gone: what it held goes back to the caller, in order."""
+        with self._cv:
+            self._alive = False
+            back = sorted(self._sent.values(), key=lambda e: e[0])
+            self._sent.clear()
+            for entry in reversed(back):
+                entry[3] = _HELD
+                self._held.appendleft(entry)
+            self._cv.notify_all()

@@ -1,0 +1,78 @@
+"""The worker process of :class:`iqdemod.burst_pool.BurstPool`: detector buffers in on stdin, bursts out on stdout.
+
+Run as ``python -m iqdemod.burst_worker`` by the pool, never by hand. The
+stream is a sequence of pickles: first ``(plans, capture)``, then one job
+``(seq, link, buffer)`` after another; each answer is ``(seq, bursts, failed)``,
+where `failed` is True when :func:`iqdemod.demod.demodulate_burst` raised (the
+pool then demodulates that buffer itself, so the error surfaces there, with
+its own traceback). The worker ends when its input ends. Anything printed
+goes to stderr: stdout carries only the answers.
+"""
+
+from __future__ import annotations
+
+import pickle
+import signal
+import sys
+from typing import BinaryIO
+
+__all__ = ["serve"]
+
+
+def serve(inp: BinaryIO, out: BinaryIO) -> None:
+    """Answer jobs read from `inp` on `out` until `inp` ends (the protocol above).
+
+    Examples
+    --------
+    One detector buffer of a buoy frame, as the pool would send it, answered
+    with its bursts:
+
+    >>> import io, pickle
+    >>> import numpy as np
+    >>> from iqdemod.bursts import RawBurst
+    >>> from iqdemod.framing import frame_bits
+    >>> from iqdemod.plan import plan_receiver
+    >>> from iqdemod.profile import load_link
+    >>> link = load_link(None, baud=1200, shift=1200, offset=6000, sync="0x2DD4", sync_bits=16, length=12)
+    >>> plan = plan_receiver(link, 48000)
+    >>> bits = np.concatenate([np.tile([1, 0], 16), frame_bits(b"buoy-7 12.5C", link.frame), np.zeros(8, np.uint8)])
+    >>> x = np.exp(2j * np.pi * np.cumsum(np.repeat(np.where(bits == 1, 600.0, -600.0), 8)) / 9600)
+    >>> y = np.concatenate([np.zeros(400), x, np.zeros(400)]).astype(np.complex64)
+    >>> jobs = io.BytesIO(pickle.dumps(((plan,), "buoys")) + pickle.dumps((7, 0, RawBurst(0, 0, y, (400, 400 + len(x))))))
+    >>> answers = io.BytesIO()
+    >>> serve(jobs, answers)
+    >>> seq, bursts, failed = pickle.loads(answers.getvalue())
+    >>> seq, failed, [(f.payload, f.crc_ok) for b in bursts for f in b.frames]
+    (7, False, [(b'buoy-7 12.5C', True)])
+    """
+    from iqdemod.demod import demodulate_burst
+
+    try:
+        plans, capture = pickle.load(inp)
+    except EOFError:
+        return
+    while True:
+        try:
+            seq, link, raw = pickle.load(inp)
+        except EOFError:
+            return
+        try:
+            answer = (seq, demodulate_burst(raw, plans[link], capture=capture), False)
+        except Exception:  # noqa: BLE001 - the pool repeats the work and raises it there
+            answer = (seq, None, True)
+        try:
+            pickle.dump(answer, out, protocol=pickle.HIGHEST_PROTOCOL)
+            out.flush()
+        except BrokenPipeError:  # the pool has gone
+            return
+
+
+def _main() -> None:
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the calling process's to handle: it ends us
+    inp, out = sys.stdin.buffer, sys.stdout.buffer
+    sys.stdout = sys.stderr  # stdout carries only the answers
+    serve(inp, out)
+
+
+if __name__ == "__main__":
+    _main()
