@@ -323,23 +323,27 @@ def drive(rx: "Receiver", capture: Capture, *, block_samples: int = DEFAULT_BLOC
         bar = tqdm(total=capture.info.n_samples or None, unit="S", unit_scale=True, desc=Path(capture.info.path).name,
                    leave=False, delay=1.0)
 
-    def buffers() -> Iterator[tuple[list[tuple[int, RawBurst]], int]]:
-        for block in capture.blocks(block_samples):
+    def buffers(blocks: Iterator[np.ndarray]) -> Iterator[tuple[list[tuple[int, RawBurst]], int]]:
+        for block in blocks:
             yield rx.buffers(block), len(block)
         yield rx.end_buffers(), 0
 
     if PIPELINE and worth_a_pool(capture.info.n_samples):
         # a long capture: the per-burst work goes to a worker process (see iqdemod.burst_pool)
+        # the reading (and the reader's conversion) one block ahead in a thread, the front end
+        # here: both release the interpreter lock for most of their time
+        blocks = _ahead(capture.blocks(block_samples))
         try:
-            yield from _pooled(rx, buffers(), bar)
+            yield from _pooled(rx, buffers(blocks), bar)
         finally:
+            blocks.close()
             if bar is not None:
                 bar.close()
         return
     # Reading, the front end and the burst detector run one block ahead in a second thread
     # while this one demodulates: the FFTs and reads release the interpreter lock, the
     # per-burst work mostly holds it, so both cores work. The order of everything is unchanged.
-    source = _ahead(buffers()) if PIPELINE else buffers()
+    source = _ahead(buffers(capture.blocks(block_samples))) if PIPELINE else buffers(capture.blocks(block_samples))
     try:
         for found, n in source:
             for k, raw in found:
