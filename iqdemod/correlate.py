@@ -131,7 +131,9 @@ def window_sums(sums: np.ndarray, starts: np.ndarray, length: float) -> np.ndarr
     [[7.5], [12.0]]
     """
     starts = np.asarray(starts, dtype=np.float64)
-    return (_at(sums, starts + length) - _at(sums, starts)).T
+    k = len(starts)
+    both = _at(sums, np.concatenate([starts + length, starts]))  # one gather for both edges
+    return (both[:, :k] - both[:, k:]).T
 
 
 def _at(sums: np.ndarray, t: np.ndarray) -> np.ndarray:
