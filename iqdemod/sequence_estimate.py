@@ -48,8 +48,7 @@ def _known_fit(x, starts, period, bits, plan, sub_window):
     b = bits.astype(np.int64)
     weights = 1 << np.arange(2 * c, -1, -1)
     pat = np.stack([b[use + d] for d in range(-c, c + 1)], axis=1) @ weights
-    phase_all = plan.segment_phases(u)  # (P, K', M)
-    psi = phase_all[pat, np.arange(use.size)]
+    psi = plan.pattern_phases(u, pat)  # (K', M): each slot's own pattern
     a = (2 * b - 1) * plan.tone_sign
     acc = np.concatenate([[0], np.cumsum(a)])
     theta = np.pi * plan.h * acc[use - c]  # bits before each slot's pattern
