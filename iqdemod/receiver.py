@@ -329,12 +329,13 @@ def drive(rx: "Receiver", capture: Capture, *, block_samples: int = DEFAULT_BLOC
         yield rx.end_buffers(), 0
 
     if PIPELINE and worth_a_pool(capture.info.n_samples):
-        # a long capture: the per-burst work goes to a worker process (see iqdemod.burst_pool)
-        # the reading (and the reader's conversion) one block ahead in a thread, the front end
-        # here: both release the interpreter lock for most of their time
+        # A long capture: the per-burst work goes to a worker process (iqdemod.burst_pool). Here,
+        # the reading (with the reader's conversion) and the front end with the detectors each run
+        # one block ahead in a thread of their own (both release the interpreter lock for most of
+        # their time), and this thread hands buffers to the pool and takes its answers.
         blocks = _ahead(capture.blocks(block_samples))
         try:
-            yield from _pooled(rx, buffers(blocks), bar)
+            yield from _pooled(rx, _ahead(buffers(blocks)), bar)
         finally:
             blocks.close()
             if bar is not None:
@@ -360,7 +361,8 @@ PIPELINE = True  # batch workers, one process per core, turn this off
 
 
 def _pooled(rx: "Receiver", source: Iterator[tuple[list[tuple[int, RawBurst]], int]], bar) -> Iterator[Burst]:
-    """:func:`drive` with the front end here and the per-burst work shared with a worker process."""
+    """:func:`drive` with the per-burst work shared with a worker process: `source` gives each block's
+    detector buffers."""
     with BurstPool(rx.plans, rx._name) as pool:
         for found, n in source:
             for k, raw in found:
