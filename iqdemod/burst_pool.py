@@ -110,15 +110,24 @@ class BurstPool:
         self._cv = threading.Condition()
         self._alive = True  # the worker answers
         self._closing = False
+        self._proc: subprocess.Popen | None = None
+        try:
+            # Pickled here, before any thread runs: the receiver's threads fill the plans' caches
+            # as they go, and a dictionary must not change while it is pickled.
+            self._first = pickle.dumps((self._plans, capture), protocol=pickle.HIGHEST_PROTOCOL)
+        except Exception:  # noqa: BLE001 - a plan that cannot be pickled: every buffer is done here
+            self._alive = False
+            return
         env = dict(os.environ)
         root = str(Path(__file__).resolve().parent.parent)  # the worker imports this very iqdemod
         env["PYTHONPATH"] = os.pathsep.join(p for p in (root, env.get("PYTHONPATH")) if p)
         try:
-            self._proc: subprocess.Popen | None = subprocess.Popen(
-                [sys.executable, "-m", WORKER_MODULE], stdin=subprocess.PIPE, stdout=subprocess.PIPE,
-                env=env)
+            # A session of its own: Ctrl-C at the terminal goes to the calling process alone, which
+            # ends the worker (a worker caught by it while starting would print a traceback).
+            self._proc = subprocess.Popen([sys.executable, "-m", WORKER_MODULE], stdin=subprocess.PIPE,
+                                          stdout=subprocess.PIPE, env=env, start_new_session=True)
         except OSError:
-            self._proc, self._alive = None, False
+            self._alive = False
             return
         self._threads = [threading.Thread(target=self._write, name="iqdemod-burst-jobs", daemon=True),
                          threading.Thread(target=self._read, name="iqdemod-burst-answers", daemon=True)]
@@ -219,10 +228,10 @@ class BurstPool:
     def _write(self) -> None:
         """The writer thread: the plans, then held buffers, oldest first, while fewer than IN_FLIGHT are out."""
         stdin = self._proc.stdin
-        job = (self._plans, self._capture)
+        data = self._first
         while True:
             try:
-                pickle.dump(job, stdin, protocol=pickle.HIGHEST_PROTOCOL)
+                stdin.write(data)
                 stdin.flush()
             except (OSError, ValueError):  # the worker has gone
                 self._lost()
@@ -235,7 +244,11 @@ class BurstPool:
                 entry = self._held.popleft()
                 entry[3] = _SENT
                 self._sent[entry[0]] = entry
-                job = (entry[0], entry[1], entry[2])
+            try:
+                data = pickle.dumps((entry[0], entry[1], entry[2]), protocol=pickle.HIGHEST_PROTOCOL)
+            except Exception:  # noqa: BLE001 - a buffer that cannot be pickled: the worker is given up
+                self._lost()
+                return
 
     def _read(self) -> None:
         """The reader thread: the worker's answers, until it ends."""
@@ -243,7 +256,7 @@ class BurstPool:
         while True:
             try:
                 seq, bursts, failed = pickle.load(stream)
-            except (EOFError, OSError, pickle.UnpicklingError, ValueError):
+            except Exception:  # noqa: BLE001 - the worker ended, or its answer is unreadable: it is given up
                 self._lost()
                 return
             with self._cv:

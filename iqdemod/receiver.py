@@ -334,9 +334,11 @@ def drive(rx: "Receiver", capture: Capture, *, block_samples: int = DEFAULT_BLOC
         # one block ahead in a thread of their own (both release the interpreter lock for most of
         # their time), and this thread hands buffers to the pool and takes its answers.
         blocks = _ahead(capture.blocks(block_samples))
+        found = _ahead(buffers(blocks))
         try:
-            yield from _pooled(rx, _ahead(buffers(blocks)), bar)
-        finally:
+            yield from _pooled(rx, found, bar)
+        finally:  # the front end's thread first: it may be waiting on the reader's
+            found.close()
             blocks.close()
             if bar is not None:
                 bar.close()

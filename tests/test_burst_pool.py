@@ -118,6 +118,28 @@ def test_a_demodulator_error_is_raised_in_the_caller(capture, monkeypatch, faili
         _pooled(capture, monkeypatch, BACKLOG=10**6)
 
 
+def test_plans_that_cannot_be_pickled_leave_the_work_to_the_caller(capture, alone, monkeypatch):
+    """No worker is started; every buffer is demodulated by the caller, in order."""
+    original = burst_pool.BurstPool.__init__
+
+    def init(self, plans, name):
+        original(self, tuple(plans) + (lambda: None,), name)  # a lambda does not pickle
+
+    monkeypatch.setattr(burst_pool.BurstPool, "__init__", init)
+    assert _fields(_pooled(capture, monkeypatch)) == alone
+
+
+def test_the_worker_has_a_session_of_its_own(capture):
+    """Ctrl-C at a terminal reaches the caller only; the caller ends the worker (no child traceback)."""
+    link = rw.link_for(capture.offset_hz)
+    with iqdemod.open_capture(capture.meta) as cap:
+        rx = receiver.Receiver(link, cap.info)
+    with burst_pool.BurstPool(rx.plans, "x") as pool:
+        assert os.getsid(pool._proc.pid) != os.getsid(0)
+        proc = pool._proc
+    assert proc.poll() is not None  # ended with the pool
+
+
 def test_no_pool_for_streams_small_captures_or_batch_workers(monkeypatch):
     assert not burst_pool.worth_a_pool(None)
     assert not burst_pool.worth_a_pool(burst_pool.POOL_MIN_SAMPLES - 1)
