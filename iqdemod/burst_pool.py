@@ -6,34 +6,36 @@ hold it: on the throughput benchmark (60 s of cf32, 600 bursts) the two
 threads together spent 2.4 s of CPU on what takes 1.0 s (front end) and 0.6 s
 (bursts) apart, and run as two processes they take no longer than apart.
 
-A :class:`BurstPool` keeps one worker process, ``python -m
-iqdemod.burst_worker``, fed through pipes: the receiver's plans once, then the
-detector buffers, a few at a time (``IN_FLIGHT``); a thread reads the answers
-back. A plain child process rather than :mod:`multiprocessing`: its *spawn*
-would run the caller's main script again in the child (a script without the
+A :class:`BurstPool` keeps one worker process (:mod:`iqdemod.burst_worker`),
+fed through pipes: the receiver's plans once, then the detector buffers, a few
+at a time (``IN_FLIGHT``); a thread reads the answers back. It is a plain
+child process rather than :mod:`multiprocessing`: *spawn* would run the
+caller's main script again in the child (a script without the
 ``if __name__ == "__main__"`` guard would fail), and *fork* is unsafe in a
-process with threads. Results come back in the order the buffers went in.
-:func:`iqdemod.demod.demodulate_burst` is a pure function of (buffer, plan), so
-the frames are the same either way (``tests/test_burst_pool.py`` checks it).
+process with threads. The worker imports from the caller's own ``sys.path``
+(not from its working directory), so it runs the same iqdemod. Results come
+back in the order the buffers went in. :func:`iqdemod.demod.demodulate_burst`
+is a pure function of (buffer, plan), so the frames are the same either way
+(``tests/test_burst_pool.py`` checks it).
 
-Nothing waits on a worker that is not keeping up. While it starts (it imports
-numpy and the demodulator, about half a second), and whenever more than
-``BACKLOG`` buffers wait for it, the calling process demodulates the oldest
-waiting buffers itself. At the end of the input it takes them from the back
-of the queue while the worker works from the front. A worker that fails or
-dies leaves its buffers to the calling process, which raises any error there.
+Nothing waits on a worker that is not keeping up: when more than ``BACKLOG``
+buffers wait for it (it lags, or is still starting on a busy capture), the
+calling process demodulates the oldest waiting buffers itself. At the end of
+the input it takes them from the back of the queue while the worker works
+from the front. A buffer the worker fails on is done by the calling process,
+which raises the error there, after every earlier buffer's bursts (as one
+process would). A worker that dies leaves its buffers to the calling process.
 """
 
 from __future__ import annotations
 
 import collections
+import json
 import os
 import pickle
-import queue
 import subprocess
 import sys
 import threading
-from pathlib import Path
 from typing import Iterator, Sequence
 
 from .bursts import RawBurst
@@ -45,9 +47,28 @@ __all__ = ["BurstPool", "POOL_MIN_SAMPLES", "BACKLOG", "IN_FLIGHT", "worth_a_poo
 POOL_MIN_SAMPLES = 1 << 24  # below this (16 s at 1 MS/s) the worker's start would cost more than it saves
 BACKLOG = 256  # buffers waiting for the worker before the calling process takes some itself
 IN_FLIGHT = 4  # buffers sent to the worker and not yet answered
-WORKER_MODULE = "iqdemod.burst_worker"  # run as ``python -m``
+WORKER_MODULE = "iqdemod.burst_worker"  # imported by the worker's start-up code, which then runs its _main
 
-_HELD, _SENT, _HERE = "held", "sent", "here"
+# -P: nothing from the working directory; the caller's sys.path, then the module
+_BOOTSTRAP = ("import importlib, json, os, sys; sys.path[:] = json.loads(os.environ['IQDEMOD_WORKER_PATH']); "
+              "getattr(importlib.import_module(os.environ['IQDEMOD_WORKER_MODULE']), '_main', lambda: None)()")
+
+_HELD, _SENT, _HERE, _MINE = "held", "sent", "here", "mine"
+
+
+class _Raised:
+    """The exception a buffer's demodulation raised, kept until that buffer's turn in the output."""
+
+    def __init__(self, exc: BaseException):
+        self.exc = exc
+
+
+def _cores() -> int:
+    """Cores this process may run on (its affinity, where the system says; a container's limit)."""
+    try:
+        return len(os.sched_getaffinity(0))
+    except (AttributeError, OSError):
+        return os.cpu_count() or 1
 
 
 def worth_a_pool(n_samples: int | None) -> bool:
@@ -58,7 +79,7 @@ def worth_a_pool(n_samples: int | None) -> bool:
     >>> worth_a_pool(None), worth_a_pool(1000)
     (False, False)
     """
-    return bool(n_samples) and n_samples >= POOL_MIN_SAMPLES and (os.cpu_count() or 1) >= 2
+    return bool(n_samples) and n_samples >= POOL_MIN_SAMPLES and _cores() >= 2
 
 
 class BurstPool:
@@ -70,6 +91,11 @@ class BurstPool:
         The receiver's plans, one per link; :meth:`put`'s `link` indexes them.
     capture : str
         The name the frames carry.
+
+    Attributes
+    ----------
+    answered : int
+        Buffers the worker has demodulated so far (the rest were done here).
 
     Examples
     --------
@@ -102,15 +128,19 @@ class BurstPool:
         self._plans = tuple(plans)
         self._capture = capture
         self._seq = 0
-        # Entries in order: [seq, link, buffer, state], the state _HELD, _SENT, _HERE or the bursts.
-        # The writer and reader threads and the caller share them under one condition.
+        self.answered = 0
+        # Entries in order: [seq, link, buffer, state]; the state is _HELD, _SENT, _HERE, _MINE,
+        # the bursts or a _Raised. The writer and reader threads and the caller share them under
+        # one condition.
         self._queue: collections.deque[list] = collections.deque()
-        self._held: collections.deque[list] = collections.deque()  # entries not yet sent, oldest first
+        self._held: collections.deque[list] = collections.deque()  # not yet sent, oldest first
+        self._mine: collections.deque[list] = collections.deque()  # the worker failed on them: done here
         self._sent: dict[int, list] = {}
         self._cv = threading.Condition()
         self._alive = True  # the worker answers
         self._closing = False
         self._proc: subprocess.Popen | None = None
+        self._threads: list[threading.Thread] = []
         try:
             # Pickled here, before any thread runs: the receiver's threads fill the plans' caches
             # as they go, and a dictionary must not change while it is pickled.
@@ -118,14 +148,14 @@ class BurstPool:
         except Exception:  # noqa: BLE001 - a plan that cannot be pickled: every buffer is done here
             self._alive = False
             return
-        env = dict(os.environ)
-        root = str(Path(__file__).resolve().parent.parent)  # the worker imports this very iqdemod
-        env["PYTHONPATH"] = os.pathsep.join(p for p in (root, env.get("PYTHONPATH")) if p)
+        env = dict(os.environ, IQDEMOD_WORKER_PATH=json.dumps(sys.path), IQDEMOD_WORKER_MODULE=WORKER_MODULE)
+        # Its own session (a new process group on Windows): Ctrl-C at the terminal goes to the
+        # calling process alone, which ends the worker (a worker caught starting up would print a
+        # traceback).
+        alone = {"creationflags": subprocess.CREATE_NEW_PROCESS_GROUP} if os.name == "nt" else {"start_new_session": True}
         try:
-            # A session of its own: Ctrl-C at the terminal goes to the calling process alone, which
-            # ends the worker (a worker caught by it while starting would print a traceback).
-            self._proc = subprocess.Popen([sys.executable, "-m", WORKER_MODULE], stdin=subprocess.PIPE,
-                                          stdout=subprocess.PIPE, env=env, start_new_session=True)
+            self._proc = subprocess.Popen([sys.executable, "-P", "-c", _BOOTSTRAP], stdin=subprocess.PIPE,
+                                          stdout=subprocess.PIPE, env=env, **alone)
         except OSError:
             self._alive = False
             return
@@ -146,24 +176,26 @@ class BurstPool:
             self._closing, self._alive = True, False
             self._queue.clear()
             self._held.clear()
+            self._mine.clear()
             self._sent.clear()
             self._cv.notify_all()
         proc, self._proc = self._proc, None
         if proc is None:
             return
-        for t in self._threads[:1]:
-            t.join(timeout=2.0)
+        writer, reader = self._threads
+        writer.join(timeout=2.0)
+        if writer.is_alive():  # stuck writing to a worker that reads no more: end it, which frees the pipe
+            proc.kill()
         try:
             proc.stdin.close()
-        except OSError:
+        except (OSError, ValueError):
             pass
         try:
             proc.wait(timeout=2.0)
         except subprocess.TimeoutExpired:  # busy with a buffer nobody wants any more
             proc.kill()
             proc.wait()
-        for t in self._threads[1:]:
-            t.join(timeout=2.0)
+        reader.join(timeout=2.0)
         proc.stdout.close()
 
     def put(self, link: int, raw: RawBurst) -> None:
@@ -176,26 +208,37 @@ class BurstPool:
             self._cv.notify_all()
 
     def ready(self) -> Iterator[tuple[int, list[Burst]]]:
-        """(link, bursts) of the buffers demodulated so far, in order; takes on work if the worker lags."""
+        """(link, bursts) of the buffers demodulated so far, in order; takes on work if the worker lags.
+
+        Raises what a buffer's demodulation raised, when that buffer's turn comes.
+        """
         while True:
             yield from self._heads()
             with self._cv:
-                backlog = len(self._held) > (BACKLOG if self._alive else 0)
-                entry = self._take(newest=False) if backlog else None
-            if entry is None:
-                return
+                if self._mine:
+                    entry = self._mine.popleft()
+                elif len(self._held) > (BACKLOG if self._alive else 0):
+                    entry = self._take(newest=False)
+                else:
+                    return
             self._here(entry)
 
     def finish(self) -> Iterator[tuple[int, list[Burst]]]:
-        """End of input: every remaining buffer's (link, bursts), in order."""
+        """End of input: every remaining buffer's (link, bursts), in order (errors as :meth:`ready`)."""
         while True:
             yield from self._heads()
             with self._cv:
                 if not self._queue:
                     return
-                entry = self._take(newest=True)  # the worker works from the front
+                if self._mine:
+                    entry = self._mine.popleft()
+                else:
+                    entry = self._take(newest=True)  # the worker works from the front
                 if entry is None:  # all with the worker: wait for its next answer
-                    self._cv.wait_for(lambda: not self._alive or self._done(self._queue[0]) or bool(self._held))
+                    if not self._alive and not self._done(self._queue[0]):
+                        raise RuntimeError("burst pool: a buffer is neither done nor held (a bug)")
+                    self._cv.wait_for(lambda: not self._alive or self._done(self._queue[0])
+                                      or bool(self._held) or bool(self._mine))
                     continue
             self._here(entry)
 
@@ -210,6 +253,8 @@ class BurstPool:
                 if not self._queue or not self._done(self._queue[0]):
                     return
                 entry = self._queue.popleft()
+            if isinstance(entry[3], _Raised):
+                raise entry[3].exc
             yield entry[1], entry[3]
 
     def _take(self, *, newest: bool) -> list | None:
@@ -221,9 +266,13 @@ class BurstPool:
         return entry
 
     def _here(self, entry: list) -> None:
-        bursts = demodulate_burst(entry[2], self._plans[entry[1]], capture=self._capture)
+        """Demodulate an entry in this process; an exception waits for the entry's turn (see _heads)."""
+        try:
+            result: object = demodulate_burst(entry[2], self._plans[entry[1]], capture=self._capture)
+        except Exception as exc:  # noqa: BLE001 - raised in order by _heads
+            result = _Raised(exc)
         with self._cv:
-            entry[2], entry[3] = None, bursts
+            entry[2], entry[3] = None, result
 
     def _write(self) -> None:
         """The writer thread: the plans, then held buffers, oldest first, while fewer than IN_FLIGHT are out."""
@@ -262,11 +311,12 @@ class BurstPool:
             with self._cv:
                 entry = self._sent.pop(seq, None)
                 if entry is not None:
-                    if failed:  # done again by the caller, so that its error is raised there
-                        entry[3] = _HELD
-                        self._held.appendleft(entry)
+                    if failed:  # never sent again: the caller repeats it, so that its error is raised here
+                        entry[3] = _MINE
+                        self._mine.append(entry)
                     else:
                         entry[2], entry[3] = None, bursts
+                        self.answered += 1
                 self._cv.notify_all()
 
     def _lost(self) -> None:

@@ -1,6 +1,6 @@
 """The worker process of :class:`iqdemod.burst_pool.BurstPool`: detector buffers in on stdin, bursts out on stdout.
 
-Run as ``python -m iqdemod.burst_worker`` by the pool, never by hand. The
+Started by the pool (its start-up code imports this module and calls ``_main``), never by hand. The
 stream is a sequence of pickles: first ``(plans, capture)``, then one job
 ``(seq, link, buffer)`` after another; each answer is ``(seq, bursts, failed)``,
 where `failed` is True when :func:`iqdemod.demod.demodulate_burst` raised (the
@@ -11,6 +11,7 @@ goes to stderr: stdout carries only the answers.
 
 from __future__ import annotations
 
+import os
 import pickle
 import signal
 import sys
@@ -69,9 +70,12 @@ def serve(inp: BinaryIO, out: BinaryIO) -> None:
 
 def _main() -> None:
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the calling process's to handle: it ends us
-    inp, out = sys.stdin.buffer, sys.stdout.buffer
-    sys.stdout = sys.stderr  # stdout carries only the answers
-    serve(inp, out)
+    # The answers get descriptor 1 to themselves: a copy of it carries them, and 1 itself then points
+    # at stderr, so nothing else printed (by Python or by a C library) can land among them.
+    out = os.fdopen(os.dup(1), "wb")
+    os.dup2(2, 1)
+    sys.stdout = sys.stderr
+    serve(sys.stdin.buffer, out)
 
 
 if __name__ == "__main__":

@@ -334,7 +334,7 @@ def drive(rx: "Receiver", capture: Capture, *, block_samples: int = DEFAULT_BLOC
         # one block ahead in a thread of their own (both release the interpreter lock for most of
         # their time), and this thread hands buffers to the pool and takes its answers.
         blocks = _ahead(capture.blocks(block_samples))
-        found = _ahead(buffers(blocks))
+        found = _ahead(buffers(blocks), wait=None)  # each step is one block of a file: it ends
         try:
             yield from _pooled(rx, found, bar)
         finally:  # the front end's thread first: it may be waiting on the reader's
@@ -377,8 +377,12 @@ def _pooled(rx: "Receiver", source: Iterator[tuple[list[tuple[int, RawBurst]], i
             yield from rx.accept(bursts, k)
 
 
-def _ahead(items: Iterator, depth: int = 2) -> Iterator:
-    """`items` produced by a second thread, at most `depth` ahead; its exceptions come through here."""
+def _ahead(items: Iterator, depth: int = 2, *, wait: float | None = 5.0) -> Iterator:
+    """`items` produced by a second thread, at most `depth` ahead; its exceptions come through here.
+
+    Closed early, it stops the thread at its next item and waits for it up to `wait` seconds
+    (None: until it has ended, for a thread that itself iterates another `_ahead`, which may be
+    closed only once nothing runs it)."""
     done = object()
     slots: queue.Queue = queue.Queue(maxsize=depth)
     stop = threading.Event()
@@ -413,7 +417,7 @@ def _ahead(items: Iterator, depth: int = 2) -> Iterator:
             yield item
     finally:
         stop.set()
-        worker.join(timeout=5.0)
+        worker.join(timeout=wait)
 
 
 def decode(

@@ -12,6 +12,7 @@ import os
 import subprocess
 import sys
 import textwrap
+import time
 from pathlib import Path
 
 import numpy as np
@@ -31,6 +32,11 @@ def _fields(frames):
             for f in frames]
 
 
+def _burst_fields(bursts):
+    return [(b.index, b.piece, b.sample, b.n_symbols, b.freq_error_hz, b.clock_error_ppm, b.bits.tobytes(),
+             b.z0sq.tobytes(), b.z1sq.tobytes(), _fields(b.frames)) for b in bursts]
+
+
 @pytest.fixture(scope="module")
 def capture(tmp_path_factory):
     """Twelve frames 0.5–10 ms apart, each with its own carrier and clock error (cf32)."""
@@ -46,6 +52,30 @@ def alone(capture):
     return _fields(frames)
 
 
+@pytest.fixture(scope="module")
+def buffers(capture):
+    """The capture's detector buffers and the receiver that found them."""
+    with iqdemod.open_capture(capture.meta) as cap:
+        rx = receiver.Receiver(rw.link_for(capture.offset_hz), cap.info)
+        found = [item for block in cap.blocks(1 << 15) for item in rx.buffers(block)] + rx.end_buffers()
+    assert len(found) >= 6
+    return rx, found
+
+
+@pytest.fixture()
+def pools(monkeypatch):
+    """Every BurstPool made during the test."""
+    made = []
+    original = burst_pool.BurstPool.__init__
+
+    def init(self, *args, **kw):
+        original(self, *args, **kw)
+        made.append(self)
+
+    monkeypatch.setattr(burst_pool.BurstPool, "__init__", init)
+    return made
+
+
 def _pooled(capture, monkeypatch, **settings):
     monkeypatch.setattr(burst_pool, "POOL_MIN_SAMPLES", 1)
     for name, value in settings.items():
@@ -53,45 +83,78 @@ def _pooled(capture, monkeypatch, **settings):
     return list(iqdemod.decode(capture.meta, rw.link_for(capture.offset_hz)))
 
 
-def test_a_worker_gives_the_same_frames(capture, alone, monkeypatch):
+def _worker_only(monkeypatch):
+    """The caller takes no buffer from the worker's queue: the worker does every one it is given."""
+    monkeypatch.setattr(burst_pool.BurstPool, "_take", lambda self, newest: None)
+
+
+def test_a_worker_gives_the_same_frames(capture, alone, monkeypatch, pools):
     assert _fields(_pooled(capture, monkeypatch)) == alone
 
 
-def test_the_caller_doing_most_of_the_work_gives_the_same_frames(capture, alone, monkeypatch):
+def test_the_worker_alone_gives_the_same_bursts_in_order(buffers, monkeypatch, pools):
+    """Every buffer demodulated by the worker: the same bursts, field for field, in the order put."""
+    rx, found = buffers
+    expected = [(k, _burst_fields(burst_pool.demodulate_burst(raw, rx.plans[k], capture="x"))) for k, raw in found]
+    _worker_only(monkeypatch)
+    got = []
+    with burst_pool.BurstPool(rx.plans, "x") as pool:
+        for k, raw in found:
+            pool.put(k, raw)
+            got += [(k, _burst_fields(b)) for k, b in pool.ready()]
+        got += [(k, _burst_fields(b)) for k, b in pool.finish()]
+        assert pool.answered == len(found)
+    assert got == expected
+
+
+def test_the_caller_doing_most_of_the_work_gives_the_same_frames(capture, alone, monkeypatch, pools):
     assert _fields(_pooled(capture, monkeypatch, BACKLOG=0, IN_FLIGHT=1)) == alone
 
 
-def test_a_worker_that_dies_leaves_its_work_to_the_caller(capture, alone, monkeypatch):
-    """The worker killed after its first answer: every frame still comes, once and in order."""
+def test_a_worker_killed_with_buffers_in_hand_leaves_them_to_the_caller(capture, alone, monkeypatch, pools):
+    """The worker killed while buffers are with it: every frame still comes, once and in order."""
     killed = []
     original = burst_pool.BurstPool._heads
 
     def heads(self):
-        for item in original(self):
-            if not killed and self._proc is not None:
-                self._proc.kill()
-                killed.append(True)
-            yield item
+        if not killed and self._proc is not None:
+            deadline = time.monotonic() + 10
+            while not self._sent and time.monotonic() < deadline:  # wait until some are in flight
+                time.sleep(0.001)
+            with self._cv:
+                in_hand = len(self._sent)
+            self._proc.kill()
+            killed.append(in_hand)
+        yield from original(self)
 
     monkeypatch.setattr(burst_pool.BurstPool, "_heads", heads)
+    # the caller takes buffers only once the worker is gone: those in its hand included
+    take = burst_pool.BurstPool._take
+    monkeypatch.setattr(burst_pool.BurstPool, "_take",
+                        lambda self, newest: None if self._alive else take(self, newest=newest))
     assert _fields(_pooled(capture, monkeypatch)) == alone
-    assert killed
+    assert killed and killed[0] > 0
 
 
-def test_a_missing_worker_program_leaves_the_work_to_the_caller(capture, alone, monkeypatch):
+def test_a_missing_python_leaves_the_work_to_the_caller(capture, alone, monkeypatch, pools):
     monkeypatch.setattr(sys, "executable", "/nonexistent/python")
     assert _fields(_pooled(capture, monkeypatch)) == alone
+    assert pools and pools[0].answered == 0
 
 
 FAILING_WORKER = """
 import pickle, sys
 inp, out = sys.stdin.buffer, sys.stdout.buffer
 pickle.load(inp)
+seen = set()
 while True:
     try:
         seq, link, raw = pickle.load(inp)
     except EOFError:
         break
+    if seq in seen:
+        sys.exit(3)  # given the same buffer twice
+    seen.add(seq)
     pickle.dump((seq, None, True), out)
     out.flush()
 """
@@ -99,23 +162,41 @@ while True:
 
 @pytest.fixture()
 def failing_worker(tmp_path, monkeypatch):
-    """A worker that reports every buffer as failed (as iqdemod.burst_worker does when demodulation raises)."""
+    """A worker that reports every buffer as failed (as iqdemod.burst_worker does when demodulation raises)
+    and quits if it is ever sent a buffer twice."""
     (tmp_path / "failing_worker.py").write_text(FAILING_WORKER)
-    monkeypatch.setenv("PYTHONPATH", str(tmp_path))
+    monkeypatch.syspath_prepend(str(tmp_path))  # the worker imports from the caller's sys.path
     monkeypatch.setattr(burst_pool, "WORKER_MODULE", "failing_worker")
 
 
-def test_a_failed_buffer_is_done_again_by_the_caller(capture, alone, monkeypatch, failing_worker):
+def test_a_failed_buffer_is_done_by_the_caller_and_not_sent_again(capture, alone, monkeypatch, failing_worker,
+                                                                   pools):
     assert _fields(_pooled(capture, monkeypatch, BACKLOG=10**6)) == alone
+    assert pools[0].answered == 0 and pools[0]._proc is None
 
 
-def test_a_demodulator_error_is_raised_in_the_caller(capture, monkeypatch, failing_worker):
-    def broken(raw, plan, *, capture=""):
-        raise RuntimeError("demodulator failed")
+def test_an_error_comes_after_every_earlier_frame(capture, monkeypatch, failing_worker):
+    """A buffer that raises: the frames of the buffers before it come first, as in one process."""
+    def broken_after(limit, demodulate):
+        def run(raw, plan, *, capture=""):
+            if raw.index >= limit:
+                raise RuntimeError("demodulator failed")
+            return demodulate(raw, plan, capture=capture)
+        return run
 
-    monkeypatch.setattr(burst_pool, "demodulate_burst", broken)
-    with pytest.raises(RuntimeError, match="demodulator failed"):
-        _pooled(capture, monkeypatch, BACKLOG=10**6)
+    def frames_until_error():
+        got = []
+        with pytest.raises(RuntimeError, match="demodulator failed"):
+            for f in iqdemod.decode(capture.meta, rw.link_for(capture.offset_hz)):
+                got.append(f.sample)
+        return got
+
+    monkeypatch.setattr(receiver, "demodulate_burst", broken_after(4, receiver.demodulate_burst))
+    one_process = frames_until_error()
+    monkeypatch.setattr(burst_pool, "demodulate_burst", broken_after(4, burst_pool.demodulate_burst))
+    monkeypatch.setattr(burst_pool, "POOL_MIN_SAMPLES", 1)
+    monkeypatch.setattr(burst_pool, "BACKLOG", 10**6)
+    assert frames_until_error() == one_process and len(one_process) >= 3
 
 
 def test_plans_that_cannot_be_pickled_leave_the_work_to_the_caller(capture, alone, monkeypatch):
@@ -124,26 +205,37 @@ def test_plans_that_cannot_be_pickled_leave_the_work_to_the_caller(capture, alon
 
     def init(self, plans, name):
         original(self, tuple(plans) + (lambda: None,), name)  # a lambda does not pickle
+        assert self._proc is None
 
     monkeypatch.setattr(burst_pool.BurstPool, "__init__", init)
     assert _fields(_pooled(capture, monkeypatch)) == alone
 
 
-def test_the_worker_has_a_session_of_its_own(capture):
+@pytest.mark.skipif(not hasattr(os, "getsid"), reason="sessions are POSIX")
+def test_the_worker_has_a_session_of_its_own(buffers):
     """Ctrl-C at a terminal reaches the caller only; the caller ends the worker (no child traceback)."""
-    link = rw.link_for(capture.offset_hz)
-    with iqdemod.open_capture(capture.meta) as cap:
-        rx = receiver.Receiver(link, cap.info)
+    rx, _ = buffers
     with burst_pool.BurstPool(rx.plans, "x") as pool:
         assert os.getsid(pool._proc.pid) != os.getsid(0)
-        proc = pool._proc
-    assert proc.poll() is not None  # ended with the pool
+
+
+def test_the_worker_does_not_import_from_the_working_directory(buffers, tmp_path, monkeypatch):
+    """A folder named iqdemod in the working directory is not what the worker runs."""
+    (tmp_path / "iqdemod").mkdir()
+    (tmp_path / "iqdemod" / "__init__.py").write_text("raise SystemExit(7)\n")
+    monkeypatch.chdir(tmp_path)
+    rx, found = buffers
+    _worker_only(monkeypatch)
+    with burst_pool.BurstPool(rx.plans, "x") as pool:
+        for k, raw in found[:3]:
+            pool.put(k, raw)
+        assert len(list(pool.finish())) == 3
+        assert pool.answered == 3
 
 
 def test_no_pool_for_streams_small_captures_or_batch_workers(monkeypatch):
     assert not burst_pool.worth_a_pool(None)
     assert not burst_pool.worth_a_pool(burst_pool.POOL_MIN_SAMPLES - 1)
-    assert burst_pool.worth_a_pool(burst_pool.POOL_MIN_SAMPLES) == ((os.cpu_count() or 1) >= 2)
     assert receiver.PIPELINE  # batch workers turn it off, and with it the pool
 
 
@@ -157,6 +249,7 @@ def test_a_script_without_a_main_guard_runs_once(tmp_path):
         import iqdemod
         from iqdemod import burst_pool
         burst_pool.POOL_MIN_SAMPLES = 1
+        burst_pool.BurstPool._take = lambda self, newest: None  # the worker does it
         print("script ran")
         link = iqdemod.load_link(None, offset={rw.OFFSET_HZ}, baud=9600, shift=9600, sync="0x9B3C57E1", length=4,
                                  crc="CRC-16/IBM-3740")
@@ -165,19 +258,3 @@ def test_a_script_without_a_main_guard_runs_once(tmp_path):
     out = subprocess.run([sys.executable, str(script)], capture_output=True, text=True, timeout=120, cwd=tmp_path)
     assert out.returncode == 0, out.stderr
     assert out.stdout.splitlines() == ["script ran", "frames 1"]
-
-
-def test_answers_come_back_in_order(capture, monkeypatch):
-    """Buffers put one by one, answers taken as they come: their order is the order put."""
-    link = rw.link_for(capture.offset_hz)
-    with iqdemod.open_capture(capture.meta) as cap:
-        rx = receiver.Receiver(link, cap.info)
-        found = [item for block in cap.blocks(1 << 15) for item in rx.buffers(block)] + rx.end_buffers()
-    starts = [raw.start for _, raw in found]
-    got = []
-    with burst_pool.BurstPool(rx.plans, "x") as pool:
-        for k, raw in found:
-            pool.put(k, raw)
-            got += [b.index for _, bursts in pool.ready() for b in bursts[:1]]
-        got += [b.index for _, bursts in pool.finish() for b in bursts[:1]]
-    assert np.all(np.diff(got) > 0) and len(starts) == len(found)
