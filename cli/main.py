@@ -201,7 +201,8 @@ def main(debug: bool) -> None:
 
     No radio framework needed. Reads raw IQ (named by SigMF datatype), SigMF
     recordings and two-channel WAV/FLAC, in bounded memory. Exit status: 0
-    success, 1 the input could not be processed, 2 a usage error.
+    success, 1 the input could not be processed, 2 a usage error, 128 + N
+    after signal N (130 Ctrl-C, 129 SIGHUP, 131 SIGQUIT, 143 SIGTERM).
     """
 
 
