@@ -155,3 +155,15 @@ def test_multi_symbol_report_claims_no_filter_gain(capture):
     assert "theory for this link (the 5-symbol detector)" in text
     assert "receiver gain" in {line.split("  ")[1] for line in health_text(r).splitlines()[3:]}
     assert r.decision_gain_db > 0 and fitted.decision_gain_db == 0.0
+
+
+def test_curves_show_the_multi_symbol_bound_only_where_it_means_something():
+    """Above 0.1 the pruned union bound overshoots towards 0.5 (the plot stops there too): the table
+    shows "—" there, never a value above the one-symbol bank's exact one."""
+    res = run("curves", "--baud", 9600, "--shift", 4800, "--gaussian", 0.5, "--ebn0", "0:12:1")
+    assert res.exit_code == 0, res.output
+    rows = [line.split() for line in res.output.splitlines() if re.match(r"\s+\d+\.\d\d\s", line)]
+    multi = [r[3] for r in rows]  # Eb/N0, BER rect pulse, BER one-symbol, BER 5-symbol, …
+    assert multi[0] == "—" and all(m == "—" or float(m) <= 0.1 for m in multi)
+    assert any(m != "—" for m in multi)
+    assert "pruned union bound, shown below 0.1" in res.output
