@@ -20,9 +20,14 @@ Then, on the cf32 capture: the command line end to end (``iqdemod decode … --q
 start-up included) against the same floor, and k = 1, 2, 4 links decoded in one pass (the extra
 links tuned to empty channels of the same capture), as the ratio of each time to one link's.
 
+With ``--baseline DIR`` (a checkout of older code, e.g. ``git worktree add /tmp/old COMMIT``) it
+measures only the in-process decode, of this code and of the code in DIR alternately, each in a
+fresh process, ``--rounds`` times: the way to tell what a change did on a machine whose timings move
+by ±15 % between runs. ``cf32in`` (on request) is a cf32 capture kept inside ±1.
+
 It prints one JSON object. Usage:
-    python benchmarks/throughput.py [--workdir DIR] [--repeat 3] [--datatypes cf32,ci16,cu8,gfsk]
-                                    [--links 1,2,4] [--no-cli]
+    python benchmarks/throughput.py [--workdir DIR] [--repeat 3] [--datatypes cf32,ci16,cu8,gfsk,cf32in]
+                                    [--links 1,2,4] [--no-cli] [--baseline DIR [--rounds 2]]
 """
 
 from __future__ import annotations
@@ -45,12 +50,12 @@ CHUNK_BYTES = 8 << 20
 RATE = 1_024_000
 OFFSET = 137_000
 LINK_KW = dict(baud=9600, shift=9600, sync="0x9B3C57E1", length=24, crc="CRC-16/IBM-3740")
-DATATYPES = {"cf32": "cf32_le", "ci16": "ci16_le", "cu8": "cu8", "gfsk": "cf32_le"}
+DATATYPES = {"cf32": "cf32_le", "ci16": "ci16_le", "cu8": "cu8", "gfsk": "cf32_le", "cf32in": "cf32_le"}
 # the Gaussian FSK most transceiver chips send (BT 0.5, h 0.5), decoded by the multi-symbol detector
 KIND_LINK = {"gfsk": dict(shift=4800, gaussian=0.5)}
 # cf32: noise σ per component 0.34 puts about 0.6 % of samples past ±1.0; the integer types keep
 # the usual headroom (noise well inside full scale)
-NOISE_RMS = {"cf32": 0.48, "ci16": 0.05, "cu8": 0.05, "gfsk": 0.05}
+NOISE_RMS = {"cf32": 0.48, "ci16": 0.05, "cu8": 0.05, "gfsk": 0.05, "cf32in": 0.05}
 EMPTY_OFFSETS = (-300_000, -150_000, 300_000)  # extra links' channels: noise only
 
 
@@ -71,6 +76,7 @@ def make_capture(workdir: Path, kind: str, seconds: float, frames: int) -> Path:
 
 def floor_pass(data: Path, kind: str) -> tuple[float, int]:
     """Read in 8 MiB chunks, convert to complex64, multiply by an oscillator; (seconds, samples)."""
+    kind = {"ci16_le": "ci16", "cu8": "cu8"}.get(DATATYPES[kind], "cf32")  # the sample format read
     width = {"ci16": 4, "cu8": 2}.get(kind, 8)
     n_chunk = CHUNK_BYTES // width
     osc = np.exp(-2j * np.pi * OFFSET / RATE * np.arange(n_chunk)).astype(np.complex64)
@@ -162,6 +168,24 @@ def several_links(meta: Path, ks: list[int], repeat: int) -> dict:
                            "frames_crc_ok": found[k]} for k in ks}
 
 
+def against_baseline(metas: dict, kinds: list[str], baseline: Path, rounds: int, repeat: int) -> dict:
+    """This code and the code in `baseline`, alternately, each round in fresh processes."""
+    out: dict = {"baseline": str(baseline)}
+    for kind in kinds:
+        runs: dict[str, list] = {"this": [], "baseline": []}
+        for _ in range(rounds):
+            for who, path in (("this", None), ("baseline", baseline)):
+                env = dict(os.environ)
+                if path is not None:
+                    env["PYTHONPATH"] = os.pathsep.join(p for p in (str(path), env.get("PYTHONPATH")) if p)
+                done = subprocess.run([sys.executable, __file__, "--child", kind, "--workdir", str(metas[kind].parent),
+                                       "--repeat", str(repeat)], env=env, check=True, capture_output=True, text=True)
+                runs[who].append(json.loads(done.stdout))
+        out[kind] = {who: [{k: r[k] for k in ("ratio_decode_to_floor", "decode_msps", "floor_msps", "frames_crc_ok")}
+                           for r in rs] for who, rs in runs.items()}
+    return out
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--workdir", type=Path, default=Path(os.environ.get("TMPDIR", "/tmp")) / "iqdemod-bench")
@@ -171,9 +195,21 @@ def main() -> None:
     ap.add_argument("--datatypes", default="cf32,ci16,cu8")
     ap.add_argument("--links", default="1,2,4")
     ap.add_argument("--no-cli", action="store_true", help="skip the command-line measurement")
+    ap.add_argument("--baseline", type=Path, default=None,
+                    help="a checkout of older code: compare its in-process decode with this code's, alternately")
+    ap.add_argument("--rounds", type=int, default=2, help="with --baseline: alternations of the two")
+    ap.add_argument("--child", default=None, help=argparse.SUPPRESS)  # one in-process figure, as JSON
     args = ap.parse_args()
     args.workdir.mkdir(parents=True, exist_ok=True)
+    if args.child:
+        meta = args.workdir / f"throughput_{args.child}_{int(args.seconds)}s_{args.frames}f.sigmf-meta"
+        print(json.dumps(in_process(meta, args.child, args.repeat)))
+        return
     kinds = [k for k in args.datatypes.split(",") if k]
+    if args.baseline is not None:
+        metas = {kind: make_capture(args.workdir, kind, args.seconds, args.frames) for kind in kinds}
+        print(json.dumps(against_baseline(metas, kinds, args.baseline, args.rounds, args.repeat), indent=1))
+        return
     result: dict = {"python": sys.version.split()[0], "numpy": np.__version__, "cpu_count": os.cpu_count()}
     metas = {kind: make_capture(args.workdir, kind, args.seconds, args.frames) for kind in set(kinds) | {"cf32"}}
     for kind in kinds:
