@@ -148,15 +148,17 @@ class BurstPool:
         except Exception:  # noqa: BLE001 - a plan that cannot be pickled: every buffer is done here
             self._alive = False
             return
-        env = dict(os.environ, IQDEMOD_WORKER_PATH=json.dumps(sys.path), IQDEMOD_WORKER_MODULE=WORKER_MODULE)
+        path = [os.fspath(p) for p in sys.path if isinstance(p, (str, os.PathLike))]
+        env = dict(os.environ, IQDEMOD_WORKER_PATH=json.dumps(path), IQDEMOD_WORKER_MODULE=WORKER_MODULE)
         # Its own session (a new process group on Windows): Ctrl-C at the terminal goes to the
         # calling process alone, which ends the worker (a worker caught starting up would print a
         # traceback).
-        alone = {"creationflags": subprocess.CREATE_NEW_PROCESS_GROUP} if os.name == "nt" else {"start_new_session": True}
+        alone: dict = ({"creationflags": subprocess.CREATE_NEW_PROCESS_GROUP} if os.name == "nt"
+                       else {"start_new_session": True})
         try:
             self._proc = subprocess.Popen([sys.executable, "-P", "-c", _BOOTSTRAP], stdin=subprocess.PIPE,
                                           stdout=subprocess.PIPE, env=env, **alone)
-        except OSError:
+        except (OSError, TypeError, ValueError):  # no interpreter to start (an embedded one has no sys.executable)
             self._alive = False
             return
         self._threads = [threading.Thread(target=self._write, name="iqdemod-burst-jobs", daemon=True),
