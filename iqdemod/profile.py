@@ -346,6 +346,8 @@ def link_to_toml(link: Link, *, comment: str | None = None) -> str:
     ...         _ = fh.write(text)
     ...     load_link(path) == link
     True
+    >>> [line for line in text.splitlines() if line.startswith("sync")]
+    ['sync_word = "0x2DD4"', 'sync_bits = 16', 'sync_tolerance = 3']
     """
 
     def val(v: Any) -> str:
@@ -362,6 +364,9 @@ def link_to_toml(link: Link, *, comment: str | None = None) -> str:
         items = [(k, v) for k, v in table.items() if v is not None]
         if name == "signal" and table.get("pulse") == "rect":  # a BT means nothing for a rectangular pulse
             items = [(k, v) for k, v in items if k != "bt"]
+        if name == "frame" and link.frame.sync_word is not None:  # as every report shows it: 0x9B3C57E1
+            digits = (link.frame.sync_bits + 3) // 4
+            items = [(k, f"0x{link.frame.sync_word:0{digits}X}" if k == "sync_word" else v) for k, v in items]
         if not items:
             continue
         lines.append(f"[{name}]")
