@@ -37,7 +37,10 @@ def _sci(x: float | None) -> str:
 
 
 def _db(x: float | None, sign: bool = False) -> str:
-    return DASH if x is None else (f"{x:+.2f} dB" if sign else f"{x:.2f} dB")
+    if x is None:
+        return DASH
+    x = round(x, 2) + 0.0  # a value that rounds to zero prints as 0.00, never -0.00
+    return f"{x:+.2f} dB" if sign else f"{x:.2f} dB"
 
 
 def sync_word(word: int | str | None, bits: int | None) -> str:
@@ -198,7 +201,7 @@ def _recording_rows(r) -> list[tuple[str, str, str]]:
     if r.dc_dbfs is not None:
         rows.append(("DC offset", f"{r.dc_dbfs:.1f} dBFS", "the recording receiver's own; removed before tuning"))
     if r.iq_gain_db is not None:
-        rows.append(("IQ imbalance", f"{r.iq_gain_db:+.2f} dB, {r.iq_phase_deg:+.2f}°",
+        rows.append(("IQ imbalance", f"{_db(r.iq_gain_db, sign=True)}, {round(r.iq_phase_deg, 2) + 0.0:+.2f}°",
                      f"image rejection {r.image_rejection_db:.1f} dB as recorded, "
                      f"{r.image_rejection_after_db:.1f} dB after correction"))
     return rows

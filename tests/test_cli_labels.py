@@ -167,3 +167,9 @@ def test_curves_show_the_multi_symbol_bound_only_where_it_means_something():
     assert multi[0] == "—" and all(m == "—" or float(m) <= 0.1 for m in multi)
     assert any(m != "—" for m in multi)
     assert "pruned union bound, shown below 0.1" in res.output
+
+
+def test_a_value_that_rounds_to_zero_never_prints_as_minus_zero():
+    from iqdemod_cli.render import _db
+
+    assert _db(-0.004) == "0.00 dB" and _db(-0.004, sign=True) == "+0.00 dB" and _db(-0.006) == "-0.01 dB"
