@@ -262,3 +262,14 @@ def test_python_dash_m_lists_every_command():
     out = subprocess.run([sys.executable, "-m", "iqdemod_cli", "--help"], capture_output=True, text=True, check=True)
     for name in ("batch", "curves", "decode", "health", "survey", "synth"):
         assert f"  {name} " in out.stdout
+
+
+@pytest.mark.parametrize("command", ["decode", "health", "survey"])
+def test_a_bad_rate_is_named_by_its_flag_in_every_command(bad_inputs, command):
+    """--rate is checked with the capture (status 1), and the message names the flag, in every command."""
+    d, _ = bad_inputs
+    link = [] if command == "survey" else LINK_FLAGS
+    res = CliRunner().invoke(main, [command, str(d / "some.cu8"), "--datatype", "cu8", "--rate", "-250000",
+                                    *link, "-q"])
+    assert res.exit_code == 1, res.output
+    assert res.stderr.startswith("Error: --rate: ") and "-250000 Hz: must be > 0" in res.stderr

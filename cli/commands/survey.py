@@ -22,7 +22,8 @@ __all__ = ["command"]
 @click.command("survey")
 @click.argument("capture", type=click.Path(path_type=Path))
 @click.option("--datatype", help="SigMF datatype of a raw capture: cu8, ci8, ci16_le, ci16_be, cf32_le, cf64_le, …")
-@click.option("--rate", type=finite(0, MAX_SAMPLE_RATE_HZ, min_open=True), help="Sample rate of a raw capture, Hz.")
+# the range of --rate is checked with the capture (exit status 1), as in every other command
+@click.option("--rate", type=finite(), help=f"Sample rate of a raw capture, Hz (> 0, at most {MAX_SAMPLE_RATE_HZ:g}).")
 @click.option("--max-signals", type=click.IntRange(1, 64), default=4, show_default=True,
               help="Report at most this many signals (the strongest).")
 @click.option("--json", "as_json", is_flag=True, help="Print the result as JSON instead of a table.")
@@ -44,6 +45,11 @@ def command(capture, datatype, rate, max_signals, as_json, write_link, plot, qui
     CAPTURE --link FILE` accepts.
     """
     guard_outputs([("--write-link", write_link), ("--plot", plot)], captures=[capture])
+    if rate is not None:  # named by its flag, as decode and health name it
+        try:
+            CaptureFormat(sample_rate=rate)
+        except IqdemodError as exc:
+            raise IqdemodError(f"--rate: {exc}") from None
     if plot is not None:
         require_plotting()  # fail before the work, not after
     with iqdemod.open_capture(capture, datatype=datatype, sample_rate=rate) as cap:
