@@ -39,6 +39,7 @@ import threading
 from typing import Iterator, Sequence
 
 from .bursts import RawBurst
+from .cores import usable_cores
 from .demod import Burst, demodulate_burst
 from .plan import ReceiverPlan
 
@@ -63,14 +64,6 @@ class _Raised:
         self.exc = exc
 
 
-def _cores() -> int:
-    """Cores this process may run on (its affinity, where the system says; a container's limit)."""
-    try:
-        return len(os.sched_getaffinity(0))
-    except (AttributeError, OSError):
-        return os.cpu_count() or 1
-
-
 def worth_a_pool(n_samples: int | None) -> bool:
     """Whether a capture of `n_samples` input samples (None: unknown, a stream) is decoded with a worker.
 
@@ -79,7 +72,7 @@ def worth_a_pool(n_samples: int | None) -> bool:
     >>> worth_a_pool(None), worth_a_pool(1000)
     (False, False)
     """
-    return bool(n_samples) and n_samples >= POOL_MIN_SAMPLES and _cores() >= 2
+    return bool(n_samples) and n_samples >= POOL_MIN_SAMPLES and usable_cores() >= 2
 
 
 class BurstPool:
@@ -217,12 +210,9 @@ class BurstPool:
         while True:
             yield from self._heads()
             with self._cv:
-                if self._mine:
-                    entry = self._mine.popleft()
-                elif len(self._held) > (BACKLOG if self._alive else 0):
-                    entry = self._take(newest=False)
-                else:
-                    return
+                entry = self._take(newest=False, beyond=BACKLOG if self._alive else 0)
+            if entry is None:
+                return
             self._here(entry)
 
     def finish(self) -> Iterator[tuple[int, list[Burst]]]:
@@ -232,10 +222,7 @@ class BurstPool:
             with self._cv:
                 if not self._queue:
                     return
-                if self._mine:
-                    entry = self._mine.popleft()
-                else:
-                    entry = self._take(newest=True)  # the worker works from the front
+                entry = self._take(newest=True)  # the worker works from the front
                 if entry is None:  # all with the worker: wait for its next answer
                     if not self._alive and not self._done(self._queue[0]):
                         raise RuntimeError("burst pool: a buffer is neither done nor held (a bug)")
@@ -259,9 +246,15 @@ class BurstPool:
                 raise entry[3].exc
             yield entry[1], entry[3]
 
-    def _take(self, *, newest: bool) -> list | None:
-        """A held entry (the oldest or the newest) for the caller to demodulate; call under the lock."""
-        if not self._held:
+    def _take(self, *, newest: bool, beyond: int = 0) -> list | None:
+        """The entry the caller demodulates next, or None; call under the lock.
+
+        One the worker failed on, first; otherwise a held one (the oldest or the newest), when
+        more than `beyond` are held.
+        """
+        if self._mine:
+            return self._mine.popleft()
+        if len(self._held) <= beyond:
             return None
         entry = self._held.pop() if newest else self._held.popleft()
         entry[3] = _HERE

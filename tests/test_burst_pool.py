@@ -85,7 +85,7 @@ def _pooled(capture, monkeypatch, **settings):
 
 def _worker_only(monkeypatch):
     """The caller takes no buffer from the worker's queue: the worker does every one it is given."""
-    monkeypatch.setattr(burst_pool.BurstPool, "_take", lambda self, newest: None)
+    monkeypatch.setattr(burst_pool.BurstPool, "_take", lambda self, **kw: None)
 
 
 def test_a_worker_gives_the_same_frames(capture, alone, monkeypatch, pools):
@@ -130,8 +130,7 @@ def test_a_worker_killed_with_buffers_in_hand_leaves_them_to_the_caller(capture,
     monkeypatch.setattr(burst_pool.BurstPool, "_heads", heads)
     # the caller takes buffers only once the worker is gone: those in its hand included
     take = burst_pool.BurstPool._take
-    monkeypatch.setattr(burst_pool.BurstPool, "_take",
-                        lambda self, newest: None if self._alive else take(self, newest=newest))
+    monkeypatch.setattr(burst_pool.BurstPool, "_take", lambda self, **kw: None if self._alive else take(self, **kw))
     assert _fields(_pooled(capture, monkeypatch)) == alone
     assert killed and killed[0] > 0
 
@@ -249,7 +248,7 @@ def test_a_script_without_a_main_guard_runs_once(tmp_path):
         import iqdemod
         from iqdemod import burst_pool
         burst_pool.POOL_MIN_SAMPLES = 1
-        burst_pool.BurstPool._take = lambda self, newest: None  # the worker does it
+        burst_pool.BurstPool._take = lambda self, **kw: None  # the worker does it
         print("script ran")
         link = iqdemod.load_link(None, offset={rw.OFFSET_HZ}, baud=9600, shift=9600, sync="0x9B3C57E1", length=4,
                                  crc="CRC-16/IBM-3740")

@@ -22,6 +22,7 @@ import time
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from typing import Iterator
 
+from ..cores import usable_cores
 from ..errors import IqdemodError, quote
 from .journal import LOCK_FDS
 from .worker import CaptureOutcome, CaptureTask, failed, process_capture
@@ -333,10 +334,7 @@ def default_jobs() -> int:
     >>> default_jobs() == len(os.sched_getaffinity(0))
     True
     """
-    try:
-        return max(1, len(os.sched_getaffinity(0)))
-    except (AttributeError, OSError):
-        return max(1, os.cpu_count() or 1)
+    return usable_cores()
 
 
 def start(tasks: list[CaptureTask], *, jobs: int | None, cluster: str | None, lock_fd: int | None):
