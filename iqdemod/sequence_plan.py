@@ -175,23 +175,23 @@ class SequencePlan:
         (most significant first) are those of symbols k − context … k + context;
         the phase accumulated by earlier bits is left out.
         """
-        u = np.asarray(u, dtype=np.float64)
-        c = self.context
-        d = np.arange(-c, c + 1, dtype=np.float64)
-        qd = self.q(u[None, ...] - d.reshape((-1,) + (1,) * u.ndim) - 0.5)  # (2c+1,) + u.shape
-        a = 2.0 * _pattern_bits(c) - 1.0  # (P, 2c+1)
+        qd = self._neighbour_q(u)  # (2c+1,) + u.shape
+        a = 2.0 * _pattern_bits(self.context) - 1.0  # (P, 2c+1)
         return 2.0 * np.pi * self.h * self.tone_sign * np.tensordot(a, qd, axes=(1, 0))
 
     def pattern_phases(self, u, patterns) -> np.ndarray:
         """:meth:`segment_phases` of one pattern per slot: row k of `u` (slot k's fractions) with
         pattern ``patterns[k]``; shape ``u.shape``. The pulse is evaluated once, not once per pattern.
         """
-        u = np.asarray(u, dtype=np.float64)
-        c = self.context
-        d = np.arange(-c, c + 1, dtype=np.float64)
-        qd = self.q(u[None, ...] - d.reshape((-1,) + (1,) * u.ndim) - 0.5)  # (2c+1, K, M)
-        a = 2.0 * _pattern_bits(c)[np.asarray(patterns)] - 1.0  # (K, 2c+1)
+        qd = self._neighbour_q(u)  # (2c+1, K, M)
+        a = 2.0 * _pattern_bits(self.context)[np.asarray(patterns)] - 1.0  # (K, 2c+1)
         return 2.0 * np.pi * self.h * self.tone_sign * np.einsum("kd,dkm->km", a, qd)
+
+    def _neighbour_q(self, u) -> np.ndarray:
+        """The phase pulse of symbols k − context … k + context at slot fractions `u` of symbol k."""
+        u = np.asarray(u, dtype=np.float64)
+        d = np.arange(-self.context, self.context + 1, dtype=np.float64)
+        return self.q(u[None, ...] - d.reshape((-1,) + (1,) * u.ndim) - 0.5)
 
     # ------------------------------------------------------------------ hypotheses
 
