@@ -18,7 +18,7 @@ from .files import read_small_text
 from .errors import LinkError, quote
 from .link import MAX_LENGTH_BYTES, MAX_PROFILE_BYTES, MAX_SIGNALS, CaptureFormat, FrameSpec, Link, SignalSpec
 
-__all__ = ["OVERRIDES", "load_link", "load_links", "link_to_toml", "link_with"]
+__all__ = ["OVERRIDES", "check_overrides", "load_link", "load_links", "link_to_toml", "link_with"]
 
 
 # Flag name -> (table, key). These names are the command line's contract.
@@ -301,6 +301,24 @@ def _overrides_error(overrides: Mapping[str, Any]) -> LinkError | None:
     except LinkError as exc:
         return LinkError(f"{', '.join(_flag(n) for n in given)}: {exc}")
     return None
+
+
+def check_overrides(overrides: Mapping[str, Any]) -> None:
+    """Raise the error the flag-style `overrides` give on their own, naming the flag (as every link does).
+
+    For a command that takes capture flags without building a link (the survey).
+
+    Examples
+    --------
+    >>> check_overrides({"rate": 1e6, "datatype": None})
+    >>> check_overrides({"rate": -5.0})
+    Traceback (most recent call last):
+    ...
+    iqdemod.errors.LinkError: --rate: sample rate -5 Hz: must be > 0
+    """
+    error = _overrides_error(overrides)
+    if error is not None:
+        raise error
 
 
 def _flag(name: str) -> str:

@@ -10,7 +10,7 @@ import iqdemod
 from iqdemod.capture import MAX_SAMPLE_RATE_HZ
 from iqdemod.errors import IqdemodError
 from iqdemod.link import CaptureFormat
-from iqdemod.profile import link_to_toml
+from iqdemod.profile import check_overrides, link_to_toml
 from iqdemod.survey import plot_survey, require_plotting, survey as survey_capture
 
 from .._common import finite, guard_outputs, open_output, say
@@ -45,11 +45,7 @@ def command(capture, datatype, rate, max_signals, as_json, write_link, plot, qui
     CAPTURE --link FILE` accepts.
     """
     guard_outputs([("--write-link", write_link), ("--plot", plot)], captures=[capture])
-    if rate is not None:  # named by its flag, as decode and health name it
-        try:
-            CaptureFormat(sample_rate=rate)
-        except IqdemodError as exc:
-            raise IqdemodError(f"--rate: {exc}") from None
+    check_overrides({"rate": rate})  # a bad value named by its flag, as decode and health name it
     if plot is not None:
         require_plotting()  # fail before the work, not after
     with iqdemod.open_capture(capture, datatype=datatype, sample_rate=rate) as cap:
