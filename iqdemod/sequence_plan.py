@@ -23,6 +23,8 @@ PULSES = ("rect", "gaussian")
 
 #: Most hypotheses a plan may enumerate (2^13): N = 9 with two context bits each side.
 MAX_HYPOTHESES = 1 << 13
+#: Points a symbol in the Gaussian phase pulse's interpolation table (SequencePlan._q_table).
+Q_TABLE_STEPS = 4096
 #: Automatic span: the shortest odd span whose truncation moves less than this share of a
 #: symbol's phase step (the Gaussian tails beyond it are left out of the model).
 _TAIL_SHARE = 1e-3
@@ -162,6 +164,45 @@ class SequencePlan:
         inside = (_gaussian_raw_q(np.clip(t, -half, half), self.sigma_symbols) - lo) / (hi - lo) / 2.0
         return np.where(t <= -half, 0.0, np.where(t >= half, 0.5, inside))
 
+    def q_tabled(self, t) -> np.ndarray:
+        """:meth:`q` from a table (Gaussian pulse; rect is exact anyway), for the detector's
+        templates and the estimator's fit, where it is evaluated at every sample of a burst.
+
+        Within 1.2·10⁻⁸·BT of :meth:`q` (see ``_q_table``); :meth:`q` itself stays exact for
+        the waveforms (:func:`phase_trajectory`) that tests hold to 10⁻⁹.
+
+        Examples
+        --------
+        >>> plan = plan_sequence(h=0.5, pulse="gaussian", bt=0.5)
+        >>> t = np.linspace(-2.0, 2.0, 9)
+        >>> bool(np.max(np.abs(plan.q_tabled(t) - plan.q(t))) < 1e-8), plan.q_tabled([-2.0, 2.0]).tolist()
+        (True, [0.0, 0.5])
+        """
+        if self.pulse == "rect":
+            return self.q(t)
+        grid, table = self._q_table
+        return np.interp(np.asarray(t, dtype=np.float64), grid, table)  # 0 before the span, ½ after
+
+    @functools.cached_property
+    def _q_table(self) -> tuple[np.ndarray, np.ndarray]:
+        """The Gaussian phase pulse over its span, ``Q_TABLE_STEPS`` points a symbol, for :meth:`q_tabled`.
+
+        Linear interpolation between points Δ apart errs by at most Δ²/8·max|q''| (the
+        interpolation remainder), and |q''| = |g'| ≤ 1/(2σ√(2π)·2(hi − lo)) for the truncated,
+        renormalised pulse; with σ = √(ln 2)/(2π·BT) that is about 1.1·10⁻⁸·BT at Δ = 1/4096
+        symbol (5.6·10⁻⁹ at BT 0.5; measured, the bound is reached), a phase error of a few
+        10⁻⁷ rad over a template. The table replaces an evaluation of Φ and exp at every
+        template and fit sample (most of the fit's time).
+        """
+        half = self.span_symbols / 2.0
+        lo, hi = self._q_ends
+        grid = np.linspace(-half, half, self.span_symbols * Q_TABLE_STEPS + 1)
+        table = (_gaussian_raw_q(grid, self.sigma_symbols) - lo) / (hi - lo) / 2.0
+        table[0], table[-1] = 0.0, 0.5
+        grid.setflags(write=False)
+        table.setflags(write=False)
+        return grid, table
+
     @functools.cached_property
     def _q_ends(self) -> tuple[float, float]:
         half = self.span_symbols / 2.0
@@ -191,7 +232,7 @@ class SequencePlan:
         """The phase pulse of symbols k − context … k + context at slot fractions `u` of symbol k."""
         u = np.asarray(u, dtype=np.float64)
         d = np.arange(-self.context, self.context + 1, dtype=np.float64)
-        return self.q(u[None, ...] - d.reshape((-1,) + (1,) * u.ndim) - 0.5)
+        return self.q_tabled(u[None, ...] - d.reshape((-1,) + (1,) * u.ndim) - 0.5)
 
     # ------------------------------------------------------------------ hypotheses
 

@@ -19,7 +19,7 @@ import pytest
 from scipy import signal, stats
 
 from fsk_modulator import cpfsk
-from iqdemod import sequence, sequence_estimate, sequence_theory
+from iqdemod import sequence, sequence_estimate, sequence_plan, sequence_theory
 from iqdemod.correlate import correlate, tone_sums
 from iqdemod.errors import LinkError
 from iqdemod.predict import pb_noncoherent
@@ -129,6 +129,25 @@ def test_gaussian_frequency_pulse_is_rect_convolved_with_gaussian():
     g = frequency_pulse(t, plan)
     assert np.sum(g) * dt == pytest.approx(0.5, abs=1e-4)
     assert np.max(np.abs(g - ref)) < 2e-3 * ref.max()
+
+
+@pytest.mark.parametrize("bt", [0.1, 0.3, 0.5, 1.0])
+def test_tabled_phase_pulse_is_within_the_interpolation_remainder(bt):
+    # Linear interpolation between points Δ apart errs by at most Δ²/8·max|f''| (the interpolation
+    # error theorem; e.g. Burden & Faires, Numerical Analysis, ch. 3). Here f = q, f'' = g', and
+    # max|g'| is taken numerically from frequency_pulse (a central difference), not from the formula
+    # the code documents; the table must stay inside the remainder it promises.
+    plan = plan_sequence(h=0.5, pulse="gaussian", bt=bt)
+    half = plan.span_symbols / 2.0
+    t = np.random.default_rng(7).uniform(-half - 1.0, half + 1.0, 100_000)
+    dt = 1e-4
+    grid = np.arange(-half + dt, half - dt, dt)
+    g_slope = np.max(np.abs(np.diff(frequency_pulse(grid, plan)))) / dt
+    step = 1.0 / sequence_plan.Q_TABLE_STEPS
+    bound = step**2 / 8.0 * g_slope
+    assert np.max(np.abs(plan.q_tabled(t) - plan.q(t))) <= 1.01 * bound
+    assert bound < 2e-8 * max(bt, 0.5)  # a phase error of well under 1e-6 rad at h ≤ 1
+    assert plan.q_tabled([-half - 1.0, half + 1.0]).tolist() == [0.0, 0.5]
 
 
 def test_phase_trajectory_matches_the_independent_modulator():
