@@ -166,6 +166,9 @@ class Burst:
     timing_strength : float
     piece : int
         0 unless this is a later piece of a burst cut for length.
+    link : str or None
+        The name of the link that found it, when several links are decoded in
+        one pass (as its frames' ``link``).
     """
 
     index: int
@@ -181,3 +184,4 @@ class Burst:
     timing_strength: float = 0.0
     piece: int = 0
     symbol_s: float = 0.0
+    link: str | None = None

@@ -137,8 +137,8 @@ class Receiver:
         name = self.names[link]
         half = 0.5 * self.plans[link].sample_rate_hz / self.plans[link].link.signal.baud
         for burst in demodulated:
-            if burst.frames and (self._start is not None or name is not None):
-                burst = dataclasses.replace(burst, frames=tuple(dataclasses.replace(
+            if name is not None or (burst.frames and self._start is not None):
+                burst = dataclasses.replace(burst, link=name, frames=tuple(dataclasses.replace(
                     f, time_utc=None if self._start is None else _utc(self._start, f.t_s), link=name)
                     for f in burst.frames))
             if burst.piece:  # pieces of a long burst overlap: drop frames already handed out
