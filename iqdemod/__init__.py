@@ -22,7 +22,7 @@ _HOMES = {
     "open_capture": "capture", "Capture": "capture", "CaptureInfo": "capture",
     "load_link": "profile", "load_links": "profile", "Link": "link", "SignalSpec": "link", "FrameSpec": "link",
     "decode": "receiver", "iter_bursts": "receiver", "Burst": "receiver", "Frame": "receiver",
-    "assess": "health", "assess_with_frames": "health", "HealthReport": "health", "Decoding": "receiver",
+    "assess": "health", "assess_with_frames": "health", "assess_links": "health", "HealthReport": "health", "Decoding": "receiver",
     "DecodeSummary": "receiver",
 }
 
@@ -61,6 +61,7 @@ __all__ = [
     "Frame",
     "assess",
     "assess_with_frames",
+    "assess_links",
     "Decoding",
     "DecodeSummary",
     "HealthReport",
