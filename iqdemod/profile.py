@@ -18,7 +18,7 @@ from .files import read_small_text
 from .errors import LinkError, quote
 from .link import MAX_LENGTH_BYTES, MAX_PROFILE_BYTES, MAX_SIGNALS, CaptureFormat, FrameSpec, Link, SignalSpec
 
-__all__ = ["OVERRIDES", "check_overrides", "load_link", "load_links", "link_to_toml", "link_with"]
+__all__ = ["OVERRIDES", "check_overrides", "load_link", "load_links", "link_names", "link_to_toml", "link_with"]
 
 
 # Flag name -> (table, key). These names are the command line's contract.
@@ -224,6 +224,29 @@ def load_links(paths: "Sequence[str | Path]", **overrides: Any) -> dict[str, Lin
     if not out:
         raise LinkError("no link profile given")
     return out
+
+
+def link_names(path: str | Path) -> list[str]:
+    """The names :func:`load_links` gives the links of one profile, in order.
+
+    For telling which profile a link of several came from (batch's ``link`` column).
+
+    Raises
+    ------
+    LinkError
+        As :func:`load_links`, for a profile it cannot read.
+
+    Examples
+    --------
+    >>> import os, tempfile
+    >>> with tempfile.TemporaryDirectory() as tmp:
+    ...     path = os.path.join(tmp, "harbour.toml")
+    ...     with open(path, "w", encoding="utf-8") as fh:
+    ...         _ = fh.write('[[signal]]\\nname = "buoys"\\nbaud = 1200\\n[[signal]]\\nbaud = 2400\\n')
+    ...     link_names(path)
+    ['buoys', 'harbour-2']
+    """
+    return [name for name, _ in _read_profile(Path(path))[1]]
 
 
 def _read_profile(p: Path) -> tuple[str, list[tuple[str, dict[str, dict[str, Any]]]]]:

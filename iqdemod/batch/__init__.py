@@ -3,17 +3,20 @@
 A batch collects the captures under some paths, assesses each one
 (:func:`iqdemod.health.assess`) in a pool of worker processes (or on a running
 Dask ``distributed`` scheduler), and writes one CSV row per capture and,
-optionally, every frame to one JSON Lines file.
+optionally, every frame to one JSON Lines file. With several links (a mapping
+of them by name, or a folder profile of several ``[[signal]]`` entries) each
+capture is still read once, by one worker (:func:`iqdemod.health.assess_links`),
+and has a row per link (``link_name``); rows are known by (path, link name).
 
 Along the data's path, one module each:
 
 - :mod:`~iqdemod.batch.collect`: finding the captures (by the reader's own suffix
   registry, :func:`iqdemod.capture.capture_format`) and the link of each;
-- :mod:`~iqdemod.batch.worker`: one capture in, one row and its frames out;
+- :mod:`~iqdemod.batch.worker`: one capture in, a row per link and their frames out;
 - :mod:`~iqdemod.batch.executors`: this process, a process pool or a Dask cluster,
   each job on one thread;
 - :mod:`~iqdemod.batch.journal`: the ``.partial`` journal, resuming, the locks;
-- :mod:`~iqdemod.batch.transmitters`: a transmitter label per capture;
+- :mod:`~iqdemod.batch.transmitters`: a transmitter label per row (per link);
 - :mod:`~iqdemod.batch.report`: the CSV schema, reading it back, the summary;
 - :mod:`~iqdemod.batch.run`: :func:`run_batch`, which ties them together;
 - :mod:`~iqdemod.batch.trend`: the trend figure.
@@ -37,7 +40,7 @@ Rows are appended to ``REPORT.partial`` (``report.csv.partial`` beside
 ``report.csv``) as each capture finishes, flushed and fsync'd, with Ctrl-C
 and SIGTERM held off while a row is written so that none is torn; frames go
 to ``FRAMES.partial`` the same way, *before* the row that vouches for them.
-When every capture is done the frames file (each frame given its capture's
+When every capture is done the frames file (each frame given its row's
 transmitter label) and then the report are written atomically (temporary
 files in the same folder, then renamed, together or not at all) and the
 journals removed. A killed run therefore loses at most the captures in flight;
@@ -45,6 +48,8 @@ a report from an earlier run stays untouched until the new one is complete.
 
 ``resume=True`` reads the old report and the journal (a torn last line, from a
 kill in mid-write, is dropped) and skips every capture whose earlier row
+(with several links: every one of its rows; else the capture is redone for all
+its links)
 
 - has status ``ok`` (rows with status ``error`` are tried again: the cause
   may have been transient, e.g. a file still being copied, and a retry is
@@ -55,16 +60,18 @@ kill in mid-write, is dropped) and skips every capture whose earlier row
   captures it applies to),
 - and, when frames are written, whose frames are all present.
 
-The new report holds exactly one row per capture collected in this run, in
-collection order; rows of captures that are no longer collected are dropped.
+The new report holds exactly one row per capture collected in this run and
+link, in collection order, then link order; rows of captures (or links) that are
+no longer collected are dropped.
 
 Link profile per folder
 -----------------------
 A folder holding a ``link.toml`` gives its own link to every capture below it
 (the nearest such folder wins, looking up to the folder named on the command
-line); its captures are labelled by that folder as their transmitter.
-Otherwise transmitters are told apart by their measured carrier error (see
-:func:`label_transmitters`).
+line); its captures are labelled by that folder as their transmitter (after
+the link's name when the profile has several ``[[signal]]`` entries).
+Otherwise transmitters are told apart by their measured carrier error, each
+link's apart (see :func:`label_transmitters`).
 """
 
 from __future__ import annotations

@@ -20,7 +20,7 @@ from typing import Any, Iterable, Iterator, Mapping
 from ..capture import capture_format, sigmf_pair
 from ..errors import IqdemodError, IqdemodWarning, LinkError, quote
 from ..link import Link
-from ..profile import load_link
+from ..profile import load_links
 
 __all__ = ["FOLDER_LINK", "collect_captures"]
 
@@ -39,9 +39,12 @@ class Found:
 
 @dataclass(frozen=True)
 class FolderLink:
-    """The link that applies to one capture: from a folder ``link.toml``, or the batch's own."""
+    """The link(s) that apply to one capture: from a folder ``link.toml``, or the batch's own.
 
-    link: Link | None
+    A profile with several ``[[signal]]`` entries gives several links, by name (a report row each).
+    """
+
+    link: Link | Mapping[str, Link] | None
     path: str = ""  # the folder profile ("" for the batch's link)
     error: str = ""  # why `link` is None
     label: str = ""  # the transmitter the folder names ("" without a folder profile)
@@ -204,8 +207,13 @@ def _profile_folder(found: Found) -> Path | None:
         folder = folder.parent
 
 
-def folder_links(found: list[Found], link: Link | None, overrides: Mapping[str, Any]) -> list[FolderLink]:
-    """The link of each capture: the nearest folder ``link.toml`` (with `overrides`), else `link`."""
+def folder_links(found: list[Found], link: Link | Mapping[str, Link] | None,
+                 overrides: Mapping[str, Any]) -> list[FolderLink]:
+    """The link(s) of each capture: the nearest folder ``link.toml`` (with `overrides`), else `link`.
+
+    A folder profile of one signal gives one (unnamed) link; of several ``[[signal]]`` entries,
+    a mapping of them by name (:func:`iqdemod.load_links`).
+    """
     cache: dict[Path, FolderLink] = {}
     out = []
     for f in found:
@@ -218,7 +226,9 @@ def folder_links(found: list[Found], link: Link | None, overrides: Mapping[str, 
             root = Path(os.path.abspath(f.root))
             label = Path(os.path.relpath(hit, root)).as_posix() if hit != root else hit.name
             try:
-                cache[hit] = FolderLink(load_link(profile, **dict(overrides)), str(profile), "", label)
+                links = load_links([profile], **dict(overrides))
+                one = next(iter(links.values())) if len(links) == 1 else links
+                cache[hit] = FolderLink(one, str(profile), "", label)
             except LinkError as exc:
                 cache[hit] = FolderLink(None, str(profile), str(exc), label)
         out.append(cache[hit])

@@ -100,7 +100,8 @@ class Journal:
             if self._frames is not None and outcome.frame_lines:
                 self._frames.write("".join(line + "\n" for line in outcome.frame_lines))
                 self._sync(self._frames)  # the frames first: a row vouches for frames already on disk
-            self._writer.writerow(outcome.row.to_csv())
+            for row in outcome.rows:  # a capture's rows (one per link) together, after its frames
+                self._writer.writerow(row.to_csv())
             self._sync(self._rows)
 
     def close(self) -> None:
@@ -151,80 +152,101 @@ def clear(report: Path, frames: Path | None) -> None:
 
 
 # --------------------------------------------------------------------------- resume
-def _finished(tasks: list[CaptureTask], sources: list[tuple[Path, Path | None]]) -> dict[str, tuple[CaptureRow, int]]:
-    """Rows of earlier runs (report, then journal) that still hold: ok, same size, mtime and settings."""
-    previous: dict[str, tuple[CaptureRow, int]] = {}
+Key = tuple[str, str]  # a row's (path, link name): CaptureRow.key
+
+
+def _whole(done: dict[Key, tuple[CaptureRow, int]], tasks: list[CaptureTask]) -> None:
+    """Drop from `done` every capture that is not finished for all its links (it is redone whole)."""
+    for t in tasks:
+        keys = t.keys()
+        if not all(k in done for k in keys):
+            for k in keys:
+                done.pop(k, None)
+
+
+def _finished(tasks: list[CaptureTask], sources: list[tuple[Path, Path | None]]) -> dict[Key, tuple[CaptureRow, int]]:
+    """Rows of earlier runs (report, then journal) that still hold: ok, same size, mtime and settings, for
+    every link of their capture."""
+    previous: dict[Key, tuple[CaptureRow, int]] = {}
     for i, (rp, _) in enumerate(sources):
         if rp.exists():
             for row in read_report(rp):
-                previous[row.path] = (row, i)
-    current = {t.path: t for t in tasks}
+                previous[row.key] = (row, i)
     done = {}
-    for path, (row, i) in previous.items():
-        t = current.get(path)
-        if t is not None and row.ok and (row.size_bytes, row.mtime_ns, row.settings_digest) == (
-                t.size_bytes, t.mtime_ns, t.settings_digest):
-            done[path] = (row, i)
+    for t in tasks:
+        for key in t.keys():
+            row, i = previous.get(key, (None, 0))
+            if row is not None and row.ok and (row.size_bytes, row.mtime_ns, row.settings_digest) == (
+                    t.size_bytes, t.mtime_ns, t.digest(key[1])):
+                done[key] = (row, i)
+    _whole(done, tasks)
     return done
 
 
-def _frame_sources(done: dict[str, tuple[CaptureRow, int]],
-                   sources: list[tuple[Path, Path | None]]) -> dict[tuple[int, str], str]:
-    """(source, capture name there) -> path of each finished capture whose frames are all in one file.
+def _frame_sources(done: dict[Key, tuple[CaptureRow, int]], sources: list[tuple[Path, Path | None]],
+                   tasks: list[CaptureTask]) -> dict[tuple[int, str, str], Key]:
+    """(source, capture name there, link name) -> key of each finished row whose frames are all in one file.
 
-    A capture whose size, mtime and settings match gives the same frames in any run, so its
-    frames may come from either file; but all of them from one, or it is redone (dropped
-    from `done`).
+    A row whose size, mtime and settings match gives the same frames in any run, so its
+    frames may come from either file; but all of them from one, or its capture is redone
+    (all its rows dropped from `done`).
     """
-    counts: dict[tuple[int, str], int] = {}
+    counts: dict[tuple[int, str, str], int] = {}
     for i, (_, fp) in enumerate(sources):
         if fp is not None and fp.exists():
             for line in complete_lines(fp, strict=False):
                 with contextlib.suppress(ValueError, AttributeError, TypeError, KeyError):
-                    key = (i, json.loads(line)["capture"])
+                    rec = json.loads(line)
+                    key = (i, rec["capture"], rec.get("link", ""))
                     counts[key] = counts.get(key, 0) + 1
-    keep: dict[tuple[int, str], str] = {}
-    for path, (row, i) in list(done.items()):
+    keep: dict[tuple[int, str, str], Key] = {}
+    for key, (row, i) in list(done.items()):
         want = row.frame_records
-        src = next((j for j in (i, 1 - i) if want is not None and counts.get((j, row.capture), 0) == want), None)
+        src = next((j for j in (i, 1 - i)
+                    if want is not None and counts.get((j, row.capture, row.link_name), 0) == want), None)
         if src is None:
-            del done[path]
+            del done[key]
         else:
-            keep[(src, row.capture)] = path
-    return keep
+            keep[(src, row.capture, row.link_name)] = key
+    _whole(done, tasks)
+    return {k: v for k, v in keep.items() if v in done}
 
 
-def _copy_frames(out, sources: list[tuple[Path, Path | None]], keep: dict[tuple[int, str], str],
-                 rows: dict[str, CaptureRow]) -> None:
-    """The kept captures' frames into the new frames journal, under their names of this run."""
+def _copy_frames(out, sources: list[tuple[Path, Path | None]], keep: dict[tuple[int, str, str], Key],
+                 rows: dict[Key, CaptureRow]) -> None:
+    """The kept rows' frames into the new frames journal, under their capture's name of this run."""
     for i, (_, fp) in enumerate(sources):
         if fp is None or not fp.exists() or not any(k[0] == i for k in keep):
             continue
         for line in complete_lines(fp, strict=False, note=False):  # noted when counted
             try:
                 rec = json.loads(line)
-                path = keep.get((i, rec["capture"]))
-            except (ValueError, KeyError, TypeError):
+                key = keep.get((i, rec["capture"], rec.get("link", "")))
+            except (ValueError, KeyError, TypeError, AttributeError):
                 continue
-            if path is None:
+            if key is None:
                 continue
-            if rec["capture"] != rows[path].capture:
-                rec["capture"] = rows[path].capture
+            if rec["capture"] != rows[key].capture:
+                rec["capture"] = rows[key].capture
                 line = json.dumps(rec) + "\n"
             out.write(line)
 
 
-def carry_over(tasks: list[CaptureTask], report: Path, frames: Path | None) -> dict[str, CaptureRow]:
-    """Resume: rewrite the journals to hold the finished captures; return their rows by path."""
+def carry_over(tasks: list[CaptureTask], report: Path, frames: Path | None) -> dict[Key, CaptureRow]:
+    """Resume: rewrite the journals to hold the finished captures; return their rows by key (path, link name).
+
+    A capture is finished only when every one of its links has a row that still holds (and,
+    with a frames file, all that row's frames); otherwise all its links are redone.
+    """
     sources = [(report, frames), (partial_path(report), None if frames is None else partial_path(frames))]
     done = _finished(tasks, sources)
-    keep = _frame_sources(done, sources) if frames is not None else {}
-    current = {t.path: t for t in tasks}
+    keep = _frame_sources(done, sources, tasks) if frames is not None else {}
+    current = {key: t for t in tasks for key in t.keys()}
     rows = {}
-    for path, (row, _) in done.items():
-        t = current[path]
-        rows[path] = dataclasses.replace(row, capture=t.capture, transmitter=t.transmitter, link=t.link_path,
-                                         frame_records=row.frame_records if frames is not None else None)
+    for key, (row, _) in done.items():
+        t = current[key]
+        rows[key] = dataclasses.replace(row, capture=t.capture, transmitter=t.label(key[1]), link=t.profile(key[1]),
+                                        frame_records=row.frame_records if frames is not None else None)
     # the frames journal first: a row must never point at frames that are not there
     if frames is not None:
         with atomic_writer(sources[1][1], "w") as out:

@@ -1,4 +1,4 @@
-"""The batch report: one CSV row per capture (the schema), reading it back, and the final rewrite.
+"""The batch report: one CSV row per capture and link (the schema), reading it back, and the final rewrite.
 
 The columns are the fields of :class:`CaptureRow`, in order; :data:`COLUMN_HELP` says what
 each one holds. Rates are fractions in the CSV (0.188), and the text summary shows them as
@@ -30,10 +30,11 @@ N_WEAKEST = 5
 
 @dataclass(frozen=True)
 class CaptureRow:
-    """One capture's row of the batch report (CSV columns in field order; see :data:`COLUMN_HELP`).
+    """One capture's row of the batch report, for one of its links (CSV columns in field order; see
+    :data:`COLUMN_HELP`).
 
     Rates are fractions, ``*_db`` decibels; None where nothing could be measured (and for
-    every figure of a capture that failed).
+    every figure of a capture that failed). A row is known by its :attr:`key`, (path, link name).
     """
 
     capture: str
@@ -43,6 +44,7 @@ class CaptureRow:
     warnings: tuple[str, ...] = ()
     transmitter: str = ""
     link: str = ""
+    link_name: str = ""
     start_time: str | None = None
     duration_s: float | None = None
     bursts: int | None = None
@@ -78,6 +80,11 @@ class CaptureRow:
     @property
     def ok(self) -> bool:
         return self.status == "ok"
+
+    @property
+    def key(self) -> tuple[str, str]:
+        """(path, link_name): what tells rows apart in a report, its journal and ``--resume``."""
+        return self.path, self.link_name
 
     def as_dict(self) -> dict[str, Any]:
         """JSON-ready dict (warnings as a list)."""
@@ -139,12 +146,14 @@ _COLUMN_KIND = {
 #: What each column holds (the README's column list says the same).
 COLUMN_HELP = {
     "capture": "the capture as collected (a SigMF pair by its .sigmf-meta)",
-    "path": "its absolute path; the key of --resume",
+    "path": "its absolute path; with link_name, the key of --resume",
     "status": "ok, or error when the capture could not be assessed",
     "error": "Type: message, when the capture failed",
     "warnings": "tolerated defects (cut final sample, NaN/Inf, clipping), separated by '; '",
-    "transmitter": "the folder of its link.toml, or a label by carrier error such as 'tx1 (+420 Hz)'",
+    "transmitter": "the folder of its link.toml, or a label by carrier error such as 'tx1 (+420 Hz)'; with several "
+                   "links the link's name first, as in 'gauges: tx1 (+420 Hz)'",
     "link": "the link profile that applied: a folder link.toml, or the --link profile; empty for flags alone",
+    "link_name": "the link's name when a capture is assessed for several links (a row per link); empty for one",
     "start_time": "SigMF core:datetime, or the data file's modification time marked (mtime)",
     "duration_s": "length of the capture, s",
     "bursts": "bursts found",
@@ -167,11 +176,11 @@ COLUMN_HELP = {
     "margin_db": "Eb/N0 minus what the target BER needs, dB",
     "size_bytes": "capture size (a SigMF pair's two files summed); for --resume",
     "mtime_ns": "latest modification time, ns since 1970; for --resume",
-    "frame_records": "frames written to the frames file for this capture (empty: no frames file)",
+    "frame_records": "frames written to the frames file for this capture and link (empty: no frames file)",
     "settings_digest": "SHA-256 digest (first 12 hex digits) of the decoding settings: the link and the target "
                        "BER. Equal digests, same settings; --resume redoes a capture whose digest changed",
-    "elapsed_s": "wall time the capture took, s",
-    "cpu_s": "CPU time it took (of the thread that processed it), s",
+    "elapsed_s": "wall time the capture took, s (all its links: they share one pass)",
+    "cpu_s": "CPU time it took (of the thread that processed it; all its links), s",
 }
 
 
@@ -252,16 +261,18 @@ def write_rows(out, rows: Iterable[CaptureRow]) -> None:
         writer.writerow(row.to_csv())
 
 
-def labelled_frames(journal: Path, out, labels: Mapping[str, str]) -> None:
-    """Copy the frames journal to `out`, each frame given its capture's ``transmitter`` label.
+def labelled_frames(journal: Path, out, labels: Mapping[tuple[str, str], str]) -> None:
+    """Copy the frames journal to `out`, each frame given the ``transmitter`` label of its row.
 
-    The labels by carrier error exist only once every capture is done, so the frames written
-    while the batch ran get theirs here, in the final rewrite.
+    `labels` is by (capture, link name), the link name "" for a capture's one unnamed link
+    (whose frames carry no ``link``). The labels by carrier error exist only once every
+    capture is done, so the frames written while the batch ran get theirs here, in the final
+    rewrite.
     """
     for line in complete_lines(journal, strict=False, note=False):
         try:
             rec = json.loads(line)
-            rec["transmitter"] = labels.get(rec["capture"], "")
+            rec["transmitter"] = labels.get((rec["capture"], rec.get("link", "")), "")
         except (ValueError, KeyError, TypeError):
             continue  # a line that was never a frame of ours (dropped when resuming too)
         out.write(json.dumps(rec) + "\n")
@@ -274,14 +285,15 @@ class BatchResult:
     Attributes
     ----------
     rows : tuple of CaptureRow
-        One per capture collected, in collection order (as in the report).
+        One per capture collected and link, in collection order, then link order (as in the report).
     n_ok, n_failed : int
+        Rows (a capture of several links counts once per link).
     n_frames, n_frames_crc_ok : int
         Frames found (and with a good CRC) over all captures.
     weakest : tuple of CaptureRow
         The five captures with the least margin to the target BER.
     n_skipped : int
-        Captures taken over from an earlier run (``resume``).
+        Captures taken over from an earlier run (``resume``), with all their rows.
     report : str
     frames : str or None
     elapsed_s : float
@@ -297,6 +309,11 @@ class BatchResult:
     report: str = ""
     frames: str | None = None
     elapsed_s: float = 0.0
+
+    @property
+    def n_captures(self) -> int:
+        """Captures the rows are of (fewer than the rows when captures have several links)."""
+        return len({r.path for r in self.rows})
 
     @classmethod
     def of(cls, rows: Sequence[CaptureRow], **kw: Any) -> "BatchResult":

@@ -16,7 +16,7 @@ from ..link import Link
 from . import executors, journal
 from .collect import FolderLink, Found, discover, fingerprint, folder_links, mtime_time
 from .journal import Journal, lock_path, partial_path
-from .report import BatchResult, CaptureRow, labelled_frames, settings_digest, write_rows
+from .report import BatchResult, CaptureRow, labelled_frames, write_rows
 from .transmitters import label_transmitters
 from .worker import CaptureTask
 
@@ -60,15 +60,18 @@ def _check_outputs(report: Path, frames: Path | None, plot, found: list[Found], 
     check_distinct(outputs, ins)
 
 
-def _link_source(link_source, inputs: list[tuple[str, Any]]) -> str:
-    """The name of the batch's own link for the ``link`` column: given, or the profile among `inputs`."""
-    if link_source is None:  # the command line names its --link profile among the inputs
-        link_source = next((p for role, p in inputs if p is not None and "link" in role), None)
-    return "" if link_source is None else os.fspath(link_source)
+def _link_source(link_source, inputs: list[tuple[str, Any]]) -> str | dict[str, str]:
+    """The ``link`` column of the batch's own link(s): given (one profile, or one per link name), or else
+    the profile(s) among `inputs` (several joined by "; ")."""
+    if isinstance(link_source, Mapping):
+        return {str(name): os.fspath(p) for name, p in link_source.items()}
+    if link_source is None:  # the command line names its --link profile(s) among the inputs
+        return "; ".join(os.fspath(p) for role, p in inputs if p is not None and "link" in role)
+    return os.fspath(link_source)
 
 
 def _tasks(found: list[Found], links: list[FolderLink], *, target_ber: float, want_frames: bool,
-           link_source: str) -> list[CaptureTask]:
+           link_source: str | dict[str, str]) -> list[CaptureTask]:
     tasks = []
     for f, lk in zip(found, links):
         size, mtime = fingerprint(f.path)
@@ -76,14 +79,14 @@ def _tasks(found: list[Found], links: list[FolderLink], *, target_ber: float, wa
             capture=str(f.path), path=os.path.abspath(f.path), link=lk.link, target_ber=target_ber,
             want_frames=want_frames, link_path=lk.path or (link_source if lk.link is not None else ""),
             link_error=lk.error, transmitter=lk.label, size_bytes=size, mtime_ns=mtime,
-            mtime_time=mtime_time(f.path), settings_digest=settings_digest(lk.link, target_ber),
+            mtime_time=mtime_time(f.path),
         ))
     return tasks
 
 
-def _process(todo: list[CaptureTask], rows: dict[str, CaptureRow], report: Path, frames: Path | None, *,
-             jobs: int | None, cluster: str | None, lock_fd: int | None, progress: bool) -> Journal:
-    """Every capture of `todo` through an executor into the journal (and `rows`); the journal, closed."""
+def _process(todo: list[CaptureTask], rows: dict[tuple[str, str], CaptureRow], report: Path, frames: Path | None,
+             *, jobs: int | None, cluster: str | None, lock_fd: int | None, progress: bool) -> Journal:
+    """Every capture of `todo` through an executor into the journal (and `rows`, by key); the journal, closed."""
     # the workers first: a forked worker must find no other thread and no open journal
     source = executors.start(todo, jobs=jobs, cluster=cluster, lock_fd=lock_fd)
     interrupted = True
@@ -97,9 +100,9 @@ def _process(todo: list[CaptureTask], rows: dict[str, CaptureRow], report: Path,
         n_failed = 0
         for task, outcome in source:
             book.add(outcome)
-            rows[task.path] = outcome.row
+            rows.update((row.key, row) for row in outcome.rows)
             if bar is not None:
-                n_failed += not outcome.row.ok
+                n_failed += not all(row.ok for row in outcome.rows)
                 bar.set_postfix(failed=n_failed, refresh=False)
                 bar.update(1)
         interrupted = False
@@ -117,7 +120,7 @@ def _commit(ordered: list[CaptureRow], book: Journal, report: Path, frames: Path
     with atomic_files() as files:
         if frames is not None:
             labelled_frames(book.frames_part, files.open(frames, "w"),
-                            {r.capture: r.transmitter for r in ordered})
+                            {(r.capture, r.link_name): r.transmitter for r in ordered})
         write_rows(files.open(report, "w"), ordered)
     for part in filter(None, (book.frames_part, book.report_part)):  # kept for --resume until now
         with contextlib.suppress(FileNotFoundError):
@@ -126,7 +129,7 @@ def _commit(ordered: list[CaptureRow], book: Journal, report: Path, frames: Path
 
 def run_batch(
     paths: Iterable[str | os.PathLike],
-    link: Link | None,
+    link: Link | Mapping[str, Link] | None,
     *,
     report: str | os.PathLike,
     frames: str | os.PathLike | None = None,
@@ -135,32 +138,37 @@ def run_batch(
     cluster: str | None = None,
     target_ber: float = 1e-5,
     link_overrides: Mapping[str, Any] | None = None,
-    link_source: str | os.PathLike | None = None,
+    link_source: str | os.PathLike | Mapping[str, str | os.PathLike] | None = None,
     plot: str | os.PathLike | None = None,
     progress: bool = False,
     inputs: Iterable[tuple[str, str | os.PathLike | None]] = (),
 ) -> BatchResult:
-    """Assess every capture under `paths` and write the report (and frames).
+    """Assess every capture under `paths` and write the report (and frames): a row per capture and link.
 
     Parameters
     ----------
     paths : iterable of str or PathLike
         Files, folders or glob patterns (see :func:`collect_captures`).
-    link : Link or None
-        The link of every capture not below a folder ``link.toml``; None when
-        every capture has a folder profile.
+    link : Link, mapping of str to Link, or None
+        The link of every capture not below a folder ``link.toml``, or several
+        by name (:func:`iqdemod.load_links`): each capture is then read once for
+        all of them and has a row per link (``link_name``); None when every
+        capture has a folder profile. A folder profile with several
+        ``[[signal]]`` entries gives its captures several links the same way.
     report : str or PathLike
-        The CSV report, one row per capture (columns: :data:`COLUMNS`, described in
-        :data:`COLUMN_HELP`).
+        The CSV report, one row per capture and link, in collection order, then
+        link order (columns: :data:`COLUMNS`, described in :data:`COLUMN_HELP`).
     frames : str or PathLike, optional
         Write every frame of every capture here as JSON Lines (``capture`` is the
-        report's name of the capture, ``transmitter`` its label). Each capture's
-        frames are together and in time order; the captures in the order they finished.
+        report's name of the capture, ``link`` the link's name when it has one,
+        ``transmitter`` its row's label). Each capture's frames are together, each
+        link's in time order; the captures in the order they finished.
     jobs : int, optional
         Worker processes, each decoding with one thread; default one per core. 1
         runs in this process, with one thread.
     resume : bool
-        Keep the captures an earlier run finished (see the package notes).
+        Keep the captures an earlier run finished (see the package notes); a
+        capture of several links counts as finished only when all of its rows do.
     cluster : str, optional
         Address of a running Dask scheduler (``tcp://host:8786``); the captures
         are then processed by its workers, `jobs` is ignored.
@@ -169,9 +177,10 @@ def run_batch(
     link_overrides : mapping, optional
         Flag-style values (:func:`iqdemod.load_link`) applied on top of every
         folder profile, as they were on top of `link`.
-    link_source : str or PathLike, optional
-        What the ``link`` column names for `link` (its profile); by default the
-        input whose role names a link profile in `inputs`, else nothing.
+    link_source : str, PathLike or mapping of str to one, optional
+        What the ``link`` column names for `link` (its profile), or for each of
+        several links by name; by default the inputs whose role names a link
+        profile in `inputs` (several joined by "; "), else nothing.
     plot : str or PathLike, optional
         Also write the trend figure (:func:`plot_trend`) here.
     progress : bool
@@ -240,10 +249,10 @@ def run_batch(
         else:
             rows = {}
             journal.clear(report, frames_path)
-        todo = [t for t in tasks if t.path not in rows]
+        todo = [t for t in tasks if any(key not in rows for key in t.keys())]
         book = _process(todo, rows, report, frames_path, jobs=jobs, cluster=cluster, lock_fd=lock_fd,
                         progress=progress)
-        ordered = [rows[t.path] for t in tasks]
+        ordered = [rows[key] for t in tasks for key in t.keys()]
         ordered = [dataclasses.replace(r, transmitter=lab) for r, lab in zip(ordered, label_transmitters(ordered))]
         _commit(ordered, book, report, frames_path)
     if plot is not None:

@@ -51,7 +51,8 @@ def _series(rows: Sequence[CaptureRow]) -> dict[str, list[tuple[datetime, Captur
     for r in rows:
         t = _parse_time(r.start_time)
         if r.ok and t is not None and (r.ebn0_db is not None or r.fer_observed is not None):
-            series.setdefault(r.transmitter or "unknown", []).append((t, r))
+            unknown = f"{r.link_name}: unknown" if r.link_name else "unknown"
+            series.setdefault(r.transmitter or unknown, []).append((t, r))
     for pts in series.values():
         pts.sort(key=lambda p: p[0])
     return dict(sorted(series.items()))
@@ -119,7 +120,8 @@ def plot_trend(source: str | os.PathLike | Sequence[CaptureRow], png: str | os.P
     1 − 0.05^(1/n) for n frames (:func:`zero_error_bound`), with an arrow down. The
     predicted frame error rate is the dashed line of the same colour, with a mark
     on each capture (one below 1e-12 sits on the panel's floor). Captures that failed, or have no time or no measurement,
-    are left out (the title says how many). Colours: :func:`iqdemod.plots.series_colour`.
+    are left out (the title says how many). With several links a capture has a point per link, on the
+    line of that link's transmitter (labels are told apart by link, :func:`label_transmitters`). Colours: :func:`iqdemod.plots.series_colour`.
 
     Raises
     ------
@@ -182,6 +184,9 @@ def plot_trend(source: str | os.PathLike | Sequence[CaptureRow], png: str | os.P
         ax1.text(0.5, 0.5, "no capture with a time and a measurement", ha="center", va="center",
                  transform=ax1.transAxes)
     left = len(rows) - shown
-    fig.suptitle(f"Link trend: {shown} capture(s), {len(series)} transmitter(s)"
-                 + (f"; {left} left out (failed or unmeasured)" if left else ""))
+    # with several links a capture has a row (and a point) per link
+    n_captures = len({r.path for pts in series.values() for _, r in pts})
+    per_link = f" ({shown} rows: one per link)" if shown > n_captures else ""
+    fig.suptitle(f"Link trend: {n_captures} capture(s){per_link}, {len(series)} transmitter(s)"
+                 + (f"; {left}{' row(s)' if per_link else ''} left out (failed or unmeasured)" if left else ""))
     save_figure(fig, png)
