@@ -85,23 +85,26 @@ _LINK_OPTIONS = [
 ]
 
 
-def link_options(fn: Callable | None = None, *, several: bool = False) -> Callable:
+_SEVERAL_HELP = ("TOML link profile; the flags below override its values. Give it again (or use a profile "
+                 "with several [[signal]] entries) to decode several links in one pass: frames then carry "
+                 "their link's name.")
+
+
+def link_options(fn: Callable | None = None, *, several: bool = False, link_help: str = _SEVERAL_HELP) -> Callable:
     """Add the link-description options to a command.
 
     With `several`, ``--link`` may be given more than once (each profile one
     link, or one per ``[[signal]]`` entry), for a command that decodes several
-    links in one pass; read them with :func:`links_from_options`.
+    links in one pass; read them with :func:`links_from_options`. `link_help`
+    is then its help text.
     """
 
     def add(fn: Callable) -> Callable:
         for opt in reversed(_LINK_OPTIONS[1:]):
             fn = opt(fn)
         if several:
-            return click.option(
-                "--link", "link", multiple=True, type=click.Path(dir_okay=False, path_type=Path),
-                help="TOML link profile; the flags below override its values. Give it again (or use a profile "
-                     "with several [[signal]] entries) to decode several links in one pass: frames then carry "
-                     "their link's name.")(fn)
+            return click.option("--link", "link", multiple=True, type=click.Path(dir_okay=False, path_type=Path),
+                                help=link_help)(fn)
         return _LINK_OPTIONS[0](fn)
 
     return add if fn is None else add(fn)
@@ -133,19 +136,32 @@ def _pop_link_options(kw: dict[str, Any]) -> tuple[Any, dict[str, Any]]:
     return kw.pop("link", None), overrides
 
 
-def links_from_options(kw: dict[str, Any]) -> tuple[iqdemod.Link | dict[str, iqdemod.Link], list[Path]]:
+def links_from_options(kw: dict[str, Any], *, optional: bool = False
+                       ) -> tuple[iqdemod.Link | dict[str, iqdemod.Link] | None, list[Path]]:
     """The link(s) of a command with several ``--link`` (see :func:`link_options`); pops the options from `kw`.
 
     One profile with one signal (or none, flags alone) gives a plain Link, as
     :func:`link_from_options` does; several give a dict of named links. Also
-    returns the profile paths (inputs that no output may replace).
+    returns the profile paths (inputs that no output may replace). With
+    `optional`, a command line that names no link at all gives None, as
+    :func:`link_from_options` does.
     """
     given, overrides = _pop_link_options(kw)
     paths = list(given or ())
     if not paths:  # flags alone
+        if optional and overrides["baud"] is None and overrides["shift"] is None:
+            return None, paths
         return iqdemod.load_link(None, **overrides), paths
     links = iqdemod.load_links(paths, **overrides)
     return (next(iter(links.values())) if len(links) == 1 else links), paths
+
+
+def link_profiles(links: iqdemod.Link | dict[str, iqdemod.Link] | None, paths: list[Path]) -> str | dict[str, str]:
+    """Which ``--link`` profile each link of :func:`links_from_options` came from: one path for a single
+    link ("" for flags alone), else a dict by link name."""
+    if not isinstance(links, dict):
+        return str(paths[0]) if paths else ""
+    return {name: str(p) for p in paths for name in iqdemod.profile.link_names(p)}
 
 
 def say(message: str) -> None:

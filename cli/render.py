@@ -321,24 +321,33 @@ def _pulse(s) -> str:
 
 
 def batch_summary(result, *, weakest_shown: int = 5) -> list[str]:
-    """Closing lines of a batch for people: counts, the weakest links, the first failures."""
+    """Closing lines of a batch for people: counts, the weakest links, the first failures.
+
+    With several links a capture has a row per link: the counts are then of rows, and each
+    row is named by its capture and its link's name.
+    """
     skipped = f" ({result.n_skipped} done before)" if result.n_skipped else ""
+    rows = f" ({len(result.rows)} rows: one per link)" if len(result.rows) > result.n_captures else ""
     lines = [
-        f"{len(result.rows)} capture(s){skipped}: {result.n_ok} ok, {result.n_failed} failed; "
+        f"{result.n_captures} capture(s){rows}{skipped}: {result.n_ok} ok, {result.n_failed} failed; "
         f"{result.n_frames} frame(s), {result.n_frames_crc_ok} with good CRC; {result.elapsed_s:.1f} s -> "
         f"{result.report}"
     ]
+
+    def name(r) -> str:
+        return f"{r.capture} ({r.link_name})" if r.link_name else r.capture
+
     if result.weakest:
         lines.append(f"weakest {len(result.weakest)} by margin:")
-        width = max(len(r.capture) for r in result.weakest)
+        width = max(len(name(r)) for r in result.weakest)
         for r in result.weakest:
             tx = f"  [{r.transmitter}]" if r.transmitter else ""
             ebn0 = "" if r.ebn0_db is None else f"  Eb/N0 {r.ebn0_db:5.1f} dB"
             fer = r.fer_observed
             fer_text = "" if fer is None else f"  frame error rate {pct(fer)}"
-            lines.append(f"  {r.capture:<{width}}  margin {r.margin_db:+6.1f} dB{ebn0}{fer_text}{tx}")
+            lines.append(f"  {name(r):<{width}}  margin {r.margin_db:+6.1f} dB{ebn0}{fer_text}{tx}")
     failed = [r for r in result.rows if not r.ok]
-    lines += [f"failed: {r.capture}: {r.error}" for r in failed[:weakest_shown]]
+    lines += [f"failed: {name(r)}: {r.error}" for r in failed[:weakest_shown]]
     if len(failed) > weakest_shown:
         lines.append(f"failed: … and {len(failed) - weakest_shown} more (see the report)")
     return lines

@@ -91,7 +91,7 @@ def test_one_terminated_class_and_batch_uses_it():
 
 def test_batch_builds_its_link_with_the_shared_helper():
     source = (CLI_DIR / "commands" / "batch.py").read_text()
-    assert "link_from_options(link_kw, optional=True)" in source and "load_link" not in source
+    assert "links_from_options(link_kw, optional=True)" in source and "load_link" not in source
 
 
 def test_one_json_sanitiser():

@@ -16,7 +16,7 @@ COMMANDS = {
     "survey": "Find the bursty FSK signals in a capture and measure them.",
     "decode": "Decode the frames in one or more captures and write them as JSON Lines.",
     "health": "Assess a link: Eb/N0, predicted and observed error rates, margin, transmitter health.",
-    "batch": "Assess every capture of an archive and write one CSV row per capture.",
+    "batch": "Assess every capture of an archive and write one CSV row per capture and link.",
     "curves": "Tabulate BER and frame error rate against Eb/N0 for planning a link.",
     "synth": "Write a synthetic capture of FSK bursts in white noise (SigMF pair + truth JSON).",
 }
