@@ -14,6 +14,11 @@ import collections
 import csv
 import dataclasses
 import json
+import os
+import signal
+import subprocess
+import sys
+import time
 from pathlib import Path
 
 import numpy as np
@@ -256,13 +261,68 @@ def test_resume_redoes_a_capture_with_a_link_row_missing(fleet, counted_run, tmp
     assert B.run_batch([root / "arch"], other, report=report, frames=frames, resume=True, jobs=1).n_skipped == 4
 
 
+# the command line in a child, each capture made to take 0.3 s longer (a sleep before it is read) so that
+# the kill lands in the middle of the run; SIGINT back to Ctrl-C's usual meaning, as in tests/test_batch.py
+_SLOW_SCRIPT = ("import signal, sys, time; signal.signal(signal.SIGINT, signal.default_int_handler)\n"
+                "from iqdemod.batch import executors, worker\n"
+                "def slow(task):\n    time.sleep(0.3)\n    return worker.process_capture(task)\n"
+                "executors.process_capture = slow\n"
+                "from iqdemod_cli.main import main; sys.exit(main())\n")
+
+
+def test_kill_and_resume_with_two_links(fleet, counted_run, tmp_path):
+    root, _ = fleet
+    _, report0, frames0, _, _ = counted_run
+    arch = tmp_path / "arch"
+    for copy in ("a", "b"):  # eight captures: each of the fleet's four twice
+        (arch / copy).mkdir(parents=True)
+        for f in (root / "arch").iterdir():
+            (arch / copy / f.name).write_bytes(f.read_bytes())
+    report, frames = tmp_path / "r.csv", tmp_path / "f.jsonl"
+    links = ["--link", str(root / "buoys.toml"), "--link", str(root / "gauges.toml")]
+    here = Path(__file__).resolve().parents[1]
+    env = {**os.environ, "PYTHONPATH": os.pathsep.join(filter(None, [str(here), os.environ.get("PYTHONPATH")]))}
+    proc = subprocess.Popen([sys.executable, "-c", _SLOW_SCRIPT, "batch", str(arch), *links, "-o", str(report),
+                             "--frames", str(frames), "-j", "1", "-q"], env=env, stderr=subprocess.PIPE, text=True)
+    journal = B.partial_path(report)
+    deadline = time.monotonic() + 60
+    while time.monotonic() < deadline and proc.poll() is None:
+        if journal.exists() and journal.read_text().count("\n") >= 3:  # the header and a capture's two rows
+            break
+        time.sleep(0.01)
+    assert proc.poll() is None, "the batch ended before it could be killed"
+    proc.send_signal(signal.SIGKILL)
+    proc.communicate(timeout=30)
+    assert proc.returncode == -9 and not report.exists()
+    kept = B.read_report(journal)
+    whole = [c for c, n in collections.Counter(r.capture for r in kept).items() if n == 2]
+    assert 1 <= len(whole) < 8 and all(r.ok for r in kept)
+    res = CliRunner().invoke(main, ["batch", str(arch), *links, "-o", str(report), "--frames", str(frames),
+                                    "--resume", "-j", "1", "-q"])
+    assert res.exit_code == 0, res.output
+    rows = _read_csv(report)
+    assert [(r["capture"], r["link_name"]) for r in rows] == [
+        (str(arch / copy / f"night{k}.sigmf-meta"), name) for copy in ("a", "b") for k in range(N_CAPTURES)
+        for name in ("buoys", "gauges")]
+    # nothing lost, nothing twice: what one uninterrupted run of the fleet wrote, for each copy
+    cols = ("link_name", "status", "frames", "frames_crc_ok", "settings_digest", "frame_records", "ebn0_db")
+    ref = {(Path(r["capture"]).name, r["link_name"]): [r[c] for c in cols] for r in _read_csv(report0)}
+    assert [[r[c] for c in cols] for r in rows] == [ref[(Path(r["capture"]).name, r["link_name"])] for r in rows]
+    want = _frame_keys(_read_jsonl(frames0))
+    assert _frame_keys(_read_jsonl(frames)) == want + want
+    assert not journal.exists() and not B.partial_path(frames).exists()
+
+
 def _same_as(report0: Path, frames0: Path, report: Path, frames: Path) -> None:
     """The report and frames of a resumed run hold what one uninterrupted run wrote."""
     cols = ("capture", "link_name", "status", "frames", "frames_crc_ok", "transmitter", "settings_digest",
             "frame_records", "ebn0_db")
     assert [[r[c] for c in cols] for r in _read_csv(report)] == [[r[c] for c in cols] for r in _read_csv(report0)]
     assert _frame_keys(_read_jsonl(frames)) == _frame_keys(_read_jsonl(frames0))
-    assert [r.get("transmitter") for r in _read_jsonl(frames)] != [] and not B.partial_path(report).exists()
+    labels = {(r["capture"], r["link_name"]): r["transmitter"] for r in _read_csv(report)}
+    records = _read_jsonl(frames)
+    assert records and all(f["transmitter"] == labels[(f["capture"], f["link"])] for f in records)
+    assert not B.partial_path(report).exists() and not B.partial_path(frames).exists()
 
 
 def test_command_line_with_two_profiles(fleet, tmp_path):
