@@ -30,10 +30,10 @@ class Finite(click.FloatRange):
         return f"{lo}x{hi}" if lo or hi else "finite"
 
     def convert(self, value, param, ctx):
-        rv = super().convert(value, param, ctx)
-        if not math.isfinite(rv):
+        number = click.FLOAT.convert(value, param, ctx)
+        if not math.isfinite(number):  # before the range: "inf is not in the range finite" says nothing
             self.fail(f"{quote(value)} is not a finite number.", param, ctx)
-        return rv
+        return super().convert(number, param, ctx)
 
 
 def finite(lo: float | None = None, hi: float | None = None, **kw) -> Finite:
@@ -41,12 +41,18 @@ def finite(lo: float | None = None, hi: float | None = None, **kw) -> Finite:
     return Finite(-sys.float_info.max if lo is None else lo, sys.float_info.max if hi is None else hi, **kw)
 
 
+#: The two options of a raw capture's format, shared by the link options and the survey.
+DATATYPE_OPTION = click.option(
+    "--datatype", help="SigMF datatype of a raw capture: cu8, ci8, ci16_le, ci16_be, cf32_le, cf64_le, …")
+# its range is the library's check (one line naming the flag, status 2, as every link value's)
+RATE_OPTION = click.option("--rate", type=finite(),
+                           help=f"Sample rate of a raw capture, Hz (> 0, at most {MAX_SAMPLE_RATE_HZ:g}).")
+
 _LINK_OPTIONS = [
     click.option("--link", "link", type=click.Path(dir_okay=False, path_type=Path),
                  help="TOML link profile; the flags below override its values."),
-    click.option("--datatype", help="SigMF datatype of a raw capture: cu8, ci8, ci16_le, ci16_be, cf32_le, cf64_le, …"),
-    # the range of --rate is checked with the capture (exit status 1), as a profile's would be
-    click.option("--rate", type=finite(), help=f"Sample rate of a raw capture, Hz (> 0, at most {MAX_SAMPLE_RATE_HZ:g})."),
+    DATATYPE_OPTION,
+    RATE_OPTION,
     click.option("--offset", type=finite(-MAX_FREQUENCY_HZ, MAX_FREQUENCY_HZ),
                  help="Signal centre relative to the capture centre, Hz (+ = above)."),
     click.option("--frequency", type=finite(0, MAX_FREQUENCY_HZ, min_open=True),

@@ -28,14 +28,14 @@ from typing import Any, Iterator
 import click
 
 import iqdemod
-from iqdemod.errors import IqdemodError, IqdemodWarning, OutputError, quote
+from iqdemod.errors import FlagError, IqdemodError, IqdemodWarning, OutputError, quote
 
 from ._signals import Terminated, restore_signals, stop_signals_raise
 from .commands import COMMANDS
 
 __all__ = ["main", "LazyGroup"]
 
-EXIT_FAILED = 1  # the same as _common.EXIT_FAILED, which this module does not import (it loads the library)
+EXIT_FAILED, EXIT_USAGE = 1, 2  # as in _common, which this module does not import (it loads the library)
 
 
 class _ClosedStdout:
@@ -138,6 +138,8 @@ class LazyGroup(click.Group):
             devnull = os.open(os.devnull, os.O_WRONLY)
             os.dup2(devnull, sys.stdout.fileno())
             ctx.exit(0)
+        except FlagError as exc:  # a flag's value wrong on its own: a usage error, as click's range checks are
+            _fail(ctx, debug, str(exc), EXIT_USAGE)
         except IqdemodError as exc:
             _fail(ctx, debug, str(exc), EXIT_FAILED)
         except OSError as exc:

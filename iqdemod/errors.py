@@ -7,8 +7,8 @@ A value the user gave is quoted with :func:`quote`, at most 80 characters of it.
 
 from __future__ import annotations
 
-__all__ = ["IqdemodError", "CaptureError", "LinkError", "EstimateError", "OutputError", "IqdemodWarning", "quote",
-           "QUOTE_CHARS"]
+__all__ = ["IqdemodError", "CaptureError", "LinkError", "FlagError", "EstimateError", "OutputError", "IqdemodWarning",
+           "quote", "QUOTE_CHARS"]
 
 QUOTE_CHARS = 80
 
@@ -23,6 +23,23 @@ class CaptureError(IqdemodError):
 
 class LinkError(IqdemodError, ValueError):
     """A link description (profile or flags) has a bad, missing or unknown value."""
+
+
+class FlagError(LinkError):
+    """A link value given as a flag (a keyword of :func:`iqdemod.load_link`) is wrong on its own.
+
+    The message begins with the flag (``--rate: sample rate -5 Hz: must be > 0``), and
+    :attr:`flag` holds it, so that the command line can report it as a usage error of that
+    flag; a wrong value in a profile stays a plain :class:`LinkError` naming the profile.
+    """
+
+    def __init__(self, flag: str, message: str):
+        super().__init__(f"{flag}: {message}")
+        self.flag = flag
+        self.detail = message
+
+    def __reduce__(self):  # picklable (batch workers hand errors back)
+        return type(self), (self.flag, self.detail)
 
 
 class EstimateError(IqdemodError, ValueError):

@@ -38,7 +38,7 @@ import numpy as np
 from .coding import BIT_ORDERS, CODINGS, WHITENINGS, symbols_per_bit
 from .capture import MAX_SAMPLE_RATE_HZ
 from .crc import crc_spec
-from .errors import LinkError, quote
+from .errors import CaptureError, LinkError, quote
 
 __all__ = ["CaptureFormat", "SignalSpec", "FrameSpec", "Link", "sync_label"]
 
@@ -121,11 +121,14 @@ class CaptureFormat:
         if self.datatype is not None:
             from .capture import parse_datatype  # late: capture imports link's errors only
 
-            parse_datatype(self.datatype)
+            try:
+                parse_datatype(self.datatype)
+            except CaptureError as exc:  # in a link description it is the link's bad value
+                raise LinkError(str(exc)) from None
         if self.sample_rate is not None:
-            rate = _number("sample rate", self.sample_rate, limit=MAX_SAMPLE_RATE_HZ)
-            if rate <= 0:
-                raise LinkError(f"sample rate {rate:g} Hz: must be > 0")
+            rate = _number("sample rate", self.sample_rate, limit=float("inf"))
+            if not 0 < rate <= MAX_SAMPLE_RATE_HZ:
+                raise LinkError(f"sample rate {rate:g} Hz: must be > 0 and at most {MAX_SAMPLE_RATE_HZ:g}")
             object.__setattr__(self, "sample_rate", rate)
 
 

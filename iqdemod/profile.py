@@ -15,7 +15,7 @@ from pathlib import Path
 from typing import Any, Mapping, Sequence
 
 from .files import read_small_text
-from .errors import LinkError, quote
+from .errors import FlagError, LinkError, quote
 from .link import MAX_LENGTH_BYTES, MAX_PROFILE_BYTES, MAX_SIGNALS, CaptureFormat, FrameSpec, Link, SignalSpec
 
 __all__ = ["OVERRIDES", "check_overrides", "load_link", "load_links", "link_names", "link_to_toml", "link_with"]
@@ -173,7 +173,7 @@ def load_link(path: str | Path | None = None, **overrides: Any) -> Link:
     >>> load_link(None, baud=-1200, shift=1200)
     Traceback (most recent call last):
     ...
-    iqdemod.errors.LinkError: --baud: baud -1200: must be > 0
+    iqdemod.errors.FlagError: --baud: baud -1200: must be > 0
     """
     if path is None:
         return _apply_overrides({}, overrides)
@@ -309,7 +309,7 @@ def _link_from_tables(tables: dict[str, dict[str, Any]], overrides: Mapping[str,
 _NEUTRAL = {"signal": {"baud": 1.0, "shift_hz": 1.0}}
 
 
-def _overrides_error(overrides: Mapping[str, Any]) -> LinkError | None:
+def _overrides_error(overrides: Mapping[str, Any]) -> FlagError | None:
     """The error the overrides give on their own (on neutral values), naming the flag; None when fine."""
     given = {k: v for k, v in overrides.items() if v is not None}
     if not given:
@@ -318,11 +318,11 @@ def _overrides_error(overrides: Mapping[str, Any]) -> LinkError | None:
         try:
             link_with(_NEUTRAL, {name: value})
         except LinkError as exc:
-            return LinkError(f"{_flag(name)}: {exc}")
+            return FlagError(_flag(name), str(exc))
     try:
         link_with(_NEUTRAL, given)
     except LinkError as exc:
-        return LinkError(f"{', '.join(_flag(n) for n in given)}: {exc}")
+        return FlagError(", ".join(_flag(n) for n in given), str(exc))
     return None
 
 
@@ -337,7 +337,7 @@ def check_overrides(overrides: Mapping[str, Any]) -> None:
     >>> check_overrides({"rate": -5.0})
     Traceback (most recent call last):
     ...
-    iqdemod.errors.LinkError: --rate: sample rate -5 Hz: must be > 0
+    iqdemod.errors.FlagError: --rate: sample rate -5 Hz: must be > 0 and at most 1e+11
     """
     error = _overrides_error(overrides)
     if error is not None:

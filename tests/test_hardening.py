@@ -543,8 +543,9 @@ def test_row14_a_bad_profile_value_names_the_profile(tmp_path):
 
 
 def test_row14_a_huge_value_is_quoted_short(inputs):
+    # a flag's value wrong on its own is a usage error (status 2, README "Exit status"), named by its flag
     res = invoke("decode", inputs / "cap.sigmf-meta", "--link", inputs / "l.toml", "--crc", "C" * 10_000_000, "-q")
-    line = assert_refused(res, codes=(1,))
+    line = assert_refused(res, codes=(2,), contains="--crc")
     assert len(line) < 300 and "10000000 characters" in line
     res = invoke("decode", inputs / "cap.sigmf-meta", "--sync-bits", "9" * 10_000, "-q")
     assert len(assert_refused(res, codes=(2,))) < 300

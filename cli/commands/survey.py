@@ -7,13 +7,12 @@ from pathlib import Path
 import click
 
 import iqdemod
-from iqdemod.capture import MAX_SAMPLE_RATE_HZ
 from iqdemod.errors import IqdemodError
 from iqdemod.link import CaptureFormat
 from iqdemod.profile import check_overrides, link_to_toml
 from iqdemod.survey import plot_survey, require_plotting, survey as survey_capture
 
-from .._common import finite, guard_outputs, open_output, say
+from .._common import DATATYPE_OPTION, RATE_OPTION, guard_outputs, open_output, say
 from ..render import survey_table, to_json, wrote
 
 __all__ = ["command"]
@@ -21,9 +20,8 @@ __all__ = ["command"]
 
 @click.command("survey")
 @click.argument("capture", type=click.Path(path_type=Path))
-@click.option("--datatype", help="SigMF datatype of a raw capture: cu8, ci8, ci16_le, ci16_be, cf32_le, cf64_le, …")
-# the range of --rate is checked with the capture (exit status 1), as in every other command
-@click.option("--rate", type=finite(), help=f"Sample rate of a raw capture, Hz (> 0, at most {MAX_SAMPLE_RATE_HZ:g}).")
+@DATATYPE_OPTION
+@RATE_OPTION
 @click.option("--max-signals", type=click.IntRange(1, 64), default=4, show_default=True,
               help="Report at most this many signals (the strongest).")
 @click.option("--json", "as_json", is_flag=True, help="Print the result as JSON instead of a table.")
@@ -45,7 +43,7 @@ def command(capture, datatype, rate, max_signals, as_json, write_link, plot, qui
     CAPTURE --link FILE` accepts.
     """
     guard_outputs([("--write-link", write_link), ("--plot", plot)], captures=[capture])
-    check_overrides({"rate": rate})  # a bad value named by its flag, as decode and health name it
+    check_overrides({"rate": rate, "datatype": datatype})  # a bad value named by its flag, as decode names it
     if plot is not None:
         require_plotting()  # fail before the work, not after
     with iqdemod.open_capture(capture, datatype=datatype, sample_rate=rate) as cap:
