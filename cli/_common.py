@@ -74,7 +74,8 @@ _LINK_OPTIONS = [
     click.option("--sync", help="Sync word in hex, e.g. 0x9B3C57E1; 'none' for raw mode (bits per burst)."),
     click.option("--sync-bits", type=click.IntRange(1, MAX_SYNC_BITS), help="Bits of the sync word that are sent [default: 32]."),
     click.option("--sync-tolerance", type=click.IntRange(0, MAX_SYNC_BITS - 1),
-                 help="Bit errors accepted in the sync word [default: 3]."),
+                 help="Bit errors accepted in the sync word [default: 3 for a 32-bit word; fewer for a short "
+                      "one, so that random bits pass for it at under 1 position in 1000: 1 for 16 bits]."),
     click.option("--length", help="Payload bytes (1–4096), or prefix8: the first byte is the length [default: 24]."),
     click.option("--crc", help="CRC catalogue name, e.g. CRC-16/IBM-3740, or none [default: CRC-16/IBM-3740]."),
     click.option("--coding", type=click.Choice(["nrz", "manchester", "manchester-inverted"], case_sensitive=False),

@@ -40,7 +40,7 @@ from .capture import MAX_SAMPLE_RATE_HZ
 from .crc import crc_spec
 from .errors import CaptureError, LinkError, quote
 
-__all__ = ["CaptureFormat", "SignalSpec", "FrameSpec", "Link", "sync_label"]
+__all__ = ["CaptureFormat", "SignalSpec", "FrameSpec", "Link", "sync_label", "default_sync_tolerance"]
 
 MAX_LENGTH_BYTES = 4096
 PULSES = ("rect", "gaussian")
@@ -100,6 +100,34 @@ def _integer(name: str, value: Any) -> int:
             return int(value)
         raise LinkError(f"{name} {quote(value)}: must be a whole number")
     return int(value)
+
+
+#: A sync word's default tolerance lets random bits pass for it at fewer than this share of positions.
+FALSE_SYNC_SHARE = 1e-3
+
+
+def default_sync_tolerance(sync_bits: int) -> int:
+    """Bit errors accepted in a sync word of `sync_bits` bits when the link does not say: the most,
+    up to 3, for which random bits match the word at fewer than ``FALSE_SYNC_SHARE`` of positions.
+
+    Random bits match an n-bit word with at most t errors with probability
+    Σ_{k≤t} C(n, k)/2ⁿ: 1.3·10⁻⁶ for 32 bits and 3 errors, 2.6·10⁻⁴ for 16 bits
+    and 1, but 2.1·10⁻³ for 16 bits and 2, a false sync word every ~500 bits
+    of payload. Three errors in 32 bits is common practice.
+
+    Examples
+    --------
+    >>> [default_sync_tolerance(n) for n in (8, 12, 16, 24, 32, 64)]
+    [0, 0, 1, 3, 3, 3]
+    """
+    n = int(sync_bits)
+    tol, matched = 0, 1
+    while tol < min(3, n - 1):
+        matched += math.comb(n, tol + 1)
+        if matched / 2.0**n >= FALSE_SYNC_SHARE:
+            break
+        tol += 1
+    return tol
 
 
 @dataclass(frozen=True)
@@ -251,8 +279,10 @@ class FrameSpec:
         The sync word; None means raw mode (one record of hard bits per burst).
     sync_bits : int
         How many bits of `sync_word` are sent (1–64).
-    sync_tolerance : int
-        Bit errors accepted in the sync word (with Manchester, twice as many chip errors).
+    sync_tolerance : int or None
+        Bit errors accepted in the sync word (with Manchester, twice as many chip
+        errors). None (the default): :func:`default_sync_tolerance` of `sync_bits`,
+        3 for a 32-bit word, fewer for a short one.
     length : int or "prefix8"
         Payload bytes (1–4096), or "prefix8": the first byte after the sync word
         is the payload length, and the CRC covers that byte and the payload.
@@ -276,7 +306,7 @@ class FrameSpec:
 
     sync_word: int | None = None
     sync_bits: int = 32
-    sync_tolerance: int = 3
+    sync_tolerance: int | None = None
     length: int | str = 24
     crc: str = "CRC-16/IBM-3740"
     coding: str = "nrz"
@@ -296,7 +326,8 @@ class FrameSpec:
             if word < 0 or word >= 1 << bits:
                 raise LinkError(f"sync word {_hex(word)}: does not fit in {bits} bits")
             object.__setattr__(self, "sync_word", word)
-        tol = _integer("sync_tolerance", self.sync_tolerance)
+        tol = default_sync_tolerance(bits) if self.sync_tolerance is None else _integer("sync_tolerance",
+                                                                                         self.sync_tolerance)
         if not 0 <= tol < bits:
             raise LinkError(f"sync_tolerance {tol}: must be within 0–{bits - 1}")
         object.__setattr__(self, "sync_tolerance", tol)

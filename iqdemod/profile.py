@@ -388,7 +388,7 @@ def link_to_toml(link: Link, *, comment: str | None = None) -> str:
     ...     load_link(path) == link
     True
     >>> [line for line in text.splitlines() if line.startswith("sync")]
-    ['sync_word = "0x2DD4"', 'sync_bits = 16', 'sync_tolerance = 3']
+    ['sync_word = "0x2DD4"', 'sync_bits = 16', 'sync_tolerance = 1']
     """
 
     def val(v: Any) -> str:

@@ -94,3 +94,21 @@ def test_parameter_checks(kw, rate, match):
 def test_negative_rate_is_refused():
     with pytest.raises(LinkError, match="sample rate -250000 Hz: must be > 0"):
         load_link(None, baud=9600, shift=9600, rate=-250000)
+
+
+def test_default_sync_tolerance_keeps_false_syncs_rare():
+    # Random bits match an n-bit word within t errors with probability sum_{k<=t} C(n, k) / 2^n (the
+    # binomial distribution of the Hamming distance; scipy.stats.binom as the reference here). The default
+    # is the largest t <= 3 under one position in 1000: 3 in 32 bits is common practice (from memory).
+    from scipy import stats
+
+    from iqdemod.link import FALSE_SYNC_SHARE, FrameSpec, default_sync_tolerance
+
+    for n in range(1, 65):
+        t = default_sync_tolerance(n)
+        assert 0 <= t <= min(3, n - 1)
+        assert t == 0 or stats.binom.cdf(t, n, 0.5) < FALSE_SYNC_SHARE
+        assert t == min(3, n - 1) or stats.binom.cdf(t + 1, n, 0.5) >= FALSE_SYNC_SHARE
+    assert [default_sync_tolerance(n) for n in (16, 24, 32)] == [1, 3, 3]
+    assert FrameSpec(sync_word=0x2DD4, sync_bits=16).sync_tolerance == 1
+    assert FrameSpec(sync_word=0x2DD4, sync_bits=16, sync_tolerance=3).sync_tolerance == 3  # a given value stays

@@ -216,8 +216,8 @@ class SignalFound:
         Parameters
         ----------
         sync_tolerance : int, optional
-            Bit errors accepted in the sync word; default an eighth of its bits
-            (at most 3).
+            Bit errors accepted in the sync word; default the link's own
+            (:func:`iqdemod.link.default_sync_tolerance`).
         capture : CaptureFormat, optional
             Datatype and rate, for a raw capture without metadata.
 
@@ -249,7 +249,7 @@ class SignalFound:
             frame = FrameSpec(sync_word=None, crc="none")
         else:
             bits = int(self.sync_bits)
-            tol = min(3, bits // 8) if sync_tolerance is None else int(sync_tolerance)
+            tol = None if sync_tolerance is None else int(sync_tolerance)
             frame = FrameSpec(sync_word=int(self.sync_word, 16), sync_bits=bits, sync_tolerance=tol,
                               length=self.length, crc=self.crc or "none", coding=self.coding,
                               whitening=self.whitening, bit_order=self.bit_order, crc_order=self.crc_order,
