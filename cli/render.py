@@ -16,7 +16,8 @@ import json
 import math
 from typing import Any, Callable
 
-__all__ = ["pct", "sync_word", "json_ready", "to_json", "decode_summary", "health_text", "curves_text",
+__all__ = ["pct", "sync_word", "json_ready", "to_json", "decode_summary", "health_text",
+           "health_links_text", "health_links_json", "curves_text",
            "survey_table", "batch_summary", "wrote"]
 
 DASH = "—"
@@ -108,6 +109,18 @@ def health_text(r) -> str:
     lines += [f"  possible cause: {cause}" for cause in r.causes]
     lines += [f"  warning: {w}" for w in r.warnings]
     return "\n".join(lines)
+
+
+def health_links_text(reports) -> str:
+    """Several links' health reports for people, in order: each headed by a line with its link's name
+    (``== buoys ==``), a blank line between them."""
+    return "\n\n".join(f"== {name} ==\n{health_text(r)}" for name, r in reports.items())
+
+
+def health_links_json(reports) -> dict:
+    """Several links' health reports as one JSON-ready object: ``{"links": {name: report, ...}}``, each
+    report the object one link's ``--json`` gives, in link order."""
+    return {"links": {name: r.as_dict() for name, r in reports.items()}}
 
 
 def _health_head(r) -> list[str]:
