@@ -93,6 +93,10 @@ def decode_summary(summary, name: str, *, raw: bool) -> str:
             text += " (" + "; ".join(f"{link}: {n} frame(s), {good} good" for link, n, good in summary.links) + ")"
     if summary.stats is not None and summary.stats.clipped:
         text += f", {summary.stats.clipped_fraction:.3%} clipped"
+    if not summary.bursts:
+        text += "; no bursts: check --offset (or --frequency), and for a raw file --rate and --datatype"
+    elif not summary.frames:
+        text += "; no sync word found: check --sync, --baud, --shift and --offset (survey measures them)"
     return text
 
 
@@ -165,9 +169,12 @@ def _margin_rows(r) -> list[tuple[str, str, str]]:
     elif r.ebn0_db is not None:
         rows.append(("Eb/N0 needed", DASH, f"BER {r.target_ber:g} lies below this link's error floor"))
     if r.coherent_ebn0_needed_db is not None:
+        textbook = not fitted and r.h is not None and float(r.h).is_integer()  # orthogonal tones, one symbol
         rows.append(("coherent reference", _db(r.coherent_ebn0_needed_db),
                      f"coherent orthogonal FSK in theory; non-coherent orthogonal FSK needs "
-                     f"{r.noncoherent_penalty_db:.2f} dB more"))
+                     f"{r.noncoherent_penalty_db:.2f} dB more" if textbook else
+                     "coherent orthogonal FSK in theory, for comparison only: this link's own theory is "
+                     "Eb/N0 needed above"))
     if not fitted:
         rows.append(("receiver gain", _db(r.decision_gain_db, True),
                      "this receiver's filter passes less noise than the textbook correlator, so its decisions "
@@ -359,6 +366,11 @@ def batch_summary(result, *, weakest_shown: int = 5) -> list[str]:
             fer = r.fer_observed
             fer_text = "" if fer is None else f"  frame error rate {pct(fer)}"
             lines.append(f"  {name(r):<{width}}  margin {r.margin_db:+6.1f} dB{ebn0}{fer_text}{tx}")
+    empty = [r for r in result.rows if r.ok and not r.frames]
+    if empty:  # processed, but nothing to measure: not among the weakest, so named here
+        more = f" and {len(empty) - weakest_shown} more" if len(empty) > weakest_shown else ""
+        lines.append(f"no frames found in {len(empty)}: " + ", ".join(name(r) for r in empty[:weakest_shown]) + more
+                     + " (check their link)")
     failed = [r for r in result.rows if not r.ok]
     lines += [f"failed: {name(r)}: {r.error}" for r in failed[:weakest_shown]]
     if len(failed) > weakest_shown:

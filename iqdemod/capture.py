@@ -340,6 +340,9 @@ def _sigmf_capture(path: Path, meta: dict, where: str, data_path: Path, sample_r
     if rate is None:
         raise CaptureError(f"{where}: core:sample_rate missing: give the rate (--rate)")
     rate = _check_rate(rate, where)
+    if sample_rate is not None and "core:sample_rate" in glob and not math.isclose(float(sample_rate), rate):
+        warnings.warn(f"{where}: its core:sample_rate {rate:g} Hz is used, not the rate given ({float(sample_rate):g} Hz)",
+                      CaptureWarning, stacklevel=3)
     first = meta["captures"][0] if meta["captures"] else {}
     centre = first.get("core:frequency")
     if centre is not None and (isinstance(centre, bool) or not isinstance(centre, (int, float))

@@ -116,6 +116,21 @@ def test_sigmf_pair_from_either_file(tmp_path, suffix):
         np.testing.assert_allclose(read_all(cap), np.array([100 - 100j, 200 - 200j]) / 32768)
 
 
+def test_a_rate_given_for_a_sigmf_recording_that_has_its_own_is_named_as_unused(tmp_path):
+    # SigMF: core:sample_rate belongs to the recording (SigMF spec, global object); a rate the user gives
+    # beside it is not used, and is said not to be
+    base = tmp_path / "rec"
+    write_sigmf(base, np.array([100, -100, 200, -200], "<i2"), SIGMF_META)
+    with pytest.warns(CaptureWarning, match=r"core:sample_rate 250000 Hz is used, not the rate given \(1e\+06 Hz\)"):
+        with open_capture(str(base) + ".sigmf-meta", sample_rate=1e6) as cap:
+            assert cap.info.sample_rate_hz == 250000
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # the same rate, or none given: nothing to say
+        for rate in (250000.0, None):
+            with open_capture(str(base) + ".sigmf-meta", sample_rate=rate):
+                pass
+
+
 def test_sigmf_header_bytes_are_skipped(tmp_path):
     base = tmp_path / "hdr"
     meta = json.loads(json.dumps(SIGMF_META))

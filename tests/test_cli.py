@@ -48,6 +48,18 @@ def test_decode_writes_json_lines(capture, tmp_path):
     assert all(abs(r["ebn0_db"] - 18) < 1.5 for r in rows)
 
 
+def test_decode_summary_says_what_to_check_when_nothing_is_found(capture):
+    meta, _ = capture
+    flags = dict(zip(LINK_FLAGS[::2], LINK_FLAGS[1::2]))
+    elsewhere = [a for k, v in {**flags, "--offset": "-300000"}.items() for a in (k, v)]  # an empty channel
+    res = run("decode", meta, *elsewhere)
+    assert res.exit_code == 0 and "0 burst(s)" in res.stderr and "no bursts: check --offset" in res.stderr
+    wrong_sync = [a for k, v in {**flags, "--sync": "0x12345678"}.items() for a in (k, v)]
+    res = run("decode", meta, *wrong_sync)
+    assert "0 frame(s)" in res.stderr and "no sync word found: check --sync" in res.stderr
+    assert "check" not in run("decode", meta, *LINK_FLAGS).stderr  # frames found: no advice
+
+
 def test_decode_summary_and_raw_mode(capture):
     meta, truth = capture
     res = run("decode", meta, *LINK_FLAGS)

@@ -173,3 +173,19 @@ def test_a_value_that_rounds_to_zero_never_prints_as_minus_zero():
     from iqdemod_cli.render import _db
 
     assert _db(-0.004) == "0.00 dB" and _db(-0.004, sign=True) == "+0.00 dB" and _db(-0.006) == "-0.01 dB"
+
+
+def test_batch_summary_names_the_captures_with_no_frames():
+    # A capture processed without error but with no frame has no margin: it is neither among the
+    # weakest nor failed, so the summary names it (a new user read "8 ok" and missed it).
+    from iqdemod.batch.report import BatchResult, CaptureRow
+
+    from iqdemod_cli.render import batch_summary
+
+    rows = [CaptureRow("a.cu8", "/a.cu8", "ok", frames=4, frames_crc_ok=4, margin_db=3.0, ebn0_db=14.0),
+            CaptureRow("quiet.cu8", "/quiet.cu8", "ok", frames=0, frames_crc_ok=0, verdict="no frames found"),
+            CaptureRow("bad.cu8", "/bad.cu8", "error", error="CaptureError: empty capture")]
+    lines = batch_summary(BatchResult.of(rows, report="r.csv"))
+    assert lines[0].startswith("3 capture(s): 2 ok, 1 failed")
+    assert "no frames found in 1: quiet.cu8 (check their link)" in lines
+    assert not any("a.cu8" in line and "no frames" in line for line in lines)
