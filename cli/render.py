@@ -209,7 +209,9 @@ def _transmitter_rows(r) -> list[tuple[str, str, str]]:
         extra.append(f"residual {r.residual_freq_error_hz:.1f} Hz")
         rows.append(("carrier error", f"{r.freq_error_hz:+.0f} Hz", ", ".join(extra)))
     if r.clock_error_ppm is not None:
-        rows.append(("clock error", f"{r.clock_error_ppm:+.0f} ppm", "symbol clock, mean over bursts"))
+        ci = r.clock_error_ppm_ci90
+        rows.append(("clock error", f"{r.clock_error_ppm:+.0f} ppm", "symbol clock, mean over bursts" + (
+            f" (90 % {ci[0]:+.0f} … {ci[1]:+.0f} ppm; one burst's own reads far wider)" if ci else "")))
     if r.mismatch_loss_db is not None:
         rows.append(("mismatch loss", f"{r.mismatch_loss_db:.3f} dB", "from the residual carrier error"))
     return rows

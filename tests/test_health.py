@@ -84,3 +84,26 @@ def test_worse_than_theory_is_called_out(tmp_path):
     assert r.ebn0_db > 12  # the clicks hardly move the estimate…
     assert r.verdict == "worse than theory predicts" and r.causes  # …so the failures stand out
     assert any("bursts of errors" in c for c in r.causes)
+
+
+@pytest.mark.parametrize("clock_ppm", [-80.0, 120.0])
+def test_the_clock_error_interval_covers_the_transmitters_clock(tmp_path, clock_ppm):
+    # The tests' own modulator (independent of synth.py) sends 40 frames from a transmitter whose symbol
+    # clock is off by clock_ppm; health's 90 % interval of the mean over bursts must hold it, and be
+    # as narrow as the spread between bursts allows (the standard error of a mean, common practice).
+    import fsk_modulator as fm
+
+    rate = 256_000
+    rng = np.random.default_rng(11)
+    txs = [fm.Tx(t_s=0.02 + 0.03 * i, payload=bytes(rng.integers(0, 256, 24, dtype=np.uint8)), ebn0_db=14.0,
+                 offset_hz=40_000, baud=9600, h=1.0, clock_ppm=clock_ppm, framing=dict(length="fixed"))
+             for i in range(40)]
+    x, _ = fm.render(txs, rate=rate, n_samples=int(1.25 * rate), noise_rms=0.05, seed=5)
+    path = tmp_path / "clock.cf32_le"
+    x.astype("<c8").tofile(path)
+    link = iqdemod.load_link(None, rate=rate, offset=40_000, baud=9600, shift=9600, sync="0x9B3C57E1", length=24)
+    r = assess(path, link)
+    assert r.frames_crc_ok == 40
+    lo, hi = r.clock_error_ppm_ci90
+    assert lo < clock_ppm < hi and lo < r.clock_error_ppm < hi
+    assert hi - lo < 120  # 40 bursts: far narrower than one burst's own estimate
