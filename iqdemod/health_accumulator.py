@@ -25,7 +25,7 @@ from .errors import IqdemodError
 from .estimate import Z90, EbN0Estimate, correct_leakage, pool
 from .framing import frame_symbols
 from .health_prediction import (BurstFigures, bit_gain_db, correction_db, estimate_leakage, link_pb, needed_ebn0,
-                                pb_model, predicted_rates, theory_options)
+                                pb_model, predicted_rates, shrink_snr_db, theory_options)
 from .link import FrameSpec
 from .plan import ReceiverPlan
 from .receiver import Burst, Frame
@@ -108,6 +108,8 @@ class HealthReport:
     detector_symbols: int | None = None
     theory_ebn0_needed_db: float | None = None
     clock_error_ppm_ci90: tuple[float, float] | None = None
+    ebn0_db_bursts: tuple[float, float] | None = None
+    margin_db_weakest: float | None = None
     histogram_edges_db: tuple[float, ...] = field(default=(), repr=False)
     histogram_right: tuple[int, ...] = field(default=(), repr=False)
     histogram_wrong: tuple[int, ...] = field(default=(), repr=False)
@@ -248,6 +250,8 @@ class HealthAccumulator:
         observed = self._observed(fer_p)
         need = needed_ebn0(target_ber, kw, plan, corr)
         margin = None if need["ebn0_needed_db"] is None or ebn0_db is None else ebn0_db - need["ebn0_needed_db"]
+        bursts_db = self._burst_spread(snr_db, corr)
+        weakest = None if margin is None or bursts_db is None else bursts_db[0] - need["ebn0_needed_db"]
         verdict, causes = _verdict(observed["fer_observed"], fer_p, observed["fer_p_value"], clipped_fraction,
                                    tx["freq_spread_hz"], tx["residual_freq_error_hz"], not plan.link.frame.raw)
         return HealthReport(
@@ -258,6 +262,7 @@ class HealthAccumulator:
             mismatch_loss_db=mismatch, clipped_fraction=float(clipped_fraction),
             frame_bits=round(self._bits_sum / self._bits_n) if self._bits_n else None,
             decision_gain_db=0.0 - corr, warnings=tuple(warnings), start_time=start_time,
+            ebn0_db_bursts=bursts_db, margin_db_weakest=_finite(weakest),
             **tx, **observed, **need, **_front_end_fields(front_end), **_link_fields(plan),
             histogram_edges_db=tuple(float(v) for v in HIST_EDGES_DB),
             histogram_right=tuple(int(v) for v in self.hist_right),
@@ -281,6 +286,18 @@ class HealthAccumulator:
                   10 * math.log10(hi_lin) if math.isfinite(hi_lin) else math.inf)
         gain = bit_gain_db(self.plan.link.frame)  # per symbol -> per bit (a Manchester bit is two chips)
         return method, snr_db + gain, (snr_ci[0] + gain, snr_ci[1] + gain)
+
+    def _burst_spread(self, snr_db: float | None, corr: float) -> tuple[float, float] | None:
+        """10th and 90th percentile of the frames' Eb/N0, each burst's estimate shrunk by its own noise
+        (:func:`shrink_snr_db`, the values the predictions use); None with fewer than three bursts."""
+        if snr_db is None or len(self._per_burst) < 3:
+            return None
+        shrunk = shrink_snr_db([b.snr_db for b in self._per_burst], [b.var_db2 for b in self._per_burst], snr_db)
+        per_frame = np.repeat(shrunk, [b.frames for b in self._per_burst]) + corr  # per bit, as ebn0_db
+        if not np.all(np.isfinite(per_frame)):
+            return None
+        lo, hi = np.percentile(per_frame, [10.0, 90.0])
+        return float(lo), float(hi)
 
     def _transmitter(self) -> dict:
         """Carrier error (Hz, ppm of the signal's frequency), its spread, the residual, the clock error."""

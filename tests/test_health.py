@@ -7,6 +7,7 @@ from scipy import stats
 import iqdemod
 from iqdemod.health import assess
 from iqdemod.receiver import plan_receiver
+from iqdemod_cli.render import health_text
 
 from conftest import make_capture, make_link
 
@@ -107,3 +108,33 @@ def test_the_clock_error_interval_covers_the_transmitters_clock(tmp_path, clock_
     lo, hi = r.clock_error_ppm_ci90
     assert lo < clock_ppm < hi and lo < r.clock_error_ppm < hi
     assert hi - lo < 120  # 40 bursts: far narrower than one burst's own estimate
+
+
+def test_bursts_of_different_strength_get_their_spread_and_the_weakest_margin(tmp_path):
+    # A fleet seen at two strengths (the tests' own modulator, REFERENCE §8 Eb/N0): the pooled Eb/N0 lies
+    # between them and hides the weak half; the 10th and 90th percentiles of the frames' Eb/N0 show both,
+    # and the weakest tenth's margin is measured from the lower one.
+    import fsk_modulator as fm
+
+    rate = 256_000
+    rng = np.random.default_rng(12)
+    levels = [12.0, 20.0] * 15
+    txs = [fm.Tx(t_s=0.02 + 0.03 * i, payload=bytes(rng.integers(0, 256, 24, dtype=np.uint8)), ebn0_db=e,
+                 offset_hz=40_000, baud=9600, h=1.0, framing=dict(length="fixed")) for i, e in enumerate(levels)]
+    x, _ = fm.render(txs, rate=rate, n_samples=int(0.95 * rate), noise_rms=0.05, seed=6)
+    path = tmp_path / "two.cf32_le"
+    x.astype("<c8").tofile(path)
+    link = iqdemod.load_link(None, rate=rate, offset=40_000, baud=9600, shift=9600, sync="0x9B3C57E1", length=24)
+    r = assess(path, link)
+    lo, hi = r.ebn0_db_bursts
+    assert lo == pytest.approx(12.0, abs=1.0) and hi == pytest.approx(20.0, abs=1.0)
+    assert lo + 4 < r.ebn0_db < hi
+    assert r.margin_db_weakest == pytest.approx(lo - r.ebn0_needed_db)
+    text = health_text(r)
+    assert "Eb/N0 of bursts" in text and "margin, weakest" in text
+
+
+def test_bursts_alike_show_no_spread_row(strong_capture):
+    r = assess(strong_capture[0], make_link())
+    lo, hi = r.ebn0_db_bursts
+    assert hi - lo < 1.0 and "Eb/N0 of bursts" not in health_text(r)
