@@ -365,7 +365,24 @@ def _sigmf_capture(path: Path, meta: dict, where: str, data_path: Path, sample_r
         start_time=start_time if isinstance(start_time, str) else None,
         meta_path=where,
     )
+    _check_extent(meta, info, where)
     return Capture(info, _datatype=dt)
+
+
+def _check_extent(meta: dict, info: CaptureInfo, where: str) -> None:
+    """Warn when the metadata's captures or annotations reach past the samples the data holds: a
+    data file cut short (a copy or download that stopped) would otherwise pass for a whole one."""
+    ends = []
+    for item in list(meta.get("captures") or []) + list(meta.get("annotations") or []):
+        if not isinstance(item, dict):
+            continue
+        start, count = item.get("core:sample_start"), item.get("core:sample_count", 0)
+        if all(isinstance(v, int) and not isinstance(v, bool) and v >= 0 for v in (start, count)):
+            ends.append(start + count)
+    reach = max(ends, default=0)
+    if reach > info.n_samples:
+        warnings.warn(f"{where}: its metadata reaches sample {reach}, but the data holds {info.n_samples}: "
+                      "the data file may be cut short", CaptureWarning, stacklevel=4)
 
 
 def _open_sigmf_archive(path: Path, sample_rate: float | None) -> Capture:

@@ -131,6 +131,20 @@ def test_a_rate_given_for_a_sigmf_recording_that_has_its_own_is_named_as_unused(
                 pass
 
 
+def test_a_sigmf_data_file_shorter_than_its_annotations_is_named(tmp_path):
+    # SigMF spec: an annotation covers core:sample_count samples from core:sample_start; samples the
+    # metadata describes but the data lacks mean a data file cut short
+    base = tmp_path / "rec"
+    meta = {**SIGMF_META, "annotations": [{"core:sample_start": 1, "core:sample_count": 5, "core:label": "burst"}]}
+    write_sigmf(base, np.zeros(8, "<i2"), meta)  # 4 samples; the annotation reaches sample 6
+    with pytest.warns(CaptureWarning, match="reaches sample 6, but the data holds 4: the data file may be cut short"):
+        open_capture(str(base) + ".sigmf-meta").close()
+    write_sigmf(base, np.zeros(12, "<i2"), meta)  # 6 samples: whole
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        open_capture(str(base) + ".sigmf-meta").close()
+
+
 def test_sigmf_header_bytes_are_skipped(tmp_path):
     base = tmp_path / "hdr"
     meta = json.loads(json.dumps(SIGMF_META))
