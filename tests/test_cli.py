@@ -225,12 +225,13 @@ def test_installed_script_runs():
     assert sorted(r["payload_hex"] for r in rows if r["crc_ok"]) == sorted(truth_payloads(truth))
 
 
-def test_sigterm_leaves_the_previous_output_intact(tmp_path):
-    """A run stopped by SIGTERM mid-way keeps the old output file and leaves no temporary file."""
+def test_sigterm_keeps_the_frames_found_or_else_the_previous_output(tmp_path):
+    """A run stopped by SIGTERM mid-way keeps the frames it found (or the old output file when it found
+    none), and leaves no temporary file."""
     import signal
     import time
 
-    meta, _ = make_capture(tmp_path / "long", frames=200, seed=30)
+    meta, truth = make_capture(tmp_path / "long", frames=200, seed=30)
     out = tmp_path / "frames.jsonl"
     out.write_text("previous\n")
     exe = shutil.which("iqdemod")
@@ -242,11 +243,17 @@ def test_sigterm_leaves_the_previous_output_intact(tmp_path):
     time.sleep(0.2)
     proc.send_signal(signal.SIGTERM)
     _, err = proc.communicate(timeout=60)
+    text = out.read_text()
     if proc.returncode == 0:  # finished before the signal: then the output must be complete
-        assert len(out.read_text().splitlines()) == 200
-    else:
-        assert proc.returncode == 143 and "terminated" in err
-        assert out.read_text() == "previous\n"
+        assert len(text.splitlines()) == 200
+    elif text == "previous\n":  # stopped before the first frame
+        assert proc.returncode == 143 and "terminated (SIGTERM) before any frame was found" in err, err
+    else:  # whole lines, the first frames sent (the generator's truth)
+        assert proc.returncode == 143 and "terminated (SIGTERM): " in err, err
+        assert text.endswith("\n")
+        rows = [json.loads(line) for line in text.splitlines()]
+        assert [r["payload_hex"] for r in rows] == truth_payloads(truth)[: len(rows)]
+        assert f"{len(rows)} frame(s) found before the stop kept in {out}" in err
     assert not list(tmp_path.glob(".frames.jsonl.*"))
 
 

@@ -464,8 +464,8 @@ def test_row13_an_unreachable_cluster_fails_once(inputs, tmp_path):
 
 
 @pytest.mark.parametrize("sig", [signal.SIGHUP, signal.SIGQUIT], ids=["HUP", "QUIT"])
-def test_row13_sighup_and_sigquit_clean_up_like_sigterm(tmp_path, sig):
-    meta, _ = make_capture(tmp_path / "long", frames=200, seed=30)
+def test_row13_sighup_and_sigquit_stop_like_sigterm_and_keep_the_frames_found(tmp_path, sig):
+    meta, truth = make_capture(tmp_path / "long", frames=200, seed=30)
     out = tmp_path / "frames.jsonl"
     out.write_text("previous\n")
     proc = subprocess.Popen([EXE, "decode", str(meta), "--link", str(_toml(tmp_path)), "-o", str(out), "-q",
@@ -476,11 +476,20 @@ def test_row13_sighup_and_sigquit_clean_up_like_sigterm(tmp_path, sig):
     time.sleep(0.2)
     proc.send_signal(sig)
     _, err = proc.communicate(timeout=60)
+    text = out.read_text()
     if proc.returncode == 0:  # finished before the signal: then the output must be complete
-        assert len(out.read_text().splitlines()) == 200
+        assert len(text.splitlines()) == 200
     else:
-        assert proc.returncode == 128 + sig and "terminated" in err and "Traceback" not in err, err
-        assert out.read_text() == "previous\n"
+        name = signal.Signals(sig).name
+        assert proc.returncode == 128 + sig and "Traceback" not in err, err
+        if text == "previous\n":  # stopped before the first frame: the old file stays
+            assert err.strip() == f"terminated ({name}) before any frame was found: {out} not written " \
+                                  "(the old file is left as it was)"
+        else:  # the frames found before the stop are kept, whole lines, in the order sent (the generator's truth)
+            assert text.endswith("\n")
+            rows = [json.loads(line) for line in text.splitlines()]
+            assert [r["payload_hex"] for r in rows] == [f["payload_hex"] for f in truth["frames"][: len(rows)]]
+            assert err.strip() == f"terminated ({name}): {len(rows)} frame(s) found before the stop kept in {out}"
     assert not list(tmp_path.glob(".frames.jsonl.*"))
 
 

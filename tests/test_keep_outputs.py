@@ -1,0 +1,240 @@
+"""Stopping a decode keeps the frames it found.
+
+The decoder runs as a process of its own (``python -m iqdemod_cli.main decode …``) and is stopped
+by real signals sent to it, as an operator's Ctrl-C or a service manager's SIGTERM would stop it;
+the signal goes out once its first frames are on disk (polled, no fixed waits). The captures come
+from the tests' independent modulator (tests/fsk_modulator.py). What a stopped run keeps is
+checked against what one uninterrupted run of the same capture writes: every line one whole JSON
+text ended by a newline (JSON Lines, jsonlines.org; parsed by the standard library's json), and
+the frames the first ones of the uninterrupted run, in the same order.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import re
+import signal
+import subprocess
+import sys
+import threading
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+import fsk_modulator as fm
+from iqdemod_cli._signals import Terminated, stops_gated
+
+RATE = 153_600  # 16 samples a symbol at 9600 baud: a small file that still takes the decoder seconds
+LINK = ["--offset", "30000", "--baud", "9600", "--shift", "9600", "--sync", "0x9B3C57E1", "--length", "24",
+        "--crc", "CRC-16/IBM-3740"]
+RAW = ["--datatype", "cu8", "--rate", str(RATE)]
+FRAMES_BEFORE_STOP = 3
+EXIT = {signal.SIGINT: 130, signal.SIGTERM: 143, signal.SIGHUP: 129}  # 128 + N (POSIX shell convention)
+
+
+def _render(folder: Path, name: str, n_frames: int, seed: int) -> tuple[Path, list[str]]:
+    """A cu8 SigMF pair of `n_frames` buoy frames 3–8 ms apart at 16 dB; (meta path, payloads sent)."""
+    rng = np.random.default_rng(seed)
+    txs, t = [], 0.005
+    for _ in range(n_frames):
+        txs.append(fm.Tx(t_s=t, payload=rng.integers(0, 256, 24, dtype=np.uint8).tobytes(), ebn0_db=16.0,
+                         offset_hz=30_000.0))
+        t += (32 + 32 + 8 * 26) / 9600 + rng.uniform(0.003, 0.008)
+    x, truth = fm.render(txs, rate=RATE, n_samples=int((t + 0.05) * RATE), noise_rms=0.05, seed=seed)
+    return fm.write_sigmf(folder / name, x, rate=RATE, datatype="cu8"), [f["payload_hex"] for f in truth]
+
+
+def _ctrl_c_as_usual() -> None:
+    # a shell may have started the test run with SIGINT ignored, which a child would inherit
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
+
+
+def _start(*args, stdin=subprocess.DEVNULL) -> subprocess.Popen:
+    return subprocess.Popen([sys.executable, "-m", "iqdemod_cli.main", "decode", *map(str, args)], stdin=stdin,
+                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True,
+                            preexec_fn=_ctrl_c_as_usual)
+
+
+def _records(path: Path) -> list[dict]:
+    """The frames of a JSON Lines file, checking that every line is whole."""
+    text = path.read_text(encoding="utf-8")
+    assert text == "" or text.endswith("\n"), f"torn last line: {text[-80:]!r}"
+    return [json.loads(line) for line in text.splitlines()]
+
+
+def _partial(folder: Path, output: Path) -> list[Path]:
+    """The output's temporary files (files.py: .NAME.XXXX.part beside it)."""
+    return list(folder.glob(f".{output.name}.*"))
+
+
+def _stop_after_frames(proc: subprocess.Popen, folder: Path, output: Path, sig: int, *, of: str | None = None,
+                       n: int = FRAMES_BEFORE_STOP) -> str:
+    """Send `sig` once `n` frames (of the capture named `of`, if given) are in the output; its stderr."""
+    deadline = time.monotonic() + 60
+    while True:
+        assert proc.poll() is None, f"the decode ended before it could be stopped: {proc.stderr.read()}"
+        assert time.monotonic() < deadline, "no frames appeared"
+        lines = [line for part in _partial(folder, output)
+                 for line in part.read_text(encoding="utf-8").split("\n")[:-1]]  # whole lines only
+        if sum(of is None or json.loads(line)["capture"].endswith(of) for line in lines) >= n:
+            break
+        time.sleep(0.01)
+    proc.send_signal(sig)
+    _, err = proc.communicate(timeout=60)
+    assert "Traceback" not in err, err
+    return err
+
+
+@pytest.fixture(scope="module")
+def captures(tmp_path_factory):
+    """A long capture (1000 frames, about 27 s) and a short one (12 frames), each with what one uninterrupted
+    decode writes, checked against the modulator's payloads."""
+    folder = tmp_path_factory.mktemp("keep")
+    out = {}
+    for name, n, seed in (("long", 1000, 41), ("short", 12, 42)):
+        meta, sent = _render(folder, name, n, seed)
+        ref = folder / f"{name}.reference.jsonl"
+        subprocess.run([sys.executable, "-m", "iqdemod_cli.main", "decode", str(meta), *LINK, "-o", str(ref), "-q"],
+                       check=True, timeout=120)
+        records = _records(ref)
+        assert [r["payload_hex"] for r in records if r["crc_ok"]] == sent  # the modulator's truth, in order
+        out[name] = (meta, records)
+    return out
+
+
+@pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM], ids=["INT", "TERM"])
+def test_a_stopped_decode_keeps_every_frame_found_before_the_stop(captures, tmp_path, sig):
+    meta, reference = captures["long"]
+    output = tmp_path / "keep.jsonl"
+    output.write_text("an older run\n")
+    proc = _start(meta, *LINK, "-o", output, "-q")
+    err = _stop_after_frames(proc, tmp_path, output, sig)
+    assert proc.returncode == EXIT[sig], err
+    kept = _records(output)
+    assert FRAMES_BEFORE_STOP <= len(kept) < len(reference)
+    assert kept == reference[: len(kept)]
+    word = "interrupted" if sig == signal.SIGINT else "terminated"
+    assert err.strip() == (f"{word} ({signal.Signals(sig).name}): {len(kept)} frame(s) found before the stop "
+                           f"kept in {output}")
+    assert not _partial(tmp_path, output)
+
+
+def test_several_captures_keep_the_finished_and_the_stopped_one_and_start_no_other(captures, tmp_path):
+    (short, short_ref), (long, long_ref) = captures["short"], captures["long"]
+    output = tmp_path / "keep.jsonl"
+    proc = _start(short, long, short, *LINK, "-o", output, "-q")
+    err = _stop_after_frames(proc, tmp_path, output, signal.SIGINT, of="long.sigmf-meta")
+    assert proc.returncode == 130, err
+    kept = _records(output)
+    assert kept[: len(short_ref)] == short_ref  # the finished capture, whole
+    rest = kept[len(short_ref):]
+    assert FRAMES_BEFORE_STOP <= len(rest) < len(long_ref) and rest == long_ref[: len(rest)]  # no third capture
+    assert err.strip() == (f"interrupted (SIGINT): {len(kept)} frame(s) found before the stop kept in {output}; "
+                           "1 later capture(s) not started (short.sigmf-meta)")
+
+
+def test_a_stop_before_any_frame_leaves_the_old_file_as_it_was(tmp_path):
+    output = tmp_path / "keep.jsonl"
+    output.write_text("an older run\n")
+    read, write = os.pipe()  # standard input that never brings a sample
+    try:
+        proc = _start("-", *RAW, *LINK, "-o", output, "-q", stdin=read)
+        deadline = time.monotonic() + 60
+        while not _partial(tmp_path, output):  # the output is open: the decoder waits for samples
+            assert proc.poll() is None and time.monotonic() < deadline, proc.stderr.read()
+            time.sleep(0.01)
+        proc.send_signal(signal.SIGINT)
+        _, err = proc.communicate(timeout=60)
+    finally:
+        os.close(read)
+        os.close(write)
+    assert proc.returncode == 130, err
+    assert output.read_text() == "an older run\n" and not _partial(tmp_path, output)
+    assert err.strip() == (f"interrupted (SIGINT) before any frame was found: {output} not written "
+                           "(the old file is left as it was)")
+
+
+def _grow(source: Path, growing: Path, stop: threading.Event) -> threading.Thread:
+    """Append `source` to `growing` in pieces of 0.3 s of samples, about six times faster than real time."""
+    data = source.read_bytes()
+    step = 2 * RATE * 3 // 10
+
+    def run():
+        with open(growing, "ab") as fh:
+            for i in range(0, len(data), step):
+                if stop.is_set():
+                    return
+                fh.write(data[i : i + step])
+                fh.flush()
+                time.sleep(0.05)
+
+    thread = threading.Thread(target=run, daemon=True)
+    thread.start()
+    return thread
+
+
+@pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM, signal.SIGHUP], ids=["INT", "TERM", "HUP"])
+def test_follow_ends_on_ctrl_c_or_sigterm_with_every_frame_written(captures, tmp_path, sig):
+    meta, reference = captures["long"]
+    growing = tmp_path / "live.cu8"
+    growing.write_bytes(b"")
+    output = tmp_path / "f.jsonl"
+    stop = threading.Event()
+    writer = _grow(meta.with_suffix(".sigmf-data"), growing, stop)
+    try:
+        proc = _start(growing, *RAW, *LINK, "--follow", "--idle", "60", "-o", output)  # no -q: the summary line
+        err = _stop_after_frames(proc, tmp_path, output, sig)
+    finally:
+        stop.set()
+        writer.join()
+    kept = _records(output)
+    strip = [{k: v for k, v in r.items() if k != "capture"} for r in kept]
+    assert FRAMES_BEFORE_STOP <= len(kept) < len(reference)
+    assert strip == [{k: v for k, v in r.items() if k != "capture"} for r in reference[: len(kept)]]
+    assert not _partial(tmp_path, output)
+    lines = err.splitlines()  # the progress bar's lines too (it ends each update with a carriage return)
+    if sig == signal.SIGHUP:  # a hang-up is an interruption, frames kept all the same
+        assert proc.returncode == 129, err
+        assert f"terminated (SIGHUP): {len(kept)} frame(s) found before the stop kept in {output}" in lines
+        return
+    assert proc.returncode == 0, err  # the documented end of a live capture, as --idle would end it
+    summary = [m.groups() for m in map(re.compile(r"live\.cu8: \d+ burst\(s\), (\d+) frame\(s\), (\d+) good").fullmatch,
+                                       lines) if m]
+    assert summary == [(str(len(kept)), str(sum(r["crc_ok"] for r in kept)))], err
+
+
+# --------------------------------------------------------------------------- the stop gate itself
+def _deliver(sig: int) -> None:
+    """Send `sig` to this process; Python runs its handler at the next point it checks (the sleep)."""
+    os.kill(os.getpid(), sig)
+    time.sleep(0.01)
+
+
+def test_the_gate_holds_one_stop_until_the_step_is_done_and_lets_a_second_through():
+    previous = signal.signal(signal.SIGINT, signal.default_int_handler)  # Ctrl-C's usual meaning here
+    try:
+        with stops_gated() as gate:
+            steps = []
+            with pytest.raises(KeyboardInterrupt):
+                with gate.held():
+                    _deliver(signal.SIGINT)
+                    steps.append("finished")  # the signal waited for the step
+            assert steps == ["finished"]
+            with pytest.raises(Terminated) as info:
+                with gate.held():
+                    _deliver(signal.SIGTERM)
+                    _deliver(signal.SIGTERM)  # a second one does not wait
+                    steps.append("not reached")
+            assert info.value.signum == signal.SIGTERM and steps == ["finished"]
+            with pytest.raises(KeyboardInterrupt):  # not held: at once
+                _deliver(signal.SIGINT)
+            gate.hold()
+            _deliver(signal.SIGINT)
+            gate.release(deliver=False)  # a run already stopping drops it
+        assert signal.getsignal(signal.SIGINT) is signal.default_int_handler  # put back
+        assert signal.getsignal(signal.SIGTERM) != gate.handle
+    finally:
+        signal.signal(signal.SIGINT, previous)
