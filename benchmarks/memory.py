@@ -47,8 +47,9 @@ def make(workdir: Path, gb: float) -> Path:
         link = iqdemod.load_link(None, datatype="cu8", rate=RATE, offset=137_000, baud=9600, shift=9600,
                                  sync="0x9B3C57E1", length=24)
         gap = seconds / frames
+        # the benchmark's own cache: a data file left without its metadata (an interrupted run) is replaced
         synthesize(base, SynthConfig(link=link, ebn0_db=(16.0,), n_frames=frames, gap_s=(0.5 * gap, 1.5 * gap),
-                                     freq_error_hz=900.0, clock_ppm=30.0, seed=77))
+                                     freq_error_hz=900.0, clock_ppm=30.0, seed=77), overwrite=True)
     return meta
 
 

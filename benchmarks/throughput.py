@@ -67,10 +67,11 @@ def make_capture(workdir: Path, kind: str, seconds: float, frames: int) -> Path:
     link = iqdemod.load_link(None, datatype=DATATYPES[kind], rate=RATE, offset=OFFSET, **{**LINK_KW, **KIND_LINK.get(kind, {})})
     burst_s = (32 + 32 + 8 * 24 + 16 + 8) / 9600
     gap = max(0.0, seconds / frames - burst_s)
+    # the benchmark's own cache: a data file left without its metadata (an interrupted run) is replaced
     synthesize(base, SynthConfig(link=link, ebn0_db=(14.0, 18.0), n_frames=frames, freq_error_hz=1200.0,
                                  clock_ppm=50.0, gap_s=(0.5 * gap, 1.5 * gap), noise_rms=NOISE_RMS[kind],
                                  gaussian_bt=link.signal.bt if link.signal.pulse == "gaussian" else None,
-                                 centre_hz=869_437_500.0, seed=60))
+                                 centre_hz=869_437_500.0, seed=60), overwrite=True)
     return meta
 
 

@@ -38,8 +38,8 @@ from .framing import PREAMBLE_BITS, frame_symbols
 from .link import MAX_FREQUENCY_HZ, Link, finite_number
 from .files import atomic_files, check_distinct, classify_output
 
-__all__ = ["SynthConfig", "synthesize", "fsk_burst", "amplitude_for_ebn0", "sigmf_paths", "payload_bit_errors",
-           "DEFAULT_CENTRE_HZ"]
+__all__ = ["SynthConfig", "synthesize", "refuse_existing", "fsk_burst", "amplitude_for_ebn0", "sigmf_paths",
+           "payload_bit_errors", "DEFAULT_CENTRE_HZ"]
 
 TAIL_BITS = 8
 _BLOCK = 1 << 20
@@ -377,7 +377,7 @@ def _blocks(cfg: SynthConfig, plans: list[dict], total: int) -> Iterator[np.ndar
 
 
 def synthesize(output: str | os.PathLike, cfg: SynthConfig, *, progress: bool = False,
-               inputs: Iterable[tuple[str, str | os.PathLike]] = ()) -> dict:
+               inputs: Iterable[tuple[str, str | os.PathLike]] = (), overwrite: bool = False) -> dict:
     """Write a synthetic SigMF capture and its truth file.
 
     Parameters
@@ -390,6 +390,10 @@ def synthesize(output: str | os.PathLike, cfg: SynthConfig, *, progress: bool = 
         Show a tqdm bar on stderr.
     inputs : iterable of (role, path)
         Files this run reads (a link profile): none of the outputs may be one of them.
+    overwrite : bool
+        Replace existing output files. Without it, a run whose data, metadata or
+        truth file already exists is refused before any work: a real recording
+        under the same name is never replaced by a synthetic one.
 
     Returns
     -------
@@ -401,7 +405,8 @@ def synthesize(output: str | os.PathLike, cfg: SynthConfig, *, progress: bool = 
     LinkError
         For settings out of range, or a burst too long to build within the memory budget.
     OutputError
-        When an output is an input or another output, or the capture would not fit in the free space.
+        When an output already exists (without `overwrite`), is an input or another output, or the
+        capture would not fit in the free space.
 
     Notes
     -----
@@ -430,8 +435,18 @@ def synthesize(output: str | os.PathLike, cfg: SynthConfig, *, progress: bool = 
     True
     >>> [(f["ebn0_db"], len(bytes.fromhex(f["payload_hex"]))) for f in truth["frames"]]
     [(14.0, 12), (14.0, 12), (14.0, 12)]
+
+    Existing files are replaced only when asked (:func:`refuse_existing`):
+
+    >>> len(synthesize(base, SynthConfig(link=link, ebn0_db=(20.0,), n_frames=2, seed=6), overwrite=True)["frames"])
+    2
     >>> tmp.cleanup()
     """
+    meta_path, data_path, truth_path = sigmf_paths(output)
+    check_distinct([("capture metadata", meta_path), ("capture data", data_path), ("truth file", truth_path)],
+                   list(inputs))
+    if not overwrite:
+        refuse_existing(output)
     fs = cfg.sample_rate_hz
     offset = cfg.link.check_rate(fs, cfg.centre_hz)
     edge = abs(offset + cfg.freq_error_hz) + cfg.link.signal.shift_hz / 2
@@ -447,10 +462,7 @@ def synthesize(output: str | os.PathLike, cfg: SynthConfig, *, progress: bool = 
         raise LinkError(f"one burst would be {longest} samples ({cfg.link.signal.baud:g} baud at {fs:g} Hz), needing "
                         f"about {longest * _BYTES_PER_BURST_SAMPLE / 2**30:.3g} GB to build; the budget is "
                         f"{BURST_MEMORY_BUDGET_BYTES >> 30} GB: raise the baud or lower the rate")
-    meta_path, data_path, truth_path = sigmf_paths(output)
     meta_path.parent.mkdir(parents=True, exist_ok=True)
-    check_distinct([("capture metadata", meta_path), ("capture data", data_path), ("truth file", truth_path)],
-                   list(inputs))
     size = total * dt.sample_bytes
     target = classify_output(data_path)
     if target.kind == "file":
@@ -483,6 +495,37 @@ def synthesize(output: str | os.PathLike, cfg: SynthConfig, *, progress: bool = 
         json.dump(meta, out, indent=1)
         out.write("\n")
     return truth
+
+
+def refuse_existing(output: str | os.PathLike) -> None:
+    """Refuse an output base name whose data, metadata or truth file exists already.
+
+    A symbolic link counts, even a dangling one. :func:`synthesize` calls it unless told to overwrite.
+
+    Raises
+    ------
+    OutputError
+        Naming every one of the three files that exists.
+
+    Examples
+    --------
+    >>> import os, tempfile
+    >>> tmp = tempfile.TemporaryDirectory()
+    >>> refuse_existing(os.path.join(tmp.name, "cap1"))  # nothing there yet
+    >>> open(os.path.join(tmp.name, "cap1.sigmf-data"), "wb").close()
+    >>> refuse_existing(os.path.join(tmp.name, "cap1"))
+    Traceback (most recent call last):
+    ...
+    iqdemod.errors.OutputError: output '...cap1': 'cap1.sigmf-data' already exists in '...'; refusing to replace it (give --overwrite, in Python overwrite=True, or another name)
+    >>> tmp.cleanup()
+    """
+    there = [p for p in sigmf_paths(output) if os.path.lexists(p)]
+    if there:
+        names = ", ".join(quote(p.name) for p in there)
+        verb, them = ("exists", "it") if len(there) == 1 else ("exist", "them")
+        raise OutputError(f"output {quote(os.fspath(output))}: {names} already {verb} in "
+                          f"{quote(str(there[0].parent))}; refusing to replace {them} (give --overwrite, in Python "
+                          "overwrite=True, or another name)")
 
 
 def _documents(cfg: SynthConfig, plans: list[dict], meta_path: Path, total: int, offset: float,

@@ -156,6 +156,29 @@ def test_row1_an_output_onto_an_input_is_refused(inputs, case):
     assert folder_digest(inputs) == before
 
 
+@pytest.mark.parametrize("present", ["data", "meta", "truth", "all three", "dangling link as data"])
+def test_row1_synth_never_replaces_an_existing_capture_unless_asked(inputs, tmp_path, present):
+    fleet = tmp_path / "fleet"
+    fleet.mkdir()
+    real = {"data": "cap1.sigmf-data", "meta": "cap1.sigmf-meta", "truth": "cap1.truth.json"}
+    if present == "dangling link as data":
+        os.symlink(tmp_path / "elsewhere" / "rec.sigmf-data", fleet / "cap1.sigmf-data")
+    else:
+        for key in (real if present == "all three" else [present]):
+            shutil.copy(inputs / ("cap.sigmf-data" if key == "data" else "cap.sigmf-meta"), fleet / real[key])
+    before = folder_digest(fleet)
+    args = ["synth", fleet / "cap1", "--link", inputs / "l.toml", "--rate", "1024000", "--ebn0", "10", "--frames", "2"]
+    line = assert_refused(invoke(*args, "-q"), contains="already exist", codes=(1,))  # checked before any work
+    assert "--overwrite" in line and all(name in line for name in before if not name.endswith(" ->"))
+    assert folder_digest(fleet) == before and not (tmp_path / "elsewhere").exists()
+    if present.startswith("dangling"):
+        return
+    res = invoke(*args, "--overwrite", "-q")  # asked: replaced, all three together
+    assert res.exit_code == 0, res.stderr
+    assert sorted(p.name for p in fleet.iterdir()) == sorted(real.values())
+    assert json.loads((fleet / "cap1.truth.json").read_text())["n_samples"] > 0
+
+
 def test_row1_a_hard_link_or_symbolic_link_to_an_input_is_the_input(inputs, tmp_path):
     os.link(inputs / "cap.sigmf-data", tmp_path / "hard")
     os.symlink(inputs / "cap.sigmf-meta", tmp_path / "soft")
@@ -261,7 +284,7 @@ def test_row5_synth_commits_data_metadata_and_truth_together(tmp_path, monkeypat
     assert invoke(*args, "--ebn0", "12", "--seed", "1").exit_code == 0
     before = folder_digest(tmp_path)
     _fail_rename_onto(monkeypatch, tmp_path / "s.sigmf-meta")  # the last rename fails
-    res = invoke(*args, "--ebn0", "15", "--seed", "2")
+    res = invoke(*args, "--ebn0", "15", "--seed", "2", "--overwrite")
     assert_refused(res, contains="No space left", codes=(1,))
     assert folder_digest(tmp_path) == before  # old data, old truth, old metadata: a consistent set
 

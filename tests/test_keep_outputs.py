@@ -1,4 +1,4 @@
-"""Stopping a decode keeps the frames it found.
+"""Stopping a decode keeps the frames it found; synth never replaces a capture unless asked.
 
 The decoder runs as a process of its own (``python -m iqdemod_cli.main decode …``) and is stopped
 by real signals sent to it, as an operator's Ctrl-C or a service manager's SIGTERM would stop it;
@@ -11,6 +11,7 @@ the frames the first ones of the uninterrupted run, in the same order.
 
 from __future__ import annotations
 
+import hashlib
 import json
 import os
 import re
@@ -23,9 +24,14 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from click.testing import CliRunner
 
 import fsk_modulator as fm
+import iqdemod
+import iqdemod.synth
+from iqdemod.errors import OutputError
 from iqdemod_cli._signals import Terminated, stops_gated
+from iqdemod_cli.main import main
 
 RATE = 153_600  # 16 samples a symbol at 9600 baud: a small file that still takes the decoder seconds
 LINK = ["--offset", "30000", "--baud", "9600", "--shift", "9600", "--sync", "0x9B3C57E1", "--length", "24",
@@ -238,3 +244,41 @@ def test_the_gate_holds_one_stop_until_the_step_is_done_and_lets_a_second_throug
         assert signal.getsignal(signal.SIGTERM) != gate.handle
     finally:
         signal.signal(signal.SIGINT, previous)
+
+
+# --------------------------------------------------------------------------- synth never replaces by accident
+def _digest(folder: Path) -> dict[str, str]:
+    return {p.name: hashlib.sha256(p.read_bytes()).hexdigest() for p in sorted(folder.iterdir())}
+
+
+@pytest.mark.parametrize("present", [("sigmf-meta", "sigmf-data"), ("sigmf-data",), ("truth.json",)])
+def test_synth_refuses_to_replace_an_existing_capture(tmp_path, present):
+    fleet = tmp_path / "fleet"
+    fleet.mkdir()
+    for suffix in present:
+        (fleet / f"cap1.{suffix}").write_bytes(b"a real recording " + suffix.encode())
+    before = _digest(fleet)
+    res = CliRunner().invoke(main, ["synth", str(fleet / "cap1"), "--baud", "9600", "--shift", "9600", "--ebn0", "10",
+                                    "--frames", "2", "-q"])
+    assert res.exit_code == 1, res.stderr
+    (line,) = res.stderr.splitlines()
+    assert line.startswith("Error: output ") and "--overwrite" in line
+    assert all(f"cap1.{suffix}" in line for suffix in present)
+    assert _digest(fleet) == before  # nothing written, nothing replaced, no temporary file
+
+
+def test_synth_overwrite_replaces_and_the_library_refuses_by_default(tmp_path):
+    base = tmp_path / "cap1"
+    args = ["synth", str(base), "--baud", "9600", "--shift", "9600", "--ebn0", "10", "--frames", "2", "-q"]
+    assert CliRunner().invoke(main, args + ["--seed", "1"]).exit_code == 0
+    first = _digest(tmp_path)
+    res = CliRunner().invoke(main, args + ["--seed", "2", "--overwrite"])
+    assert res.exit_code == 0, res.stderr
+    second = _digest(tmp_path)
+    assert sorted(second) == sorted(first) and all(second[k] != first[k] for k in first)
+    cfg = iqdemod.synth.SynthConfig(link=iqdemod.load_link(None, rate=1_024_000, baud=9600, shift=9600),
+                                    ebn0_db=(10.0,), n_frames=1)
+    with pytest.raises(OutputError, match="already exist"):
+        iqdemod.synth.synthesize(base, cfg)
+    assert _digest(tmp_path) == second
+    assert len(iqdemod.synth.synthesize(base, cfg, overwrite=True)["frames"]) == 1

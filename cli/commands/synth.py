@@ -40,14 +40,18 @@ DEFAULT_RATE = 1_024_000
 @click.option("--seed", type=click.IntRange(0, SY.MAX_SEED), default=1, show_default=True,
               help="Random seed (the same seed gives the same file).")
 @click.option("--start-time", default=None, metavar="TIME", help="SigMF core:datetime to record (RFC 3339, UTC); default now.")
+@click.option("--overwrite", is_flag=True,
+              help="Replace OUTPUT's files when they exist already (without it, synth refuses before any work).")
 @click.option("-q", "--quiet", is_flag=True, help="No progress bar and no summary line.")
 def command(output, ebn0, n_frames, freq_error, clock_ppm, gap, noise_rms, centre_hz, seed, start_time,
-            quiet, **link_kw) -> None:
+            overwrite, quiet, **link_kw) -> None:
     """Write a synthetic capture of FSK bursts in white noise (SigMF pair + truth JSON).
 
     OUTPUT is a base name: OUTPUT.sigmf-meta, OUTPUT.sigmf-data and
     OUTPUT.truth.json are written. Eb/N0 = A²·(fs/Rb)/σ², with σ² the total
-    complex noise variance per sample. Defaults: cf32_le at 1.024 MS/s.
+    complex noise variance per sample. Defaults: cf32_le at 1.024 MS/s. When
+    any of the three files exists already, synth refuses (exit status 1)
+    unless --overwrite is given: a recording is never replaced by accident.
     """
     link_path = link_kw.get("link")
     if link_kw.get("rate") is None and not link_kw.get("link"):
@@ -61,7 +65,7 @@ def command(output, ebn0, n_frames, freq_error, clock_ppm, gap, noise_rms, centr
         gaussian_bt=link.signal.bt if link.signal.pulse == "gaussian" else None, gap_s=gap, noise_rms=noise_rms,
         centre_hz=centre_hz, seed=seed, start_time=start_time,
     )
-    truth = SY.synthesize(output, cfg, progress=not quiet, inputs=[("--link profile", link_path)])
+    truth = SY.synthesize(output, cfg, progress=not quiet, inputs=[("--link profile", link_path)], overwrite=overwrite)
     if not quiet:
         say(f"{len(truth['frames'])} frame(s), {truth['n_samples'] / cfg.sample_rate_hz:.2f} s of samples")
         for path in SY.sigmf_paths(output):
