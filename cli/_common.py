@@ -41,55 +41,74 @@ def finite(lo: float | None = None, hi: float | None = None, **kw) -> Finite:
     return Finite(-sys.float_info.max if lo is None else lo, sys.float_info.max if hi is None else hi, **kw)
 
 
-#: The two options of a raw capture's format, shared by the link options and the survey.
-DATATYPE_OPTION = click.option(
-    "--datatype", help="SigMF datatype of a raw capture: cu8, ci8, ci16_le, ci16_be, cf32_le, cf64_le, …")
-# its range is the library's check (one line naming the flag, status 2, as every link value's)
-RATE_OPTION = click.option("--rate", type=finite(),
-                           help=f"Sample rate of a raw capture, Hz (> 0, at most {MAX_SAMPLE_RATE_HZ:g}).")
+def _spec(*decls: str, **attrs: Any) -> tuple[tuple[str, ...], dict[str, Any]]:
+    """One option's click declaration, kept as data so that a command may leave it out or reword it."""
+    return decls, attrs
 
-_LINK_OPTIONS = [
-    click.option("--link", "link", type=click.Path(dir_okay=False, path_type=Path),
-                 help="TOML link profile; the flags below override its values."),
-    DATATYPE_OPTION,
-    RATE_OPTION,
-    click.option("--offset", type=finite(-MAX_FREQUENCY_HZ, MAX_FREQUENCY_HZ),
-                 help="Signal centre relative to the capture centre, Hz (+ = above)."),
-    click.option("--frequency", type=finite(0, MAX_FREQUENCY_HZ, min_open=True),
-                 help="Absolute signal centre, Hz (needs the capture's centre frequency)."),
-    click.option("--baud", type=finite(0, MAX_FREQUENCY_HZ, min_open=True), help="Symbol rate, symbols/s."),
-    click.option("--shift", type=finite(0, MAX_FREQUENCY_HZ, min_open=True),
-                 help="Tone shift: upper tone minus lower tone, Hz."),
-    click.option("--invert/--no-invert", default=None, help="Bit 1 is the lower tone (default: the upper tone)."),
-    click.option("--max-freq-error", type=finite(0, MAX_FREQUENCY_HZ),
-                 help="Largest carrier error searched for, Hz [default: shift/2]."),
-    click.option("--gaussian", type=finite(MIN_BT, MAX_BT), metavar="BT",
-                 help=f"Gaussian frequency pulse (GFSK) with this bandwidth-time product, {MIN_BT:g}–{MAX_BT:g} "
-                      "[default: rectangular]."),
-    click.option("--detector", type=click.Choice(["per-symbol", "multi-symbol"]),
-                 help="Symbol decisions: one-symbol correlators, or phase-continuous hypotheses over a window "
-                      "[default: multi-symbol for a Gaussian pulse or a non-integer h]."),
-    click.option("--detector-symbols", type=click.IntRange(3, 7), default=None,
-                 help="Window of the multi-symbol detector, symbols: 3, 5 or 7 [default: 5]."),
-    click.option("--sync", help="Sync word in hex, e.g. 0x9B3C57E1; 'none' for raw mode (bits per burst)."),
-    click.option("--sync-bits", type=click.IntRange(1, MAX_SYNC_BITS), help="Bits of the sync word that are sent [default: 32]."),
-    click.option("--sync-tolerance", type=click.IntRange(0, MAX_SYNC_BITS - 1),
-                 help="Bit errors accepted in the sync word [default: 3 for a 32-bit word; fewer for a short "
-                      "one, so that random bits pass for it at under 1 position in 1000: 1 for 16 bits]."),
-    click.option("--length", help="Payload bytes (1–4096), or prefix8: the first byte is the length [default: 24]."),
-    click.option("--crc", help="CRC catalogue name, e.g. CRC-16/IBM-3740, or none [default: CRC-16/IBM-3740]."),
-    click.option("--coding", type=click.Choice(["nrz", "manchester", "manchester-inverted"], case_sensitive=False),
-                 help="Line coding after the preamble; with Manchester --baud is the chip rate [default: nrz]."),
-    click.option("--whitening", type=click.Choice(["none", "pn9"], case_sensitive=False),
-                 help="Whitening XORed over everything after the sync word [default: none]."),
-    click.option("--bit-order", type=click.Choice(["msb", "lsb"], case_sensitive=False),
-                 help="Bit order of the bytes after the sync word [default: msb]."),
-    click.option("--crc-order", type=click.Choice(["big", "little"], case_sensitive=False),
-                 help="Byte order of the CRC on the air [default: big]."),
-    click.option("--length-counts", type=click.Choice(["payload", "payload+crc", "frame"], case_sensitive=False),
-                 help="What a prefix8 length byte counts; frame = length byte, payload and CRC [default: payload]."),
-    click.option("--length-offset", type=int, help="Added to the counted bytes in a prefix8 length byte [default: 0]."),
+
+# The link options in the order --help lists them. A flag's value is checked by the library (one
+# line naming the flag, status 2) where click's own types do not already check it (--rate: > 0).
+_LINK_SPECS = [
+    _spec("--datatype", help="SigMF datatype of a raw capture: cu8, ci8, ci16_le, ci16_be, cf32_le, cf64_le, …"),
+    _spec("--rate", type=finite(), help=f"Sample rate of a raw capture, Hz (> 0, at most {MAX_SAMPLE_RATE_HZ:g})."),
+    _spec("--offset", type=finite(-MAX_FREQUENCY_HZ, MAX_FREQUENCY_HZ),
+          help="Signal centre relative to the capture centre, Hz (+ = above)."),
+    _spec("--frequency", type=finite(0, MAX_FREQUENCY_HZ, min_open=True),
+          help="Absolute signal centre, Hz (needs the capture's centre frequency)."),
+    _spec("--baud", type=finite(0, MAX_FREQUENCY_HZ, min_open=True), help="Symbol rate, symbols/s."),
+    _spec("--shift", type=finite(0, MAX_FREQUENCY_HZ, min_open=True),
+          help="Tone shift: upper tone minus lower tone, Hz."),
+    _spec("--invert/--no-invert", default=None, help="Bit 1 is the lower tone (default: the upper tone)."),
+    _spec("--max-freq-error", type=finite(0, MAX_FREQUENCY_HZ),
+          help="Largest carrier error searched for, Hz [default: shift/2]."),
+    _spec("--gaussian", type=finite(MIN_BT, MAX_BT), metavar="BT",
+          help=f"Gaussian frequency pulse (GFSK) with this bandwidth-time product, {MIN_BT:g}–{MAX_BT:g} "
+               "[default: rectangular]."),
+    _spec("--detector", type=click.Choice(["per-symbol", "multi-symbol"]),
+          help="Symbol decisions: one-symbol correlators, or phase-continuous hypotheses over a window "
+               "[default: multi-symbol for a Gaussian pulse or a non-integer h]."),
+    _spec("--detector-symbols", type=click.IntRange(3, 7), default=None,
+          help="Window of the multi-symbol detector, symbols: 3, 5 or 7 [default: 5]."),
+    _spec("--sync", help="Sync word in hex, e.g. 0x9B3C57E1; 'none' for raw mode (bits per burst) "
+                         "[default: none, raw mode]."),
+    _spec("--sync-bits", type=click.IntRange(1, MAX_SYNC_BITS), help="Bits of the sync word that are sent [default: 32]."),
+    _spec("--sync-tolerance", type=click.IntRange(0, MAX_SYNC_BITS - 1),
+          help="Bit errors accepted in the sync word [default: 3 for a 32-bit word; fewer for a short "
+               "one, so that random bits pass for it at under 1 position in 1000: 1 for 16 bits]."),
+    _spec("--length", help="Payload bytes (1–4096), or prefix8: the first byte is the length [default: 24]."),
+    _spec("--crc", help="CRC catalogue name, e.g. CRC-16/IBM-3740, or none [default: CRC-16/IBM-3740]."),
+    _spec("--coding", type=click.Choice(["nrz", "manchester", "manchester-inverted"], case_sensitive=False),
+          help="Line coding after the preamble; with Manchester --baud is the chip rate [default: nrz]."),
+    _spec("--whitening", type=click.Choice(["none", "pn9"], case_sensitive=False),
+          help="Whitening XORed over everything after the sync word [default: none]."),
+    _spec("--bit-order", type=click.Choice(["msb", "lsb"], case_sensitive=False),
+          help="Bit order of the bytes after the sync word [default: msb]."),
+    _spec("--crc-order", type=click.Choice(["big", "little"], case_sensitive=False),
+          help="Byte order of the CRC on the air [default: big]."),
+    _spec("--length-counts", type=click.Choice(["payload", "payload+crc", "frame"], case_sensitive=False),
+          help="What a prefix8 length byte counts; frame = length byte, payload and CRC [default: payload]."),
+    _spec("--length-offset", type=int, help="Added to the counted bytes in a prefix8 length byte [default: 0]."),
 ]
+_LINK_OPTION = _spec("--link", "link", type=click.Path(dir_okay=False, path_type=Path),
+                     help="TOML link profile; the flags below override its values.")
+
+
+def _option(spec: tuple[tuple[str, ...], dict[str, Any]], help_text: str | None = None) -> Callable:
+    decls, attrs = spec
+    return click.option(*decls, **({**attrs, "help": help_text} if help_text else attrs))
+
+
+def _flag_of(spec: tuple[tuple[str, ...], dict[str, Any]]) -> str:
+    return spec[0][0].split("/")[0]  # "--invert/--no-invert" is --invert
+
+
+def _named(name: str) -> tuple[tuple[str, ...], dict[str, Any]]:
+    return next(sp for sp in _LINK_SPECS if _flag_of(sp) == "--" + name.replace("_", "-"))
+
+
+#: The two options of a raw capture's format, for a command that takes a capture but no link (survey).
+DATATYPE_OPTION = _option(_named("datatype"))
+RATE_OPTION = _option(_named("rate"))
 
 
 _SEVERAL_HELP = ("TOML link profile; the flags below override its values. Give it again (or use a profile "
@@ -97,22 +116,28 @@ _SEVERAL_HELP = ("TOML link profile; the flags below override its values. Give i
                  "their link's name.")
 
 
-def link_options(fn: Callable | None = None, *, several: bool = False, link_help: str = _SEVERAL_HELP) -> Callable:
+def link_options(fn: Callable | None = None, *, several: bool = False, link_help: str = _SEVERAL_HELP,
+                 omit: Iterable[str] = (), helps: dict[str, str] | None = None) -> Callable:
     """Add the link-description options to a command.
 
     With `several`, ``--link`` may be given more than once (each profile one
     link, or one per ``[[signal]]`` entry), for a command that decodes several
     links in one pass; read them with :func:`links_from_options`. `link_help`
-    is then its help text.
+    is then its help text. `omit` names flags the command has no use for (by
+    their override names, e.g. ``"max_freq_error"``), which it then does not
+    offer; `helps` rewords a flag's help for the command.
     """
+    left_out = {"--" + name.replace("_", "-") for name in omit}
+    helps = {"--" + k.replace("_", "-"): v for k, v in (helps or {}).items()}
 
     def add(fn: Callable) -> Callable:
-        for opt in reversed(_LINK_OPTIONS[1:]):
-            fn = opt(fn)
+        for spec in reversed(_LINK_SPECS):
+            if _flag_of(spec) not in left_out:
+                fn = _option(spec, helps.get(_flag_of(spec)))(fn)
         if several:
             return click.option("--link", "link", multiple=True, type=click.Path(dir_okay=False, path_type=Path),
                                 help=link_help)(fn)
-        return _LINK_OPTIONS[0](fn)
+        return _option(_LINK_OPTION)(fn)
 
     return add if fn is None else add(fn)
 

@@ -297,3 +297,18 @@ def test_a_bad_rate_is_named_by_its_flag_in_every_command(bad_inputs, command):
                                     *link, "-q"])
     assert res.exit_code == 2, res.output
     assert res.stderr.startswith("Error: --rate: ") and "-250000 Hz: must be > 0" in res.stderr
+
+
+@pytest.mark.parametrize("command,unused,used", [
+    ("curves", ["--rate", "--datatype", "--offset", "--sync", "--max-freq-error", "--coding"],
+     ["--baud", "--shift", "--gaussian", "--length", "--crc"]),
+    ("synth", ["--max-freq-error", "--detector", "--detector-symbols", "--sync-tolerance"],
+     ["--datatype", "--rate", "--offset", "--sync", "--gaussian", "--coding"]),
+])
+def test_a_command_offers_only_the_link_flags_it_uses(command, unused, used):
+    # a flag a command would ignore is not offered: given, it is a usage error, not silence
+    text = run(command, "--help").output
+    assert all(f"  {flag} " in text for flag in used)
+    assert not any(f"  {flag} " in text for flag in unused)
+    res = CliRunner().invoke(main, [command, "x", *unused[:1], "1"])
+    assert res.exit_code == 2 and f"No such option '{unused[0]}'" in res.stderr

@@ -18,8 +18,14 @@ __all__ = ["command"]
 CURVE_RANGE_DB = (-50.0, 100.0)
 
 
+# curves tabulate theory for the signal and the frame's length and CRC: the capture, where the
+# signal sits, the sync word and the line coding play no part, so they are not offered
+UNUSED = ("datatype", "rate", "offset", "frequency", "invert", "max_freq_error", "sync", "sync_bits",
+          "sync_tolerance", "coding", "whitening", "bit_order", "crc_order", "length_counts", "length_offset")
+
+
 @click.command("curves")
-@link_options
+@link_options(omit=UNUSED)
 @click.option("--ebn0", "ebn0_range", default="0:16:1", show_default=True, metavar="FROM:TO:STEP",
               help="Eb/N0 values to tabulate, dB (FROM and TO within -50–100, at most 10000 points).")
 @click.option("--freq-error-per-baud", "--freq-error-t", "freq_error_per_baud", type=finite(-1.0, 1.0), default=0.0,
@@ -41,7 +47,9 @@ def command(ebn0_range, freq_error_per_baud, target_ber, frame_bits, as_json, pl
     Gaussian pulse (--gaussian BT) or an h that is not whole, two more: the
     one-symbol correlator bank receiving this pulse, and the multi-symbol
     detector of --detector-symbols symbols, each with its frame error rate.
-    Give --baud and --shift (or --link); no capture is needed.
+    Give --baud and --shift (or --link); without any of the three, orthogonal
+    tones (h = 1). No capture is needed. Of a profile, the signal, the frame
+    length and the CRC count; its capture, sync word and coding do not.
     """
     if link_kw.get("link") is None and link_kw.get("baud") is None and link_kw.get("shift") is None:
         link_kw["baud"] = link_kw["shift"] = 1.0  # no link given: orthogonal tones, h = 1

@@ -20,7 +20,11 @@ DEFAULT_RATE = 1_024_000
 
 @click.command("synth")
 @click.argument("output", type=click.Path(dir_okay=False, path_type=Path))
-@link_options
+# what only a receiver uses (the carrier search, the detector, the sync tolerance) is not offered
+@link_options(omit=("max_freq_error", "detector", "detector_symbols", "sync_tolerance"),
+              helps={"datatype": "SigMF datatype of the capture written: cu8, ci8, ci16_le, ci16_be, cf32_le, "
+                                 "cf64_le, … [default: cf32_le].",
+                     "rate": f"Sample rate of the capture written, Hz [default: {DEFAULT_RATE}]."})
 @click.option("--ebn0", "ebn0", multiple=True, required=True, metavar="DB",
               help="Eb/N0 of the bursts, dB (each within -50–100); repeat or give a comma list for bursts of "
                    "different strength, used in turn.")
