@@ -213,12 +213,23 @@ class HealthAccumulator:
                                              sum(not f.crc_ok for f in frames), bits))
         self._bits_sum += bits * len(frames)
         self._bits_n += len(frames)
-        self._histogram(burst, good)
+        self._histogram(burst, good, est.ebn0_db)
 
-    def _histogram(self, burst: Burst, good: list[Frame]) -> None:
-        """Both correlators' statistics in dB above the burst's noise: the sent tone's, and the other's."""
+    def _histogram(self, burst: Burst, good: list[Frame], snr_db: float) -> None:
+        """Both decision statistics in dB above the burst's noise: the sent symbol's, and the other's.
+
+        One-symbol correlators: the other tone's |z|² is noise alone, about exponential, so its
+        median is the noise times ln 2. Multi-symbol detector: the best hypothesis of the other
+        middle bit shares the window's other symbols, so it is no noise reference; the noise of
+        a window statistic is the signal's over N·Es/N0 (:class:`~iqdemod.sequence.SequenceDecisions`),
+        with Es/N0 the burst's own estimate `snr_db`.
+        """
         z = np.stack([burst.z0sq, burst.z1sq], axis=1)
-        noise = np.median(np.min(z, axis=1)) / math.log(2)  # the smaller is ~exponential: median = N·ln 2
+        seq = self.plan.sequence
+        if seq is None:
+            noise = np.median(np.min(z, axis=1)) / math.log(2)  # the smaller is ~exponential: median = N·ln 2
+        else:
+            noise = np.median(np.max(z, axis=1)) / (seq.n_symbols * 10 ** (snr_db / 10))
         if not noise > 0:
             return
         sent = _sent_tones(burst, good, self.plan.link.frame)

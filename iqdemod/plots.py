@@ -127,7 +127,8 @@ def _curve_axes(ax, ebn0_db: np.ndarray, *, h: float, freq_error_per_baud: float
     With `target_ber`, each label ends with the Eb/N0 that curve needs for
     that BER. The multi-symbol curve is left out above 10 %, where its
     approximation (:func:`iqdemod.sequence_theory.sequence_ber`, "pruned")
-    overshoots.
+    overshoots: its line then starts at the first Eb/N0 below 10 %, and its
+    label says so.
     """
     g = P.from_db(ebn0_db)
     eps = freq_error_per_baud
@@ -179,7 +180,8 @@ def _pulse_curves(ax, ebn0_db, table: dict, need: dict, *, h: float, eps: float,
     # The multi-symbol prediction is an approximation of a union bound: above 10 % it overshoots (to 0.5)
     multi = np.asarray(table["ber_multi_symbol"], float)
     ax.semilogy(ebn0_db, np.where(multi <= 0.1, multi, np.nan), color=PALETTE["mooring violet"], lw=2,
-                label=f"multi-symbol {detector_symbols} ({shape}, h = {h:g}){_need_label(need.get('multi_symbol'))}")
+                label=f"multi-symbol {detector_symbols} ({shape}, h = {h:g}; a bound, drawn below 0.1)"
+                      f"{_need_label(need.get('multi_symbol'))}")
 
 
 def plot_curves(path, *, ebn0_db: np.ndarray, h: float = 1.0, freq_error_per_baud: float = 0.0,
@@ -218,7 +220,8 @@ def plot_curves(path, *, ebn0_db: np.ndarray, h: float = 1.0, freq_error_per_bau
         ax.annotate(f"target BER {target_ber:g}", (grid[0], target_ber), va="bottom", fontsize=8)
     lo = max(1e-9, float(P.pb_antipodal(P.from_db(np.max(grid)))) / 3)
     ax.set_ylim(lo, 0.6)
-    ax.legend(fontsize=8, loc="lower left")
+    ax.legend(fontsize=8, loc="lower left",
+              title=f"curve; Eb/N0 it needs for BER {target_ber:g}" if target_ber else None, title_fontsize=8)
     title = "Bit error probability in white Gaussian noise"
     if pulse == "gaussian":
         title += f": GFSK, BT {bt:g}, h = {h:g}"
@@ -310,10 +313,13 @@ def _decision_histogram(hx, report) -> None:
     if len(edges) and (sum(report.histogram_right) + sum(report.histogram_wrong)):
         centres = (edges[1:] + edges[:-1]) / 2
         width = edges[1] - edges[0]
+        window = report.detector == "multi-symbol"
         hx.bar(centres, report.histogram_wrong, width=width, color=PALETTE["slate"], alpha=0.7,
-               label="the other correlator")
+               label=f"best of the other middle bit\n(shares the other {report.detector_symbols - 1} symbols)"
+               if window else "the other correlator")
         hx.bar(centres, report.histogram_right, width=width, color=PALETTE["deep water"], alpha=0.7,
-               label="correlator of the symbol sent\n(known where the CRC is good;\nthe symbol decided elsewhere)")
+               label=("best hypothesis of the symbol sent" if window else "correlator of the symbol sent")
+               + "\n(known where the CRC is good;\nthe symbol decided elsewhere)")
         hx.legend(fontsize=8, loc="upper left")
         counts = np.asarray(report.histogram_right) + np.asarray(report.histogram_wrong)
         used = np.flatnonzero(counts)
@@ -321,7 +327,9 @@ def _decision_histogram(hx, report) -> None:
         hx.set_ylim(0, 1.3 * counts.max() if counts.max() else 1)
     else:
         hx.text(0.5, 0.5, "no symbols", ha="center", va="center", transform=hx.transAxes)
-    hx.set_xlabel("square-law statistic |z|² above the noise (dB)")
+    window = report.detector == "multi-symbol"
+    hx.set_xlabel(f"{report.detector_symbols}-symbol window statistic above its noise (dB)" if window
+                  else "square-law statistic |z|² above the noise (dB)")
     hx.set_ylabel("symbols")
     hx.set_title("Decision statistics", fontsize=10)
     hx.grid(True, alpha=0.3)

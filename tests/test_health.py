@@ -138,3 +138,29 @@ def test_bursts_alike_show_no_spread_row(strong_capture):
     r = assess(strong_capture[0], make_link())
     lo, hi = r.ebn0_db_bursts
     assert hi - lo < 1.0 and "Eb/N0 of bursts" not in health_text(r)
+
+
+def test_multi_symbol_decision_statistics_sit_at_n_times_es_over_n0(tmp_path):
+    # The window statistic of the right hypothesis has SNR N·Es/N0 (the detector's normalisation,
+    # iqdemod.sequence.SequenceDecisions; the matched filter over N symbols, Proakis ch. 4). A GFSK
+    # capture from the tests' own modulator at 14 dB, N = 5: the sent symbol's histogram peaks near
+    # 14 + 10·log10(5) = 21 dB above the noise, and the other middle bit's best lies below it.
+    import fsk_modulator as fm
+
+    rate = 256_000
+    rng = np.random.default_rng(13)
+    txs = [fm.Tx(t_s=0.02 + 0.03 * i, payload=bytes(rng.integers(0, 256, 24, dtype=np.uint8)), ebn0_db=14.0,
+                 offset_hz=40_000, baud=9600, h=0.5, pulse="gaussian", bt=0.5, framing=dict(length="fixed"))
+             for i in range(20)]
+    x, _ = fm.render(txs, rate=rate, n_samples=int(0.65 * rate), noise_rms=0.05, seed=7)
+    path = tmp_path / "g.cf32_le"
+    x.astype("<c8").tofile(path)
+    link = iqdemod.load_link(None, rate=rate, offset=40_000, baud=9600, shift=4800, gaussian=0.5,
+                             sync="0x9B3C57E1", length=24)
+    r = assess(path, link)
+    assert r.detector == "multi-symbol" and r.frames_crc_ok == 20
+    edges = np.asarray(r.histogram_edges_db)
+    centres = (edges[1:] + edges[:-1]) / 2
+    right, wrong = np.asarray(r.histogram_right), np.asarray(r.histogram_wrong)
+    assert centres[np.argmax(right)] == pytest.approx(14.0 + 10 * np.log10(5), abs=1.5)
+    assert np.sum(wrong * centres) / wrong.sum() < np.sum(right * centres) / right.sum() - 1.0
