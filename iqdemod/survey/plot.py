@@ -116,8 +116,11 @@ def _waterfall_panel(fig, ax, result: SurveyResult, example: SignalFound) -> Non
     f = np.fft.fftshift(f)
     img = power_db(np.fft.fftshift(sxx, axes=0), floor=1e-30)
     vmax = float(np.max(img))
+    # the colour scale starts a little above the noise's median (a periodogram of noise spreads tens of
+    # dB below it): the noise reads dark and the burst stands out (common practice for a waterfall)
+    vmin = min(float(np.median(img)) + 3.0, vmax - 10.0)
     mesh = ax.pcolormesh((ex.centre_hz + f) / 1e3, (ex.t_s + t) * 1e3, img.T, shading="auto",
-                         vmin=vmax - 50, vmax=vmax, cmap="cividis")
+                         vmin=vmin, vmax=vmax, cmap="cividis")
     for tone in (example.tone_low_hz, example.tone_high_hz):
         ax.axvline(tone / 1e3, color=PALETTE["buoy orange"], lw=0.7, ls="--")
     span = example.band_high_hz - example.band_low_hz
