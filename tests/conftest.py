@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import collections
+import contextlib
 import json
 import os
 from pathlib import Path
@@ -51,3 +53,27 @@ def strong_capture(tmp_path_factory) -> tuple[Path, dict]:
     """12 frames at 18 dB with a carrier error and a clock error (cf32_le)."""
     base = tmp_path_factory.mktemp("strong") / "strong"
     return make_capture(base, frames=12, freq_error_hz=1200.0, clock_ppm=60.0, seed=11)
+
+
+@contextlib.contextmanager
+def counting_capture_reads():
+    """Count, by file name, every capture health opens and every read of one (Capture.blocks): the
+    check that several links of a capture are decoded from one read. Yields (opened, reads)."""
+    import iqdemod.health
+    from iqdemod.capture import Capture
+
+    opened, reads = collections.Counter(), collections.Counter()
+    real_open, real_blocks = iqdemod.health.open_capture, Capture.blocks
+
+    def counting_open(path, *a, **k):
+        opened[Path(path).name] += 1
+        return real_open(path, *a, **k)
+
+    def counting_blocks(self, *a, **k):
+        reads[Path(self.info.path).name] += 1
+        return real_blocks(self, *a, **k)
+
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(iqdemod.health, "open_capture", counting_open)
+        mp.setattr(Capture, "blocks", counting_blocks)
+        yield opened, reads

@@ -29,10 +29,10 @@ import iqdemod
 from iqdemod import batch as B
 from iqdemod.batch import worker
 from iqdemod.batch.report import settings_digest
-from iqdemod.capture import Capture
 from iqdemod_cli.main import main
 
 import fsk_modulator as fm
+from conftest import counting_capture_reads
 
 RATE = 512_000
 FRAME = '[frame]\nsync_word = "0x9B3C57E1"\nlength = 8\ncrc = "CRC-16/IBM-3740"\n'
@@ -87,20 +87,7 @@ def counted_run(fleet, tmp_path_factory):
     """One batch of both links in this process, counting every open and every read of a capture."""
     root, _ = fleet
     out = tmp_path_factory.mktemp("run")
-    opened, reads = collections.Counter(), collections.Counter()
-    real_open, real_blocks = iqdemod.health.open_capture, Capture.blocks
-
-    def counting_open(path, *a, **k):
-        opened[Path(path).name] += 1
-        return real_open(path, *a, **k)
-
-    def counting_blocks(self, *a, **k):
-        reads[Path(self.info.path).name] += 1
-        return real_blocks(self, *a, **k)
-
-    with pytest.MonkeyPatch.context() as mp:
-        mp.setattr(iqdemod.health, "open_capture", counting_open)
-        mp.setattr(Capture, "blocks", counting_blocks)
+    with counting_capture_reads() as (opened, reads):
         result = B.run_batch([root / "arch"], _links(), report=out / "r.csv", frames=out / "f.jsonl", jobs=1)
     return result, out / "r.csv", out / "f.jsonl", opened, reads
 

@@ -25,6 +25,7 @@ from iqdemod_cli.main import main
 from iqdemod_cli.render import health_text, to_json
 
 import fsk_modulator as fm
+from conftest import counting_capture_reads
 
 RATE = 512_000
 FRAME = '[frame]\nsync_word = "0x9B3C57E1"\nlength = 8\ncrc = "CRC-16/IBM-3740"\n'
@@ -81,20 +82,7 @@ def _invoke(args):
 def counted_json(scene):
     """health --json of both links, counting every open and every read of the capture."""
     root, _ = scene
-    opened, reads = collections.Counter(), collections.Counter()
-    real_open, real_blocks = iqdemod.health.open_capture, Capture.blocks
-
-    def counting_open(path, *a, **k):
-        opened[Path(path).name] += 1
-        return real_open(path, *a, **k)
-
-    def counting_blocks(self, *a, **k):
-        reads[Path(self.info.path).name] += 1
-        return real_blocks(self, *a, **k)
-
-    with pytest.MonkeyPatch.context() as mp:
-        mp.setattr(iqdemod.health, "open_capture", counting_open)
-        mp.setattr(Capture, "blocks", counting_blocks)
+    with counting_capture_reads() as (opened, reads):
         res = _invoke(_args(root, "--json", "-q"))
     return res, opened, reads
 
