@@ -37,11 +37,16 @@ def stop_signals_raise() -> dict:
     """Make the stop signals raise :class:`Terminated`; return the handlers they replaced.
 
     Outside the main thread (a test runner's worker) signals cannot be caught
-    there, so nothing is changed and the result is empty.
+    there, so nothing is changed and the result is empty. A signal the process
+    was started ignoring stays ignored: ``nohup`` ignores SIGHUP so that a long
+    batch outlives its terminal, and a shell's background job ignores SIGINT
+    (as Python itself leaves an ignored SIGINT alone).
     """
     previous = {}
     for sig in STOP_SIGNALS:
         try:
+            if signal.getsignal(sig) == signal.SIG_IGN:
+                continue
             previous[sig] = signal.signal(sig, _raise_terminated)
         except ValueError:  # not the main thread: leave them
             break

@@ -95,6 +95,32 @@ class LiveCapture(Capture):
         return read1(n) if read1 is not None else self._source.read(n)
 
 
+class _FdReader:
+    """Reads a file descriptor with os.read, under no lock of Python's buffered files.
+
+    The reading runs in a thread ahead of the receiver; stopped while it waits on a pipe, that
+    thread is left blocked at exit. Blocked in ``sys.stdin.buffer``, it would hold the buffer's
+    lock, and the interpreter's shutdown, which takes that lock, would abort the process.
+    """
+
+    def __init__(self, fd: int):
+        self._fd = fd
+
+    def read1(self, n: int) -> bytes:
+        return os.read(self._fd, n)
+
+    read = read1
+
+
+def _stdin_source():
+    """Standard input for reading samples: its descriptor when it has one (a pipe, a file), else the
+    buffered stream (a test harness's stand-in)."""
+    try:
+        return _FdReader(sys.stdin.fileno())
+    except (AttributeError, OSError, ValueError):  # io.UnsupportedOperation is an OSError and a ValueError
+        return sys.stdin.buffer
+
+
 def open_live(path: str | os.PathLike, *, datatype: str | None = None, sample_rate: float | None = None,
               follow: bool = False, idle_s: float = 2.0) -> LiveCapture:
     """Open standard input (``"-"``) or a file that may still grow, for reading as it arrives.
@@ -155,7 +181,7 @@ def open_live(path: str | os.PathLike, *, datatype: str | None = None, sample_ra
         if not rate > 0 or not np.isfinite(rate):
             raise CaptureError(f"sample rate {sample_rate!r} Hz: must be > 0")
         info = CaptureInfo(path="-", data_path="-", kind="live", datatype=dt.name, sample_rate_hz=rate, n_samples=0)
-        return LiveCapture(info, sys.stdin.buffer, follow=False, idle_s=idle_s, owns=False)
+        return LiveCapture(info, _stdin_source(), follow=False, idle_s=idle_s, owns=False)
     info = _file_info(Path(text), datatype, sample_rate)
     try:
         fh = open(info.data_path, "rb")

@@ -282,3 +282,34 @@ def test_synth_overwrite_replaces_and_the_library_refuses_by_default(tmp_path):
         iqdemod.synth.synthesize(base, cfg)
     assert _digest(tmp_path) == second
     assert len(iqdemod.synth.synthesize(base, cfg, overwrite=True)["frames"]) == 1
+
+
+def _nohup() -> None:
+    _ctrl_c_as_usual()
+    signal.signal(signal.SIGHUP, signal.SIG_IGN)  # what nohup(1) does before it starts a command (POSIX)
+
+
+@pytest.mark.parametrize("ignored", [True, False], ids=["nohup", "terminal"])
+def test_a_hang_up_the_process_was_started_ignoring_stays_ignored(tmp_path, ignored):
+    # A long run started under nohup must outlive its terminal: an ignored SIGHUP is left ignored
+    # (Python leaves an ignored SIGINT alone the same way); a SIGHUP not ignored stops it (129).
+    output = tmp_path / "f.jsonl"
+    read, write = os.pipe()  # standard input that never brings a sample
+    try:
+        proc = subprocess.Popen([sys.executable, "-m", "iqdemod_cli.main", "decode", "-", *map(str, RAW),
+                                 *map(str, LINK), "-o", str(output), "-q"], stdin=read, stdout=subprocess.DEVNULL,
+                                stderr=subprocess.PIPE, text=True, preexec_fn=_nohup if ignored else _ctrl_c_as_usual)
+        deadline = time.monotonic() + 60
+        while not _partial(tmp_path, output):  # the output is open: the decoder waits for samples
+            assert proc.poll() is None and time.monotonic() < deadline, proc.stderr.read()
+            time.sleep(0.01)
+        proc.send_signal(signal.SIGHUP)
+        if ignored:
+            time.sleep(0.5)
+            assert proc.poll() is None  # still running
+            proc.send_signal(signal.SIGINT)
+        _, err = proc.communicate(timeout=60)
+    finally:
+        os.close(read)
+        os.close(write)
+    assert proc.returncode == (130 if ignored else 129), err
