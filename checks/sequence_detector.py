@@ -123,8 +123,10 @@ def table(repeats, quick):
 
 
 def costs():
-    print("\n2. Cost per symbol (µs, best of 3, in this run; modulation not included)")
-    print(f"    {'link':26} {'N':>2} {'hyps':>5} {'300-sym burst':>14} {'3000-sym burst':>15}")
+    print("\n2. Cost per symbol (µs, best of 3, in this run; modulation not included), in the combining step's"
+          "\n   double precision and in the single precision the receiver uses")
+    print(f"    {'link':26} {'N':>2} {'hyps':>5} {'300-sym burst':>14} {'3000-sym burst':>15} {'single: 300':>12} "
+          f"{'3000':>6}")
     rng = np.random.default_rng(2)
     for label, pulse, bt, h, _, _ in CASES[::2] + CASES[3:]:
         bits = rng.integers(0, 2, 3000)
@@ -133,13 +135,14 @@ def costs():
         for w in (1, 3, 5, 7):
             plan = plan_sequence(h=h, pulse=pulse, bt=bt, n_symbols=w)
             out = []
-            for n_sym in (300, 3000):
-                xs, ss = x[: int(np.ceil(n_sym * 8.37))], starts[:n_sym]
-                detect(xs, ss, 8.37, plan)
-                best = min(_timed(lambda: detect(xs, ss, 8.37, plan)) for _ in range(3))
-                out.append(best / n_sym * 1e6)
+            for precision in ("double", "single"):
+                for n_sym in (300, 3000):
+                    xs, ss = x[: int(np.ceil(n_sym * 8.37))], starts[:n_sym]
+                    detect(xs, ss, 8.37, plan, precision=precision)
+                    best = min(_timed(lambda: detect(xs, ss, 8.37, plan, precision=precision)) for _ in range(3))
+                    out.append(best / n_sym * 1e6)
             print(f"    {label.split(',')[0] + ',' + label.split(',')[1]:26} {w:2d} {plan.n_hypotheses:5d} "
-                  f"{out[0]:14.1f} {out[1]:15.1f}", flush=True)
+                  f"{out[0]:14.1f} {out[1]:15.1f} {out[2]:12.1f} {out[3]:6.1f}", flush=True)
 
 
 def _timed(fn):

@@ -247,7 +247,8 @@ def _synchronise(raw: RawBurst, x: np.ndarray, x_start: int, core: tuple[int, in
         n_in = len(starts) if end is None else max(1, int(np.searchsorted(starts, end - 0.5 * timing.period_samples)))
         decided = decided.copy()
         for _ in range(2):
-            dec = detect_sequence(x, starts[:n_in], timing.period_samples, plan.sequence, offset_hz=delta, rate_hz=rate)
+            dec = detect_sequence(x, starts[:n_in], timing.period_samples, plan.sequence, offset_hz=delta, rate_hz=rate,
+                                  precision="single")
             decided[:n_in] = dec.bits
             # the one-symbol decisions the carrier step above used are poor for a Gaussian pulse at
             # h = ½ (several per cent wrong): measured again on this detector's decisions

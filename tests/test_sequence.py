@@ -398,3 +398,33 @@ def test_fractional_sps_and_clock_drift_cost_under_0_2_db(gfsk05):
     k_ref, n_ref = _ber(ref_x0, ref_bits, plan, 8.8, 32)
     table = [[k_drift, n_drift - k_drift], [k_ref, n_ref - k_ref]]
     assert stats.fisher_exact(table, alternative="greater").pvalue > 0.01
+
+
+@pytest.mark.parametrize("kw", [dict(h=1.0, n_symbols=1), dict(h=0.7, n_symbols=5),
+                                dict(h=0.5, pulse="gaussian", bt=0.5, n_symbols=3),
+                                dict(h=0.5, pulse="gaussian", bt=0.5, n_symbols=5),
+                                dict(h=0.5, pulse="gaussian", bt=0.5, n_symbols=7, invert=True),
+                                dict(h=1.0, pulse="gaussian", bt=0.3, n_symbols=5)])
+def test_single_precision_combining_decides_as_double(kw):
+    # The receiver combines in complex64: its metrics may differ from double precision by the float32
+    # rounding (IEEE 754 single: 2^-24 ≈ 6e-8 a step, a few steps in a sum), never in a decision, on
+    # noisy signals of every plan (the independent modulator's waveform, REFERENCE §8 noise at 6 dB).
+    rng = np.random.default_rng(17)
+    plan = plan_sequence(**kw)
+    bits = rng.integers(0, 2, 600)
+    sps = 8.37
+    x = cpfsk(bits ^ int(plan.invert), sps=sps, h=plan.h, pulse=plan.pulse, bt=plan.bt)  # invert: the other tone
+    x = x + _noise(len(x), 6.0, sps, rng)
+    starts = np.arange(600) * sps + 0.5
+    d = detect(x, starts, sps, plan)
+    s = detect(x, starts, sps, plan, precision="single")
+    assert np.array_equal(d.bits, s.bits)
+    scale = np.maximum(d.m0, d.m1)
+    assert np.max(np.abs(s.m0 - d.m0) / scale) < 1e-6 and np.max(np.abs(s.m1 - d.m1) / scale) < 1e-6
+    # the winner's correlation too, inside the burst; at its edges the bits before the first slot tie
+    # exactly (absent samples), and either precision may name another of the tied hypotheses
+    inside = d.window_symbols == plan.n_symbols
+    assert np.max(np.abs(s.z - d.z)[inside] / np.sqrt(scale[inside])) < 1e-6
+    np.testing.assert_allclose(np.abs(s.z) ** 2, np.maximum(s.m0, s.m1), rtol=1e-5)
+    with pytest.raises(LinkError, match="precision 'half'"):
+        detect(x, starts, sps, plan, precision="half")
