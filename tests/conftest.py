@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import collections
 import contextlib
+import csv
 import json
 import os
 from pathlib import Path
@@ -77,3 +78,14 @@ def counting_capture_reads():
         mp.setattr(iqdemod.health, "open_capture", counting_open)
         mp.setattr(Capture, "blocks", counting_blocks)
         yield opened, reads
+
+
+def read_csv(path) -> list[dict]:
+    """A CSV report as dicts by column (the stdlib's reader: the reference for what we wrote)."""
+    with open(path, newline="", encoding="utf-8") as fh:
+        return list(csv.DictReader(fh))
+
+
+def read_jsonl(path) -> list[dict]:
+    """A JSON Lines file, one object a line."""
+    return [json.loads(line) for line in Path(path).read_text().splitlines()]

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import csv
 import collections
 import json
 import os
@@ -23,20 +22,11 @@ from iqdemod.synth import SynthConfig, synthesize
 from iqdemod_cli.main import main
 import iqdemod_cli.batch_cmd  # noqa: F401  (registers the command until cli/main.py imports it)
 
-from conftest import make_link
+from conftest import make_link, read_csv, read_jsonl
 
 LINK_FLAGS = ["--rate", "1024000", "--offset", "137000", "--baud", "9600", "--shift", "9600",
               "--sync", "0x9B3C57E1", "--length", "24", "--crc", "CRC-16/IBM-3740"]
 ROOT = Path(__file__).resolve().parents[1]
-
-
-def read_csv(path) -> list[dict]:
-    with open(path, newline="", encoding="utf-8") as fh:
-        return list(csv.DictReader(fh))
-
-
-def read_jsonl(path) -> list[dict]:
-    return [json.loads(line) for line in Path(path).read_text().splitlines()]
 
 
 def frame_keys(records) -> collections.Counter:

@@ -11,7 +11,6 @@ counts, the payloads of each link's frames, and the carrier error each transmitt
 from __future__ import annotations
 
 import collections
-import csv
 import dataclasses
 import json
 import os
@@ -32,7 +31,7 @@ from iqdemod.batch.report import settings_digest
 from iqdemod_cli.main import main
 
 import fsk_modulator as fm
-from conftest import counting_capture_reads
+from conftest import counting_capture_reads, read_csv, read_jsonl
 
 RATE = 512_000
 FRAME = '[frame]\nsync_word = "0x9B3C57E1"\nlength = 8\ncrc = "CRC-16/IBM-3740"\n'
@@ -92,15 +91,6 @@ def counted_run(fleet, tmp_path_factory):
     return result, out / "r.csv", out / "f.jsonl", opened, reads
 
 
-def _read_csv(path) -> list[dict]:
-    with open(path, newline="", encoding="utf-8") as fh:
-        return list(csv.DictReader(fh))
-
-
-def _read_jsonl(path) -> list[dict]:
-    return [json.loads(line) for line in Path(path).read_text().splitlines()]
-
-
 def _frame_keys(records) -> collections.Counter:
     return collections.Counter((Path(r["capture"]).name, r.get("link"), r["sample"], r["payload_hex"], r["crc_ok"])
                                for r in records)
@@ -117,12 +107,12 @@ def test_each_capture_is_read_once_for_both_links(counted_run):
 def test_a_row_per_capture_and_link_against_the_modulators_truth(fleet, counted_run):
     _, truth = fleet
     result, report, frames, _, _ = counted_run
-    rows = _read_csv(report)
+    rows = read_csv(report)
     # collection order, then link order
     assert [(Path(r["capture"]).name, r["link_name"]) for r in rows] == [
         (f"night{k}.sigmf-meta", name) for k in range(N_CAPTURES) for name in ("buoys", "gauges")]
     assert [(r.capture, r.link_name) for r in result.rows] == [(r["capture"], r["link_name"]) for r in rows]
-    records = _read_jsonl(frames)
+    records = read_jsonl(frames)
     for r in rows:
         want = truth[Path(r["capture"]).name][r["link_name"]]
         mine = [f for f in records if f["capture"] == r["capture"] and f["link"] == r["link_name"]]
@@ -233,7 +223,7 @@ def test_resume_redoes_a_capture_with_a_link_row_missing(fleet, counted_run, tmp
     report, frames = tmp_path / "r.csv", tmp_path / "f.jsonl"
     lines = report0.read_text().splitlines(keepends=True)
     B.partial_path(report).write_text("".join(lines[:4]))  # the header, night0's two rows, night1's first
-    first = {r["capture"] for r in _read_csv(report0)[:3]}
+    first = {r["capture"] for r in read_csv(report0)[:3]}
     B.partial_path(frames).write_text("".join(line for line in frames0.read_text().splitlines(keepends=True)
                                               if json.loads(line)["capture"] in first))
     res = B.run_batch([root / "arch"], _links(), report=report, frames=frames, resume=True, jobs=1)
@@ -287,16 +277,16 @@ def test_kill_and_resume_with_two_links(fleet, counted_run, tmp_path):
     res = CliRunner().invoke(main, ["batch", str(arch), *links, "-o", str(report), "--frames", str(frames),
                                     "--resume", "-j", "1", "-q"])
     assert res.exit_code == 0, res.output
-    rows = _read_csv(report)
+    rows = read_csv(report)
     assert [(r["capture"], r["link_name"]) for r in rows] == [
         (str(arch / copy / f"night{k}.sigmf-meta"), name) for copy in ("a", "b") for k in range(N_CAPTURES)
         for name in ("buoys", "gauges")]
     # nothing lost, nothing twice: what one uninterrupted run of the fleet wrote, for each copy
     cols = ("link_name", "status", "frames", "frames_crc_ok", "settings_digest", "frame_records", "ebn0_db")
-    ref = {(Path(r["capture"]).name, r["link_name"]): [r[c] for c in cols] for r in _read_csv(report0)}
+    ref = {(Path(r["capture"]).name, r["link_name"]): [r[c] for c in cols] for r in read_csv(report0)}
     assert [[r[c] for c in cols] for r in rows] == [ref[(Path(r["capture"]).name, r["link_name"])] for r in rows]
-    want = _frame_keys(_read_jsonl(frames0))
-    assert _frame_keys(_read_jsonl(frames)) == want + want
+    want = _frame_keys(read_jsonl(frames0))
+    assert _frame_keys(read_jsonl(frames)) == want + want
     assert not journal.exists() and not B.partial_path(frames).exists()
 
 
@@ -304,10 +294,10 @@ def _same_as(report0: Path, frames0: Path, report: Path, frames: Path) -> None:
     """The report and frames of a resumed run hold what one uninterrupted run wrote."""
     cols = ("capture", "link_name", "status", "frames", "frames_crc_ok", "transmitter", "settings_digest",
             "frame_records", "ebn0_db")
-    assert [[r[c] for c in cols] for r in _read_csv(report)] == [[r[c] for c in cols] for r in _read_csv(report0)]
-    assert _frame_keys(_read_jsonl(frames)) == _frame_keys(_read_jsonl(frames0))
-    labels = {(r["capture"], r["link_name"]): r["transmitter"] for r in _read_csv(report)}
-    records = _read_jsonl(frames)
+    assert [[r[c] for c in cols] for r in read_csv(report)] == [[r[c] for c in cols] for r in read_csv(report0)]
+    assert _frame_keys(read_jsonl(frames)) == _frame_keys(read_jsonl(frames0))
+    labels = {(r["capture"], r["link_name"]): r["transmitter"] for r in read_csv(report)}
+    records = read_jsonl(frames)
     assert records and all(f["transmitter"] == labels[(f["capture"], f["link"])] for f in records)
     assert not B.partial_path(report).exists() and not B.partial_path(frames).exists()
 
@@ -319,12 +309,12 @@ def test_command_line_with_two_profiles(fleet, tmp_path):
                                     str(root / "gauges.toml"), "-o", str(report), "--frames", str(frames),
                                     "--plot", str(png), "-j", "2"])
     assert res.exit_code == 0, res.output
-    rows = _read_csv(report)
+    rows = read_csv(report)
     assert [r["link_name"] for r in rows] == ["buoys", "gauges"] * N_CAPTURES
     # each row names the profile its link came from
     assert {(r["link_name"], r["link"]) for r in rows} == {("buoys", str(root / "buoys.toml")),
                                                            ("gauges", str(root / "gauges.toml"))}
-    records = _read_jsonl(frames)
+    records = read_jsonl(frames)
     got = {(Path(f["capture"]).name, f["link"], f["payload_hex"]) for f in records if f["crc_ok"]}
     assert got == {(c, name, p) for c, t in truth.items() for name, ps in t.items() for p in ps}
     assert all(f["transmitter"].startswith(f["link"] + ": tx") for f in records)
@@ -335,7 +325,7 @@ def test_command_line_with_two_profiles(fleet, tmp_path):
                                     str(root / "gauges.toml"), "-o", str(report), "--frames", str(frames),
                                     "--resume", "-j", "1"])
     assert res.exit_code == 0 and f"({N_CAPTURES} done before)" in res.output
-    assert _frame_keys(_read_jsonl(frames)) == _frame_keys(records)
+    assert _frame_keys(read_jsonl(frames)) == _frame_keys(records)
 
 
 def test_a_folder_profile_with_two_signals(fleet, tmp_path):
@@ -349,7 +339,7 @@ def test_a_folder_profile_with_two_signals(fleet, tmp_path):
                                     + "[[signal]]\n" + SIGNAL.format(name="gauges", **GAUGES))
     res = CliRunner().invoke(main, ["batch", str(tmp_path), "-o", str(tmp_path / "r.csv"), "-j", "1", "-q"])
     assert res.exit_code == 0, res.output
-    rows = _read_csv(tmp_path / "r.csv")
+    rows = read_csv(tmp_path / "r.csv")
     assert [(Path(r["capture"]).name, r["link_name"], r["transmitter"]) for r in rows] == [
         (f"{c}.sigmf-meta", name, f"{name}: harbour") for c in ("night0", "night1") for name in ("buoys", "gauges")]
     assert all(r["link"] == str(site / "link.toml") for r in rows)

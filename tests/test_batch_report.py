@@ -7,7 +7,6 @@ definition written in each truth file (Eb/N0 = A²·(fs/Rb)/σ²).
 
 from __future__ import annotations
 
-import csv
 import doctest
 import itertools
 import json
@@ -28,14 +27,9 @@ from iqdemod.synth import DEFAULT_CENTRE_HZ, SynthConfig, synthesize
 from iqdemod_cli.main import main
 import iqdemod_cli.batch_cmd  # noqa: F401  (registers the command until cli/main.py imports it)
 
-from conftest import make_link
+from conftest import make_link, read_csv
 
 ROOT = Path(__file__).resolve().parents[1]
-
-
-def read_csv(path) -> list[dict]:
-    with open(path, newline="", encoding="utf-8") as fh:
-        return list(csv.DictReader(fh))
 
 
 # --------------------------------------------------------------------------- the suffix registry
