@@ -388,8 +388,14 @@ def batch_summary(result, *, weakest_shown: int = 5) -> list[str]:
         more = f" and {len(empty) - weakest_shown} more" if len(empty) > weakest_shown else ""
         lines.append(f"no frames found in {len(empty)}: " + ", ".join(name(r) for r in empty[:weakest_shown]) + more
                      + " (check their link)")
-    failed = [r for r in result.rows if not r.ok]
-    lines += [f"failed: {name(r)}: {r.error}" for r in failed[:weakest_shown]]
+    # a capture that failed fails for every link alike: one line for it, naming its links
+    failed: dict[tuple[str, str], list[str]] = {}
+    for r in result.rows:
+        if not r.ok:
+            failed.setdefault((r.capture, r.error), []).append(r.link_name)
+    for (capture, error), links in list(failed.items())[:weakest_shown]:
+        named = ", ".join(n for n in links if n)
+        lines.append(f"failed: {capture}{f' ({named})' if named else ''}: {error}")
     if len(failed) > weakest_shown:
         lines.append(f"failed: … and {len(failed) - weakest_shown} more (see the report)")
     return lines

@@ -189,3 +189,18 @@ def test_batch_summary_names_the_captures_with_no_frames():
     assert lines[0].startswith("3 capture(s): 2 ok, 1 failed")
     assert "no frames found in 1: quiet.cu8 (check their link)" in lines
     assert not any("a.cu8" in line and "no frames" in line for line in lines)
+
+
+def test_batch_summary_names_a_failed_capture_once_with_its_links():
+    # one capture, two links, one error: one line naming both links (not one line a link)
+    from iqdemod.batch.report import BatchResult, CaptureRow
+
+    from iqdemod_cli.render import batch_summary
+
+    rows = [CaptureRow("bad.cu8", "/bad.cu8", "error", error="CaptureError: empty capture", link_name="buoys"),
+            CaptureRow("bad.cu8", "/bad.cu8", "error", error="CaptureError: empty capture", link_name="gauges"),
+            CaptureRow("alone.cu8", "/alone.cu8", "error", error="CaptureError: no such file")]
+    lines = batch_summary(BatchResult.of(rows, report="r.csv"))
+    assert [line for line in lines if line.startswith("failed:")] == [
+        "failed: bad.cu8 (buoys, gauges): CaptureError: empty capture",
+        "failed: alone.cu8: CaptureError: no such file"]
