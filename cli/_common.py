@@ -111,21 +111,18 @@ DATATYPE_OPTION = _option(_named("datatype"))
 RATE_OPTION = _option(_named("rate"))
 
 
-_SEVERAL_HELP = ("TOML link profile; the flags below override its values. Give it again (or use a profile "
-                 "with several [[signal]] entries) to decode several links in one pass: frames then carry "
-                 "their link's name.")
-
-
-def link_options(fn: Callable | None = None, *, several: bool = False, link_help: str = _SEVERAL_HELP,
+def link_options(fn: Callable | None = None, *, several: bool = False,
+                 several_do: str = "decode several links in one pass: frames then carry their link's name",
                  omit: Iterable[str] = (), helps: dict[str, str] | None = None) -> Callable:
     """Add the link-description options to a command.
 
     With `several`, ``--link`` may be given more than once (each profile one
     link, or one per ``[[signal]]`` entry), for a command that decodes several
-    links in one pass; read them with :func:`links_from_options`. `link_help`
-    is then its help text. `omit` names flags the command has no use for (by
-    their override names, e.g. ``"max_freq_error"``), which it then does not
-    offer; `helps` rewords a flag's help for the command.
+    links in one pass; read them with :func:`links_from_options`. Its help then
+    ends with `several_do`, what the command does with several. `omit` names
+    flags the command has no use for (by their override names, e.g.
+    ``"max_freq_error"``), which it then does not offer; `helps` rewords a
+    flag's help for the command.
     """
     left_out = {"--" + name.replace("_", "-") for name in omit}
     helps = {"--" + k.replace("_", "-"): v for k, v in (helps or {}).items()}
@@ -135,8 +132,10 @@ def link_options(fn: Callable | None = None, *, several: bool = False, link_help
             if _flag_of(spec) not in left_out:
                 fn = _option(spec, helps.get(_flag_of(spec)))(fn)
         if several:
-            return click.option("--link", "link", multiple=True, type=click.Path(dir_okay=False, path_type=Path),
-                                help=link_help)(fn)
+            decls, attrs = _LINK_OPTION
+            return _option((decls, {**attrs, "multiple": True}),
+                           f"{attrs['help']} Give it again (or use a profile with several [[signal]] entries) to "
+                           f"{several_do}.")(fn)
         return _option(_LINK_OPTION)(fn)
 
     return add if fn is None else add(fn)
@@ -147,16 +146,9 @@ def link_overrides(kw: dict[str, Any]) -> dict[str, Any]:
     return {name: kw.get(name) for name in iqdemod.profile.OVERRIDES}
 
 
-def link_from_options(kw: dict[str, Any], *, optional: bool = False) -> iqdemod.Link | None:
-    """Build the link from --link and the override flags; pops them from `kw`.
-
-    With `optional`, a command line that names no link at all (no --link,
-    and neither --baud nor --shift, which every link needs) gives None, for a
-    command that can find links elsewhere (batch: a folder's link.toml).
-    """
+def link_from_options(kw: dict[str, Any]) -> iqdemod.Link:
+    """Build the link from --link and the override flags; pops them from `kw`."""
     path, overrides = _pop_link_options(kw)
-    if optional and path is None and overrides["baud"] is None and overrides["shift"] is None:
-        return None
     return iqdemod.load_link(path, **overrides)
 
 
@@ -175,8 +167,9 @@ def links_from_options(kw: dict[str, Any], *, optional: bool = False
     One profile with one signal (or none, flags alone) gives a plain Link, as
     :func:`link_from_options` does; several give a dict of named links. Also
     returns the profile paths (inputs that no output may replace). With
-    `optional`, a command line that names no link at all gives None, as
-    :func:`link_from_options` does.
+    `optional`, a command line that names no link at all (no --link, and
+    neither --baud nor --shift, which every link needs) gives None, for a
+    command that can find links elsewhere (batch: a folder's link.toml).
     """
     given, overrides = _pop_link_options(kw)
     paths = list(given or ())

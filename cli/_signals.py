@@ -42,12 +42,19 @@ def stop_signals_raise() -> dict:
     batch outlives its terminal, and a shell's background job ignores SIGINT
     (as Python itself leaves an ignored SIGINT alone).
     """
+    return _install(STOP_SIGNALS, _raise_terminated)
+
+
+def _install(signals, handler) -> dict:
+    """`handler` for each of `signals` the process does not ignore; the handlers replaced, by signal.
+
+    Outside the main thread nothing is installed (signals are caught only there)."""
     previous = {}
-    for sig in STOP_SIGNALS:
+    for sig in signals:
         try:
             if signal.getsignal(sig) == signal.SIG_IGN:
                 continue
-            previous[sig] = signal.signal(sig, _raise_terminated)
+            previous[sig] = signal.signal(sig, handler)
         except ValueError:  # not the main thread: leave them
             break
     return previous
@@ -130,13 +137,7 @@ def stops_gated() -> Iterator[StopGate]:
     gate = StopGate()
     previous: dict = {}
     try:
-        for sig in (signal.SIGINT, *STOP_SIGNALS):
-            try:
-                if signal.getsignal(sig) == signal.SIG_IGN:
-                    continue
-                previous[sig] = signal.signal(sig, gate.handle)
-            except ValueError:  # not the main thread
-                break
+        previous = _install((signal.SIGINT, *STOP_SIGNALS), gate.handle)
         yield gate
     finally:
         restore_signals(previous)

@@ -157,11 +157,17 @@ def _estimate_rows(r) -> list[tuple[str, str, str]]:
         return [("Eb/N0", DASH, "no frame found to measure it on")]
     lo, hi = r.ebn0_db_ci90
     rows = [("Eb/N0", _db(r.ebn0_db), f"90 % interval {lo:.2f} … {hi:.2f} dB, {r.ebn0_method}")]
-    spread = r.ebn0_db_bursts
-    if spread is not None and spread[1] - spread[0] >= BURST_SPREAD_SHOWN_DB:  # bursts that differ: say so
-        rows.append(("Eb/N0 of bursts", f"{spread[0]:.1f} … {spread[1]:.1f} dB",
+    if _bursts_differ(r):
+        lo, hi = r.ebn0_db_bursts
+        rows.append(("Eb/N0 of bursts", f"{lo:.1f} … {hi:.1f} dB",
                      "10th to 90th percentile of the frames, each burst's own estimate less its noise"))
     return rows
+
+
+def _bursts_differ(r) -> bool:
+    """The bursts' Eb/N0 differ enough (10th to 90th percentile) for their spread to be shown."""
+    spread = r.ebn0_db_bursts
+    return spread is not None and spread[1] - spread[0] >= BURST_SPREAD_SHOWN_DB
 
 
 def _margin_rows(r) -> list[tuple[str, str, str]]:
@@ -170,9 +176,7 @@ def _margin_rows(r) -> list[tuple[str, str, str]]:
     if r.margin_db is not None:
         rows.append(("margin", _db(r.margin_db, True),
                      f"to BER {r.target_ber:g}: Eb/N0 {r.ebn0_db:.2f} dB against {r.ebn0_needed_db:.2f} dB needed"))
-    spread = r.ebn0_db_bursts
-    if (r.margin_db_weakest is not None and spread is not None
-            and spread[1] - spread[0] >= BURST_SPREAD_SHOWN_DB):
+    if r.margin_db_weakest is not None and _bursts_differ(r):
         rows.append(("margin, weakest", _db(r.margin_db_weakest, True),
                      "of the weakest tenth of the frames (bursts at the 10th percentile's Eb/N0)"))
     fitted = r.detector == "multi-symbol"  # its Eb/N0 is fitted against the pulse itself: no gain to count

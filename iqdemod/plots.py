@@ -310,10 +310,10 @@ def _operating_point(ax, report) -> None:
 def _decision_histogram(hx, report) -> None:
     """Both correlators' square-law statistics: the sent tone's and the other's."""
     edges = np.asarray(report.histogram_edges_db)
+    window = report.detector == "multi-symbol"  # the window hypotheses' statistics, not two correlators'
     if len(edges) and (sum(report.histogram_right) + sum(report.histogram_wrong)):
         centres = (edges[1:] + edges[:-1]) / 2
         width = edges[1] - edges[0]
-        window = report.detector == "multi-symbol"
         hx.bar(centres, report.histogram_wrong, width=width, color=PALETTE["slate"], alpha=0.7,
                label=f"best of the other middle bit\n(shares the other {report.detector_symbols - 1} symbols)"
                if window else "the other correlator")
@@ -327,7 +327,6 @@ def _decision_histogram(hx, report) -> None:
         hx.set_ylim(0, 1.3 * counts.max() if counts.max() else 1)
     else:
         hx.text(0.5, 0.5, "no symbols", ha="center", va="center", transform=hx.transAxes)
-    window = report.detector == "multi-symbol"
     hx.set_xlabel(f"{report.detector_symbols}-symbol window statistic above its noise (dB)" if window
                   else "square-law statistic |z|² above the noise (dB)")
     hx.set_ylabel("symbols")

@@ -18,10 +18,8 @@ __all__ = ["command"]
 
 @click.command("batch")
 @click.argument("paths", nargs=-1, required=True, type=click.Path())
-@link_options(several=True, link_help=(
-    "TOML link profile; the flags below override its values. Give it again (or use a profile with several "
-    "[[signal]] entries) to assess several links of each capture in one read: a report row per capture and "
-    "link (link_name), and frames carry their link's name."))
+@link_options(several=True, several_do=("assess several links of each capture in one read: a report row per "
+                                        "capture and link (link_name), and frames carry their link's name"))
 @click.option("-o", "--output", "report", required=True, type=click.Path(dir_okay=False, path_type=Path),
               help="The CSV report, one row per capture and link (written atomically when the batch is done).")
 @click.option("--frames", type=click.Path(dir_okay=False, path_type=Path), default=None,

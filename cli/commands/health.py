@@ -14,14 +14,10 @@ from ..render import health_links_json, health_links_text, health_text, to_json,
 
 __all__ = ["command"]
 
-_LINK_HELP = ("TOML link profile; the flags below override its values. Give it again (or use a profile with "
-              "several [[signal]] entries) to assess several links in one pass over the capture: one report "
-              "per link, headed by its name.")
-
-
 @click.command("health")
 @click.argument("capture", type=click.Path(path_type=Path))
-@link_options(several=True, link_help=_LINK_HELP)
+@link_options(several=True, several_do=("assess several links in one pass over the capture: one report per link, "
+                                        "headed by its name"))
 @click.option("--target-ber", type=finite(0, 0.5, min_open=True, max_open=True), default=1e-5,
               show_default=True, help="BER the margin is measured against.")
 @click.option("--json", "as_json", is_flag=True,

@@ -132,6 +132,18 @@ class CaptureRow:
         return cls(**kw)
 
 
+def named_label(link_name: str, label: str) -> str:
+    """A transmitter label with its link's name first when a capture has several links (rows of
+    different links never share a label); as it is for one link, or no label.
+
+    Examples
+    --------
+    >>> named_label("gauges", "tx1 (+420 Hz)"), named_label("", "tx1 (+420 Hz)"), named_label("gauges", "")
+    ('gauges: tx1 (+420 Hz)', 'tx1 (+420 Hz)', '')
+    """
+    return f"{link_name}: {label}" if link_name and label else label
+
+
 COLUMNS = tuple(f.name for f in dataclasses.fields(CaptureRow))
 # 7 significant figures, except where a figure needs more: an absolute frequency to 0.1 Hz
 _FLOAT_FORMAT = {"frequency_hz": ".1f"}

@@ -5,7 +5,7 @@ from __future__ import annotations
 import math
 from typing import Sequence
 
-from .report import CaptureRow
+from .report import CaptureRow, named_label
 
 __all__ = ["TX_TOLERANCE_HZ", "label_transmitters"]
 
@@ -68,10 +68,9 @@ def label_transmitters(rows: Sequence[CaptureRow], *, tolerance_hz: float = TX_T
     for name, idx in by_link.items():
         spreads = sorted(rows[i].freq_spread_hz for i in idx if rows[i].freq_spread_hz is not None)
         spread = spreads[len(spreads) // 2] if spreads else 0.0
-        prefix = f"{name}: " if name else ""
         for n, group in enumerate(_groups(rows, idx, max(tolerance_hz, 3.0 * spread)), 1):
             freqs = sorted(rows[i].freq_error_hz for i in group)
             centre = freqs[len(freqs) // 2]
             for i in group:
-                labels[i] = f"{prefix}tx{n} ({centre:+.0f} Hz)"
+                labels[i] = named_label(name, f"tx{n} ({centre:+.0f} Hz)")
     return labels

@@ -8,7 +8,7 @@ import os
 from datetime import datetime, timezone
 from typing import Sequence
 
-from .report import CaptureRow, read_report
+from .report import CaptureRow, named_label, read_report
 from .transmitters import label_transmitters
 
 __all__ = ["plot_trend", "zero_error_bound"]
@@ -51,8 +51,7 @@ def _series(rows: Sequence[CaptureRow]) -> dict[str, list[tuple[datetime, Captur
     for r in rows:
         t = _parse_time(r.start_time)
         if r.ok and t is not None and (r.ebn0_db is not None or r.fer_observed is not None):
-            unknown = f"{r.link_name}: unknown" if r.link_name else "unknown"
-            series.setdefault(r.transmitter or unknown, []).append((t, r))
+            series.setdefault(r.transmitter or named_label(r.link_name, "unknown"), []).append((t, r))
     for pts in series.values():
         pts.sort(key=lambda p: p[0])
     return dict(sorted(series.items()))

@@ -12,7 +12,7 @@ from typing import Any, Mapping, Sequence
 
 from ..errors import IqdemodError, LinkError
 from ..link import Link
-from .report import CaptureRow, settings_digest
+from .report import CaptureRow, named_label, settings_digest
 
 __all__ = ["CaptureTask", "CaptureOutcome", "process_capture"]
 
@@ -74,7 +74,7 @@ class CaptureTask:
 
     def label(self, name: str) -> str:
         """The folder's transmitter label of row `name`: with several links, the link's name first."""
-        return f"{name}: {self.transmitter}" if name and self.transmitter else self.transmitter
+        return named_label(name, self.transmitter)
 
 
 @dataclass(frozen=True)
