@@ -232,18 +232,25 @@ class Capture:
                 self._fh = open(self.info.data_path, "rb")
             except OSError as exc:
                 raise CaptureError(f"{self.info.data_path}: cannot open ({exc.strerror})") from None
-        self._fh.seek(self.info.header_bytes)
+        pos = self.info.header_bytes
+        mapped = MAP_READS
         while remaining > 0:
             n = min(step, remaining)
-            data = self._fh.read(n * dt.sample_bytes)  # a fresh buffer per block: blocks never alias
-            if len(data) != n * dt.sample_bytes:
+            size = n * dt.sample_bytes
+            data = _mapped(self._fh, pos, size) if mapped else None
+            if data is None:  # not a regular file, a file system that cannot map, or mapping off
+                mapped = False
+                self._fh.seek(pos)
+                data = self._fh.read(size)
+            if len(data) != size:
                 raise CaptureError(
                     f"{self.info.data_path}: file shrank while reading (got {len(data)} of "
-                    f"{n * dt.sample_bytes} bytes)"
+                    f"{size} bytes)"
                 )
             samples, bad, clipped = convert(np.frombuffer(data, dtype=dt.numpy))
             self._count(n, bad, clipped)
             remaining -= n
+            pos += size
             yield samples
 
     def _audio_blocks(self, step: int) -> Iterator[np.ndarray]:
@@ -278,6 +285,37 @@ class Capture:
 def _audio_bits(subtype: str) -> int:
     m = re.search(r"(\d+)", subtype or "")
     return int(m.group(1)) if m and subtype.upper().startswith(("PCM", "DPCM")) else 0
+
+
+MAP_READS = True  # raw blocks are read through a memory map of the file (see _mapped); False: read() copies
+
+
+def _mapped(fh, pos: int, size: int) -> memoryview | bytes | None:
+    """Bytes `pos` … `pos` + `size` of open file `fh`, mapped read-only rather than copied; None where
+    the file cannot be mapped (a pipe, a device, a file system without mmap).
+
+    Each block gets a mapping of its own, which lives as long as the arrays made from it
+    (numpy keeps the buffer alive): blocks never alias, and the pages of a block that is done
+    with are let go. A file shorter than the block asks (it shrank since it was opened) gives
+    the bytes that are there, so the caller reports it. Reading a block's bytes from the
+    page cache by copying them costs about as much as a pass over the samples; the mapping
+    costs a few page-table entries. A file cut short by another program *while* a block of it
+    is mapped cannot be caught this way (the operating system ends the process on access to
+    the vanished pages); it is read from whole, as recorders leave files, and a file still being
+    written is read with ``--follow`` (:mod:`iqdemod.live`), which never maps.
+    """
+    import mmap
+
+    try:
+        available = os.fstat(fh.fileno()).st_size - pos
+        if available < size:
+            fh.seek(pos)
+            return fh.read(max(0, available))
+        start = pos - pos % mmap.ALLOCATIONGRANULARITY
+        view = mmap.mmap(fh.fileno(), size + pos - start, access=mmap.ACCESS_READ, offset=start)
+    except (OSError, ValueError, OverflowError):
+        return None
+    return memoryview(view)[pos - start:]
 
 
 def _file_size(path: Path) -> int:

@@ -90,15 +90,34 @@ def _float_block(comp: np.ndarray) -> tuple[np.ndarray, int, int]:
     return comp.view(np.complex64), bad, clipped
 
 
+def integer_components(buf: np.ndarray, offset: float, scale: float) -> np.ndarray:
+    """Integer components to float32, (c − offset)·scale, each step in float32: one pass with no offset.
+
+    The integer is converted inside the ufunc, so no float copy of the block is made first
+    (a table look-up, as 8-bit readers often use, is a gather: several times slower here).
+
+    Examples
+    --------
+    cu8's midpoint 127.5 and its full scale, as SigMF's unsigned 8-bit samples read:
+
+    >>> import numpy as np
+    >>> integer_components(np.array([0, 127, 128, 255], np.uint8), 127.5, 1 / 127.5).tolist()
+    [-1.0, -0.003921568859368563, 0.003921568859368563, 1.0]
+    """
+    out = np.empty(buf.shape, np.float32)
+    if offset:
+        np.subtract(buf, np.float32(offset), out=out, dtype=np.float32)
+        out *= np.float32(scale)
+    else:
+        np.multiply(buf, np.float32(scale), out=out, dtype=np.float32)
+    return out
+
+
 class Converter:
     """Raw bytes to complex64, counting clipping and non-finite values."""
 
     def __init__(self, dt: Datatype):
         self.dt = dt
-        self._lut = None
-        if dt.numpy in ("|u1", "|i1"):
-            raw = np.arange(256, dtype=np.uint8).view(dt.numpy)
-            self._lut = ((raw.astype(np.float32) - np.float32(dt.offset)) * np.float32(dt.scale)).astype(np.float32)
 
     def __call__(self, buf: np.ndarray) -> tuple[np.ndarray, int, int]:
         """Convert components `buf` (raw dtype); return (complex64, nonfinite, clipped).
@@ -121,14 +140,7 @@ class Converter:
         if buf.size and (buf.min() <= lo or buf.max() >= hi):
             pairs = buf.reshape(-1, 2)
             clipped = int(((pairs == lo) | (pairs == hi)).any(axis=1).sum())
-        if self._lut is not None:
-            comp = self._lut[buf.view(np.uint8)]
-        else:
-            comp = buf.astype(np.float32)
-            if dt.offset:
-                comp -= np.float32(dt.offset)
-            comp *= np.float32(dt.scale)
-        return comp.view(np.complex64), 0, clipped
+        return integer_components(buf, dt.offset, dt.scale).view(np.complex64), 0, clipped
 
 
 def sample_converter(datatype: str):

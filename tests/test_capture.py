@@ -315,3 +315,60 @@ def test_a_raw_file_named_by_its_sigmf_datatype_needs_no_datatype(tmp_path):
     (tmp_path / "night.dat").write_bytes(raw.tobytes())
     with pytest.raises(CaptureError, match="give its datatype"):
         open_capture(tmp_path / "night.dat", sample_rate=1000)
+
+
+@pytest.mark.parametrize("name,dtype", [("cf32_le", "<f4"), ("ci16_le", "<i2"), ("cu8", "u1"), ("cf32_be", ">f4")])
+def test_mapped_reads_equal_copied_reads(tmp_path, monkeypatch, name, dtype):
+    """Blocks read through a memory map (the default) are the bytes read() gives, block for block,
+    from an offset that is not a page boundary (SigMF core:header_bytes), and no two blocks share memory."""
+    from iqdemod import capture
+
+    rng = np.random.default_rng(3)
+    comps = (rng.integers(0, 255, 2 * 30011) if dtype == "u1" else rng.integers(-2000, 2000, 2 * 30011)).astype(dtype)
+    if dtype.endswith("f4"):
+        comps = (comps / 2048.0).astype(dtype)
+    base = tmp_path / "rec"
+    meta = json.loads(json.dumps(SIGMF_META))
+    meta["global"]["core:datatype"] = name
+    meta["captures"][0]["core:header_bytes"] = 4099
+    (tmp_path / "rec.sigmf-data").write_bytes(b"\x01" * 4099 + comps.tobytes())
+    (tmp_path / "rec.sigmf-meta").write_text(json.dumps(meta))
+    blocks = {}
+    for mapped in (True, False):
+        monkeypatch.setattr(capture, "MAP_READS", mapped)
+        with open_capture(str(base) + ".sigmf-meta") as cap:
+            blocks[mapped] = list(cap.blocks(4096))
+    assert [len(b) for b in blocks[True]] == [len(b) for b in blocks[False]]
+    for a, b in zip(blocks[True], blocks[False]):
+        np.testing.assert_array_equal(a, b)
+    assert not any(np.shares_memory(a, b) for a, b in zip(blocks[True], blocks[True][1:]))
+
+
+def test_a_raw_file_that_shrinks_while_read_is_an_error(tmp_path):
+    x = np.ones(50_000, np.complex64)
+    p = tmp_path / "x.cf32"
+    x.tofile(p)
+    with open_capture(p, datatype="cf32_le", sample_rate=1000) as cap:
+        blocks = cap.blocks(10_000)
+        assert len(next(blocks)) == 10_000
+        with open(p, "r+b") as fh:
+            fh.truncate(8 * 25_000)  # another program cuts the file after the first block
+        assert len(next(blocks)) == 10_000
+        with pytest.raises(CaptureError, match="file shrank while reading"):
+            next(blocks)
+
+
+def test_a_file_that_cannot_be_mapped_is_read(tmp_path, monkeypatch):
+    """Where mmap fails (a file system without it), the reader copies with read() instead."""
+    import mmap
+
+    def refuse(*args, **kwargs):
+        raise OSError(19, "No such device")
+
+    rng = np.random.default_rng(8)
+    x = (rng.standard_normal(9000) + 1j * rng.standard_normal(9000)).astype(np.complex64)
+    p = tmp_path / "x.cf32"
+    x.tofile(p)
+    monkeypatch.setattr(mmap, "mmap", refuse)
+    with open_capture(p, datatype="cf32_le", sample_rate=1000) as cap:
+        np.testing.assert_array_equal(read_all(cap, 4000), x)
