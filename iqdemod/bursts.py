@@ -197,7 +197,13 @@ def _run_block(power: np.ndarray, first_frame: int, st: dict, plan: DetectorPlan
     floor = st["floor"]
     on, off = plan.on_ratio * floor, plan.off_ratio * floor
     fl = plan.frame_len
-    for i, p in enumerate(power):
+    start = 0
+    if not st["in_burst"]:  # quiet frames change nothing: go straight to the first loud one
+        loud = power > on
+        if not loud.any():
+            return
+        start = int(np.argmax(loud))
+    for i, p in enumerate(power[start:].tolist(), start):
         f = first_frame + i
         if not st["in_burst"]:
             if p > on:
@@ -272,7 +278,7 @@ def _advance(state: DetectorState, y: np.ndarray, plan: DetectorPlan, *, final: 
             st["minima"] = (st["minima"] + (float(settled.min()),))[-HISTORY_BLOCKS:]
         guard = _floor_from(st["minima"], n_bins) if st["minima"] else float(np.median(power))
         quiet = settled[settled < plan.quiet_ratio * guard]
-        level = float(quiet.mean()) if len(quiet) >= 8 else guard
+        level = float(np.add.reduce(quiet)) / len(quiet) if len(quiet) >= 8 else guard  # the mean, without its wrapper
         st["floor"] = level if st["floor"] is None else 0.7 * st["floor"] + 0.3 * level
         found: list = []
         _run_block(power, next_frame, st, plan, found)

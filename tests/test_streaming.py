@@ -103,3 +103,44 @@ def test_detector_finds_each_burst_once(decimated):
     plan, y = decimated
     found = _detect_all(plan, [y])
     assert len(found) == 6
+
+
+def _hysteresis_frame_by_frame(power, first_frame, st, plan, out):
+    """The detector's hysteresis written plainly, one frame at a time: the rule the receiver's
+    faster version (which skips quiet stretches) must follow exactly."""
+    on, off, fl = plan.on_ratio * st["floor"], plan.off_ratio * st["floor"], plan.frame_len
+    for i, p in enumerate(power):
+        f = first_frame + i
+        if not st["in_burst"]:
+            if p > on:
+                st.update(in_burst=True, core_start=f * fl, quiet=0, piece=0, burst_start=max(0, (f - B.PRE_FRAMES) * fl))
+            continue
+        st["quiet"] = st["quiet"] + 1 if p < off else 0
+        if st["quiet"] >= B.HANG_FRAMES:
+            end = (f + 1) * fl
+            core_end = end - B.HANG_FRAMES * fl
+            if st["piece"] or core_end - st["core_start"] >= B.MIN_CORE_FRAMES * fl:
+                out.append((st["burst_start"], st["core_start"], core_end, end, st["piece"], True))
+            st.update(in_burst=False, quiet=0)
+        elif (f + 1) * fl - st["burst_start"] >= plan.max_frames * fl:
+            end = (f + 1) * fl
+            out.append((st["burst_start"], st["core_start"], end, end, st["piece"], False))
+            restart = end - plan.overlap_frames * fl
+            st.update(burst_start=restart, core_start=restart, piece=st["piece"] + 1)
+
+
+@settings(max_examples=200, deadline=None)
+@given(levels=st.lists(st.sampled_from([0.5, 1.0, 1.4, 1.7, 8.0]), min_size=1, max_size=200),
+       block=st.integers(1, 40), first=st.integers(0, 5))
+def test_burst_hysteresis_follows_the_frame_by_frame_rule(levels, block, first):
+    # floor 1: on over 1.6, quiet under 1.25 (1.4 is neither); a piece is cut every 13 frames
+    plan = B.plan_detector(48_000, baud=1200, band_hz=1200, max_symbols=160, overlap_symbols=32)
+    assert (plan.on_ratio, plan.off_ratio, plan.max_frames) == (1.6, 1.25, 13)
+    power = np.array(levels)
+    start = dict(floor=1.0, in_burst=False, burst_start=0, core_start=0, quiet=0, piece=0)
+    fast, slow = dict(start), dict(start)
+    got, want = [], []
+    for a in range(0, len(power), block):
+        B._run_block(power[a : a + block], first + a, fast, plan, got)
+        _hysteresis_frame_by_frame(power[a : a + block], first + a, slow, plan, want)
+    assert got == want and fast == slow
