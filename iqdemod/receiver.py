@@ -212,13 +212,30 @@ class Decoding:
         self._args = (path, link, block_samples, progress, start_time)
         links, names = _named_links(link)
         self._first = links[0]  # its capture table names a raw file's datatype and rate
-        self._summary = DecodeSummary(links=tuple((n, 0, 0) for n in names if n is not None) if len(names) > 1 else ())
+        # (the summary, the frames of the burst being handed out, how many of them iteration has moved
+        # past), replaced whole by one assignment: a stop signal raised between two statements finds
+        # the three consistent
+        self._state: tuple[DecodeSummary, tuple[Frame, ...], int] = (
+            DecodeSummary(links=tuple((n, 0, 0) for n in names if n is not None) if len(names) > 1 else ()), (), 0)
         self._started = False
 
     @property
     def summary(self) -> DecodeSummary:
         """The counts so far; complete (with the reader's stats) after the last frame."""
-        return self._summary
+        return self._state[0]
+
+    @property
+    def in_hand(self) -> tuple[Frame, ...]:
+        """Frames counted in :attr:`summary` that iteration has not moved past.
+
+        A burst's frames are counted together, then handed out one by one. After a
+        stop (a KeyboardInterrupt raised while the decoding ran, or while the caller
+        held a frame), these are the frames the summary counts and the caller may
+        not have: the first of them may be the frame the caller was given last
+        (it is moved past only when the next one is asked for). Empty between bursts.
+        """
+        _, frames, taken = self._state
+        return frames[taken:]
 
     def __iter__(self) -> Iterator[Frame]:
         if self._started:
@@ -239,9 +256,11 @@ class Decoding:
                                        "2026-11-30T22:15:07Z")
                 cap.info = dataclasses.replace(cap.info, start_time=start_time)
             for burst in iter_bursts(cap, link, block_samples=block_samples, progress=progress):
-                self._summary = self._summary.counted(burst)
-                yield from burst.frames
-            self._summary = dataclasses.replace(self._summary, stats=cap.stats)
+                self._state = (self._state[0].counted(burst), burst.frames, 0)
+                for k, frame in enumerate(burst.frames, 1):
+                    yield frame
+                    self._state = (self._state[0], burst.frames, k)
+            self._state = (dataclasses.replace(self._state[0], stats=cap.stats), (), 0)
 
 
 def iter_bursts(

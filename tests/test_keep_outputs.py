@@ -313,3 +313,71 @@ def test_a_hang_up_the_process_was_started_ignoring_stays_ignored(tmp_path, igno
         os.close(read)
         os.close(write)
     assert proc.returncode == (130 if ignored else 129), err
+
+
+def test_a_stop_between_any_two_steps_of_handing_out_frames_keeps_what_the_summary_counts(tmp_path):
+    """A stop signal may land between any two statements of the decoding's generator: after a burst's
+    frames are counted and before they are handed out, while the command holds a frame, or after it
+    has asked for the next. Simulated deterministically here: a trace function raises KeyboardInterrupt
+    at each line the generator reaches in turn (and at each line the command runs before its
+    signal-gated write). Whatever the point, the lines written are the first `summary.frames` frames of
+    an uninterrupted decode, each once, in order."""
+    import inspect
+    import io
+
+    from iqdemod.receiver import Decoding
+    from iqdemod_cli._signals import StopGate
+    from iqdemod_cli.commands import decode as cmd
+
+    rng = np.random.default_rng(7)
+    txs, t = [], 0.005
+    for k in range(8):  # pairs of frames 0.3 ms apart: one detector buffer holds two transmissions
+        txs.append(fm.Tx(t_s=t, payload=rng.integers(0, 256, 24, dtype=np.uint8).tobytes(), ebn0_db=18.0,
+                         offset_hz=30_000.0))
+        t += (32 + 32 + 8 * 26) / 9600 + (0.0003 if k % 2 == 0 else 0.02)
+    x, _ = fm.render(txs, rate=RATE, n_samples=int((t + 0.02) * RATE), noise_rms=0.05, seed=7)
+    meta = fm.write_sigmf(tmp_path / "pairs", x, rate=RATE, datatype="cf32_le")
+    link = iqdemod.load_link(None, offset=30_000, baud=9600, shift=9600, sync="0x9B3C57E1", length=24,
+                             crc="CRC-16/IBM-3740")
+    whole = [json.dumps(f.as_record()) + "\n" for f in iqdemod.decode(meta, link)]
+    assert len(whole) == 8
+    settings = dict(link=link, first=link, only_good=False, block_samples=1 << 16, follow=False, idle_s=2.0,
+                    start_time=None, quiet=True)
+    generator = Decoding._frames.__code__
+    writer, write_lines = cmd._write.__code__, inspect.getsourcelines(cmd._write)
+    gated = write_lines[1] + next(i for i, line in enumerate(write_lines[0]) if "gate.held()" in line)
+
+    def run(stop_at: int):
+        seen = [0]
+
+        def trace(frame, event, arg):
+            code = frame.f_code
+            if code is not generator and code is not writer:
+                return None
+
+            def local(frame, event, arg):
+                if event == "line" and (code is generator or frame.f_lineno < gated):
+                    seen[0] += 1
+                    if seen[0] == stop_at:
+                        raise KeyboardInterrupt
+                return local
+            return local
+
+        out, progress = io.StringIO(), cmd._Progress()
+        sys.settrace(trace)
+        try:
+            cmd._decode_one(meta, out, StopGate(), progress, settings)
+        except KeyboardInterrupt:
+            pass
+        finally:
+            sys.settrace(None)
+        return seen[0] >= stop_at, out.getvalue(), progress.current[1].summary.frames if progress.current else 0
+
+    points = 0
+    for stop_at in range(1, 400):
+        stopped, text, counted = run(stop_at)
+        if not stopped:
+            break
+        points += 1
+        assert text == "".join(whole[:counted]), f"stop at step {stop_at}"
+    assert stopped is False and text == "".join(whole) and points > 40

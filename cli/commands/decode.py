@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import dataclasses
-import inspect
 import json
 import signal
 from pathlib import Path
@@ -143,7 +142,6 @@ def _decode_one(path: Path, out: TextIO, gate: StopGate, progress: _Progress, se
     first, follow = settings["first"], settings["follow"]
     source: Any = path
     frames = frame = progress.handled = None
-    seen = 0
     try:
         if str(path) == "-" or follow:
             from iqdemod.live import open_live
@@ -155,13 +153,12 @@ def _decode_one(path: Path, out: TextIO, gate: StopGate, progress: _Progress, se
         progress.current = (path, decoding, source)
         frames = iter(decoding)
         for frame in frames:
-            seen += 1
             _write(frame, out, gate, progress, settings)
     except KeyboardInterrupt:
         gate.hold()  # released by _decode_all once the output is committed
-        if frame is not progress.handled:
+        if frame is not None and frame is not progress.handled:
             _write(frame, out, gate, progress, settings)
-        for frame in _rest_of_burst(frames, progress, seen):
+        for frame in _rest_of_burst(progress):
             _write(frame, out, gate, progress, settings)
         raise
     finally:
@@ -186,21 +183,16 @@ def _write(frame, out: TextIO, gate: StopGate, progress: _Progress, settings: di
         progress.handled = frame
 
 
-def _rest_of_burst(frames, progress: _Progress, seen: int):
-    """The frames of the burst being handed out when a stop came, which the decoder has counted already.
-
-    Only while the decoding waits inside that burst (a stop raised in its own reading or
-    demodulating ends it, and its frames so far are all out).
-    """
-    if frames is None or progress.current is None or inspect.getgeneratorstate(frames) != inspect.GEN_SUSPENDED:
-        return
-    decoding = progress.current[1]
-    while seen < decoding.summary.frames:
-        frame = next(frames, None)
-        if frame is None:
-            return
-        seen += 1
-        yield frame
+def _rest_of_burst(progress: _Progress) -> tuple:
+    """The frames of the burst being handed out when a stop came, which the decoder has counted already
+    and the loop has not written (demodulated already: writing them reads nothing more)."""
+    if progress.current is None:
+        return ()
+    rest = progress.current[1].in_hand
+    for k, frame in enumerate(rest):  # the one in hand when the stop came may be written already
+        if frame is progress.handled:
+            return rest[k + 1 :]
+    return rest
 
 
 def _say_summary(progress: _Progress, settings: dict[str, Any]) -> None:
