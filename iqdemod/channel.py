@@ -607,7 +607,7 @@ def _fine_rotation(plan: ChannelPlan, n_out: int, count: int) -> np.ndarray:
     d = plan.decimation
     step = plan.fine_hz * d / plan.sample_rate_hz  # cycles per output sample
     start = np.mod(plan.fine_hz * (n_out * d - plan.delay_samples) / plan.sample_rate_hz, 1.0)
-    return _rotationrun_moments(step, count) * np.complex64(np.exp(-2j * np.pi * start))
+    return _rotation(step, count) * np.complex64(np.exp(-2j * np.pi * start))
 
 
 @functools.lru_cache(maxsize=32)
@@ -618,7 +618,7 @@ def _rotation_table(step: float, length: int) -> np.ndarray:
     return table
 
 
-def _rotationrun_moments(step: float, count: int) -> np.ndarray:
+def _rotation(step: float, count: int) -> np.ndarray:
     """exp(−j2π·step·k) for k < count: exact phases from k, not a recurrence; tables kept per step."""
     length = 1 << max(16, (max(count, 1) - 1).bit_length())
     return _rotation_table(step, length)[:count]
