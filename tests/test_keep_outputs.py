@@ -381,3 +381,32 @@ def test_a_stop_between_any_two_steps_of_handing_out_frames_keeps_what_the_summa
         points += 1
         assert text == "".join(whole[:counted]), f"stop at step {stop_at}"
     assert stopped is False and text == "".join(whole) and points > 40
+
+
+def test_a_missing_or_broken_capture_is_refused_before_any_work(captures, tmp_path):
+    """Every capture is opened before any is decoded: the output file stays as it was."""
+    meta, _ = captures["short"]
+    output = tmp_path / "keep.jsonl"
+    output.write_text("an older run\n")
+    broken = tmp_path / "broken.sigmf-meta"
+    broken.write_text("{not json")
+    (tmp_path / "broken.sigmf-data").write_bytes(b"\x80" * 64)
+    for bad, says in ((tmp_path / "nosuch.sigmf-meta", "nosuch.sigmf-meta"), (broken, "broken.sigmf-meta")):
+        result = CliRunner().invoke(main, ["decode", str(meta), str(bad), *LINK, "-o", str(output), "-q"])
+        assert result.exit_code == 1 and says in result.output, result.output
+        assert output.read_text() == "an older run\n" and not _partial(tmp_path, output)
+
+
+def test_a_capture_that_fails_while_read_keeps_the_frames_found_before_it(captures, tmp_path):
+    """The second capture's rate cannot carry the link (found only once its receiver is planned): the
+    first capture's frames are kept, the error is reported (exit 1), and the third is not started."""
+    meta, records = captures["short"]
+    slow = fm.write_sigmf(tmp_path / "slow", np.zeros(4800, np.complex64), rate=4800, datatype="cu8")
+    output = tmp_path / "keep.jsonl"
+    output.write_text("an older run\n")
+    result = CliRunner().invoke(main, ["decode", str(meta), str(slow), str(meta), *LINK, "-o", str(output), "-q"])
+    assert result.exit_code == 1, result.output
+    assert _records(output) == records
+    assert f"{len(records)} frame(s) found before the error kept in {output}" in result.output
+    assert "1 later capture(s) not started (short.sigmf-meta)" in result.output
+    assert "must be below half the sample rate" in result.output

@@ -5,13 +5,14 @@ from __future__ import annotations
 import dataclasses
 import json
 import signal
+import warnings
 from pathlib import Path
 from typing import Any, TextIO
 
 import click
 
 import iqdemod
-from iqdemod.errors import quote
+from iqdemod.errors import IqdemodError, OutputError, quote
 from iqdemod.files import classify_output
 
 from .._common import guard_outputs, link_options, links_from_options, open_output, say
@@ -35,6 +36,7 @@ class _Progress:
     handled: Any = None  # the last frame written (or left out by --only-good)
     current: tuple | None = None  # (path, Decoding, the capture object or path it reads)
     stop: KeyboardInterrupt | None = None
+    error: IqdemodError | None = None  # a capture that failed after frames were written: they are kept
 
 
 @click.command("decode")
@@ -81,6 +83,11 @@ def command(ctx, captures, output, only_good, block_samples, follow, idle_s, sta
     captures after it are not started, and the exit status is 128 + the
     signal (130 for Ctrl-C). Stopped before any frame was found, the output
     file is not written and an existing one is left as it was.
+
+    Every capture is opened (its metadata read) before any is decoded, so a
+    missing or broken one is refused before any work. A capture that fails
+    while it is read (the file shrank, say) ends the run with its error (exit
+    status 1), and the frames found before it are kept all the same.
     """
     link, link_paths = links_from_options(link_kw)
     first = link if isinstance(link, iqdemod.Link) else next(iter(link.values()))
@@ -88,10 +95,17 @@ def command(ctx, captures, output, only_good, block_samples, follow, idle_s, sta
         raise click.BadParameter(f"{quote(start_time)}: at most 64 characters", param_hint="--start-time")
     guard_outputs([("--output", output)], captures=[c for c in captures if str(c) != "-"], link=link_paths)
     target = classify_output("-" if output is None else output)
+    _open_each(captures, first, follow)
     settings = dict(link=link, first=first, only_good=only_good, block_samples=block_samples, follow=follow,
                     idle_s=idle_s, start_time=start_time, quiet=quiet)
     with stops_gated() as gate:
         progress = _decode_all(captures, output, gate, settings)
+    if progress.error is not None:
+        later = captures[progress.begun:]
+        kept = f"{progress.kept} frame(s) found before the error kept in {target.given}" if target.kind == "file" else ""
+        if kept or later:
+            say("; ".join(filter(None, [kept, _not_begun(later, "started") if later else ""])))
+        raise progress.error
     if progress.stop is None:
         return
     signum = signal_of(progress.stop)
@@ -116,6 +130,12 @@ def _decode_all(captures, output: Path | None, gate: StopGate, settings: dict[st
             try:
                 for path in captures:
                     _decode_one(path, out, gate, progress, settings)
+            except OutputError:
+                raise
+            except IqdemodError as exc:  # a capture failed: the frames written so far are kept, then it is reported
+                if progress.kept == 0:
+                    raise
+                progress.error = exc
             except KeyboardInterrupt as exc:
                 gate.hold()  # what remains is wrap-up: one more signal waits for it, a second ends it at once
                 progress.stop = exc
@@ -129,6 +149,20 @@ def _decode_all(captures, output: Path | None, gate: StopGate, settings: dict[st
     finally:
         gate.release(deliver=False)
     return progress
+
+
+def _open_each(captures, first, follow: bool) -> None:
+    """Open every capture file (not standard input, nor one still being written) and close it again:
+    a missing or unreadable one, or broken metadata, is refused before any work. Warnings wait for
+    the real opening."""
+    if follow:
+        return
+    for path in captures:
+        if str(path) == "-":
+            continue
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            iqdemod.open_capture(path, datatype=first.capture.datatype, sample_rate=first.capture.sample_rate).close()
 
 
 def _decode_one(path: Path, out: TextIO, gate: StopGate, progress: _Progress, settings: dict[str, Any]) -> None:
