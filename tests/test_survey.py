@@ -394,3 +394,15 @@ def test_installed_script_has_the_command():
     if out.returncode != 0 and "No such command" in out.stderr:
         pytest.skip("the survey command is not registered in cli/main.py yet")
     assert out.returncode == 0 and "--write-link" in out.stdout and "--plot" in out.stdout
+
+
+def test_write_link_never_replaces_a_profile_unless_told(case_b, tmp_path):
+    """A profile may have been written by hand: survey refuses it before any work, --overwrite replaces it."""
+    meta, _ = case_b
+    toml = tmp_path / "mine.toml"
+    toml.write_text("# written by hand\n[signal]\nbaud = 1200\nshift = 1200\n")
+    res = _run("survey", meta, "--write-link", toml, "-q")
+    assert res.exit_code == 1 and "exists already; refusing to replace it (give --overwrite" in res.stderr
+    assert toml.read_text().startswith("# written by hand")
+    res = _run("survey", meta, "--write-link", toml, "--overwrite", "-q")
+    assert res.exit_code == 0 and 'crc = "CRC-32/ISO-HDLC"' in toml.read_text()

@@ -2,12 +2,13 @@
 
 from __future__ import annotations
 
+import os
 from pathlib import Path
 
 import click
 
 import iqdemod
-from iqdemod.errors import IqdemodError
+from iqdemod.errors import IqdemodError, OutputError, quote
 from iqdemod.link import CaptureFormat
 from iqdemod.profile import check_overrides, link_to_toml
 from iqdemod.survey import plot_survey, require_plotting, survey as survey_capture
@@ -27,10 +28,13 @@ __all__ = ["command"]
 @click.option("--json", "as_json", is_flag=True, help="Print the result as JSON instead of a table.")
 @click.option("--write-link", type=click.Path(dir_okay=False, path_type=Path),
               help="Write the strongest signal's link profile (TOML) here, for decode --link.")
+@click.option("--overwrite", is_flag=True,
+              help="Replace --write-link's file when it exists already (without it, survey refuses before any work: "
+                   "a profile may be one written by hand).")
 @click.option("--plot", type=click.Path(dir_okay=False, path_type=Path),
               help="Write a PNG of the spectrum with the signals marked and a waterfall of one burst (needs matplotlib).")
 @click.option("-q", "--quiet", is_flag=True, help="No progress bars and no summary line.")
-def command(capture, datatype, rate, max_signals, as_json, write_link, plot, quiet) -> None:
+def command(capture, datatype, rate, max_signals, as_json, write_link, overwrite, plot, quiet) -> None:
     """Find the bursty FSK signals in a capture and measure them.
 
     For each signal, strongest first: offset from the capture centre, tone
@@ -43,6 +47,9 @@ def command(capture, datatype, rate, max_signals, as_json, write_link, plot, qui
     CAPTURE --link FILE` accepts.
     """
     guard_outputs([("--write-link", write_link), ("--plot", plot)], captures=[capture])
+    if write_link is not None and not overwrite and os.path.lexists(write_link):
+        raise OutputError(f"--write-link {quote(str(write_link))} exists already; refusing to replace it "
+                          "(give --overwrite, or another name)")
     check_overrides({"rate": rate, "datatype": datatype})  # a bad value named by its flag, as decode names it
     if plot is not None:
         require_plotting()  # fail before the work, not after
