@@ -169,6 +169,37 @@ def test_acceptance_report(local_run, archive):
     assert [p.name for p in report.parent.iterdir() if p.name.startswith(".")] == []
 
 
+def test_the_frames_file_follows_the_report_order_whatever_order_captures_finish(local_run, archive, tmp_path,
+                                                                                 monkeypatch):
+    """Jobs finish in an order that depends on timing; the frames file is the same every time: capture
+    by capture in the report's (collection) order, each capture's frames as it found them."""
+    _, report, frames = local_run
+    want = [r["capture"] for r in read_csv(report) if int(r["frame_records"])]
+    recs = read_jsonl(frames)
+    assert list(dict.fromkeys(r["capture"] for r in recs)) == want
+    start = executors.start
+
+    def backwards(todo, **kw):  # every capture done, then handed over last first
+        source = start(todo, **kw)
+        done = list(source)
+
+        class Reversed:
+            def __iter__(self):
+                return iter(done[::-1])
+
+            def close(self, *, interrupted):
+                source.close(interrupted=interrupted)
+        return Reversed()
+
+    monkeypatch.setattr(executors, "start", backwards)
+    again = tmp_path / "frames.jsonl"
+    res = CliRunner().invoke(main, ["batch", str(archive), *LINK_FLAGS, "-o", str(tmp_path / "r.csv"),
+                                    "--frames", str(again), "--jobs", "1"])
+    assert res.exit_code == 1, res.output  # two damaged captures, as in the acceptance run
+    assert [(r["capture"], r["sample"], r["payload_hex"]) for r in read_jsonl(again)] == [
+        (r["capture"], r["sample"], r["payload_hex"]) for r in recs]
+
+
 def test_resume_keeps_ten_rows_and_retries_only_errors(local_run, archive, tmp_path):
     _, report0, frames0 = local_run
     report, frames = tmp_path / "r.csv", tmp_path / "f.jsonl"

@@ -273,21 +273,53 @@ def write_rows(out, rows: Iterable[CaptureRow]) -> None:
         writer.writerow(row.to_csv())
 
 
-def labelled_frames(journal: Path, out, labels: Mapping[tuple[str, str], str]) -> None:
-    """Copy the frames journal to `out`, each frame given the ``transmitter`` label of its row.
+def labelled_frames(journal: Path, out, labels: Mapping[tuple[str, str], str], order: Sequence[str] = ()) -> None:
+    """Copy the frames journal to `out`, capture by capture in `order`, each frame given the
+    ``transmitter`` label of its row.
 
     `labels` is by (capture, link name), the link name "" for a capture's one unnamed link
     (whose frames carry no ``link``). The labels by carrier error exist only once every
     capture is done, so the frames written while the batch ran get theirs here, in the final
-    rewrite.
+    rewrite. The journal holds the captures in the order they finished, which depends on
+    the workers' timing; the file written holds them in `order` (the report's, collection
+    order), each capture's frames in the order it found them, so the same archive always
+    gives the same file. Captures not named in `order` follow, as the journal has them.
+    Memory stays bounded: the first pass keeps only where each capture's lines are.
     """
-    for line in complete_lines(journal, strict=False, note=False):
-        try:
-            rec = json.loads(line)
-            rec["transmitter"] = labels.get((rec["capture"], rec.get("link", "")), "")
-        except (ValueError, KeyError, TypeError):
-            continue  # a line that was never a frame of ours (dropped when resuming too)
-        out.write(json.dumps(rec) + "\n")
+    spans = _capture_spans(journal)
+    with open(journal, "rb") as fh:
+        for capture in [*dict.fromkeys(c for c in order if c in spans), *(c for c in spans if c not in set(order))]:
+            for start, end in spans[capture]:
+                fh.seek(start)
+                while fh.tell() < end:
+                    rec = json.loads(fh.readline())
+                    rec["transmitter"] = labels.get((rec["capture"], rec.get("link", "")), "")
+                    out.write(json.dumps(rec) + "\n")
+
+
+def _capture_spans(journal: Path) -> dict[str, list[tuple[int, int]]]:
+    """Where each capture's frames are in a frames journal: byte ranges of whole lines, by capture.
+
+    A line that was never a frame of ours (not JSON, not UTF-8, no capture; dropped when
+    resuming too) and a last line cut off are left out.
+    """
+    spans: dict[str, list[tuple[int, int]]] = {}
+    with open(journal, "rb") as fh:
+        start = 0
+        for raw in fh:
+            end = start + len(raw)
+            try:
+                capture = json.loads(raw)["capture"] if raw.endswith(b"\n") else None
+            except (ValueError, KeyError, TypeError):
+                capture = None
+            if isinstance(capture, str):
+                runs = spans.setdefault(capture, [])
+                if runs and runs[-1][1] == start:
+                    runs[-1] = (runs[-1][0], end)
+                else:
+                    runs.append((start, end))
+            start = end
+    return spans
 
 
 @dataclass(frozen=True)

@@ -120,7 +120,7 @@ def _commit(ordered: list[CaptureRow], book: Journal, report: Path, frames: Path
     with atomic_files() as files:
         if frames is not None:
             labelled_frames(book.frames_part, files.open(frames, "w"),
-                            {(r.capture, r.link_name): r.transmitter for r in ordered})
+                            {(r.capture, r.link_name): r.transmitter for r in ordered}, [r.capture for r in ordered])
         write_rows(files.open(report, "w"), ordered)
     for part in filter(None, (book.frames_part, book.report_part)):  # kept for --resume until now
         with contextlib.suppress(FileNotFoundError):
