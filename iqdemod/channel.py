@@ -519,7 +519,9 @@ def channelize_many(x: np.ndarray, plans: tuple[ChannelPlan, ...], state: Channe
     9600 -300.0 1.0
     24000 1200.0 0.5
     """
-    return _advance(np.asarray(x, dtype=np.complex64), tuple(plans), state, final=False)
+    with np.errstate(over="ignore", invalid="ignore"):  # samples near float32's limit (a float file read with
+        # the wrong --datatype) overflow the moments: the receiver then finds nothing, and says which settings to check
+        return _advance(np.asarray(x, dtype=np.complex64), tuple(plans), state, final=False)
 
 
 def flush_channels(plans: tuple[ChannelPlan, ...], state: ChannelState) -> tuple[list[np.ndarray], ChannelState]:
@@ -536,7 +538,8 @@ def flush_channels(plans: tuple[ChannelPlan, ...], state: ChannelState) -> tuple
     >>> [len(a) + len(b) for a, b in zip(ys, ends)]  # 10 000 input samples / D
     [2000, 5000]
     """
-    return _advance(np.zeros(0, np.complex64), tuple(plans), state, final=True)
+    with np.errstate(over="ignore", invalid="ignore"):  # as channelize_many
+        return _advance(np.zeros(0, np.complex64), tuple(plans), state, final=True)
 
 
 def _advance(x: np.ndarray, plans: tuple[ChannelPlan, ...], state: ChannelState, *, final: bool

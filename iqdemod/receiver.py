@@ -340,7 +340,7 @@ def drive(rx: "Receiver", capture: Capture, *, block_samples: int = DEFAULT_BLOC
         from tqdm import tqdm
 
         bar = tqdm(total=capture.info.n_samples or None, unit="S", unit_scale=True, desc=Path(capture.info.path).name,
-                   leave=False, delay=1.0)
+                   leave=False, delay=1.0, disable=None)  # none on a log file or pipe
 
     def buffers(blocks: Iterator[np.ndarray]) -> Iterator[tuple[list[tuple[int, RawBurst]], int]]:
         for block in blocks:

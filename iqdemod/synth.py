@@ -475,7 +475,7 @@ def synthesize(output: str | os.PathLike, cfg: SynthConfig, *, progress: bool = 
     if progress:
         from tqdm import tqdm
 
-        bar = tqdm(total=total, unit="S", unit_scale=True, desc="synth", leave=False)
+        bar = tqdm(total=total, unit="S", unit_scale=True, desc="synth", leave=False, delay=1.0, disable=None)
     # data, truth, then the metadata that vouches for the data: all three appear together or none
     with atomic_files() as files:
         fh = files.open(data_path, "wb")

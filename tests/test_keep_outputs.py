@@ -201,7 +201,7 @@ def test_follow_ends_on_ctrl_c_or_sigterm_with_every_frame_written(captures, tmp
     assert FRAMES_BEFORE_STOP <= len(kept) < len(reference)
     assert strip == [{k: v for k, v in r.items() if k != "capture"} for r in reference[: len(kept)]]
     assert not _partial(tmp_path, output)
-    lines = err.splitlines()  # the progress bar's lines too (it ends each update with a carriage return)
+    lines = err.splitlines()  # (no progress bar: stderr is a pipe here)
     if sig == signal.SIGHUP:  # a hang-up is an interruption, frames kept all the same
         assert proc.returncode == 129, err
         assert f"terminated (SIGHUP): {len(kept)} frame(s) found before the stop kept in {output}" in lines

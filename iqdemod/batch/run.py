@@ -96,7 +96,8 @@ def _process(todo: list[CaptureTask], rows: dict[tuple[str, str], CaptureRow], r
         if progress:
             from tqdm import tqdm
 
-            bar = tqdm(total=len(todo), unit="capture", desc="batch", file=sys.stderr, dynamic_ncols=True)
+            bar = tqdm(total=len(todo), unit="capture", desc="batch", file=sys.stderr, dynamic_ncols=True, delay=1.0,
+                       disable=None)  # none on a log file or pipe, as every bar of the tool
         n_failed = 0
         for task, outcome in source:
             book.add(outcome)

@@ -373,7 +373,7 @@ def progress_bar(capture: Capture, enabled: bool, desc: str):
         return None
     from tqdm import tqdm
 
-    return tqdm(total=capture.info.n_samples, unit="S", unit_scale=True, desc=desc, leave=False, delay=1.0)
+    return tqdm(total=capture.info.n_samples, unit="S", unit_scale=True, desc=desc, leave=False, delay=1.0, disable=None)
 
 
 def _take(act: Activity, found: list[ActivityBurst]) -> None:

@@ -163,7 +163,8 @@ def spectrum_update(x: np.ndarray, plan: SpectrumPlan, state: SpectrumState) -> 
         return dataclasses.replace(state, tail=buf.copy())
     segs = sliding_window_view(buf, n)[::hop][:count]
     spec = _fft.fft(segs * plan.window.astype(np.float32), axis=1)  # complex64 in, complex64 out
-    p = (spec.real**2 + spec.imag**2) * np.float32(plan.scale)
+    with np.errstate(over="ignore"):  # samples near float32's limit (a wrong --datatype) give inf, not a warning
+        p = (spec.real**2 + spec.imag**2) * np.float32(plan.scale)
     held = [_peak_hold(p, state, j) for j in range(len(PEAK_RESOLUTIONS))]
     return SpectrumState(
         tail=buf[count * hop :].copy(),
