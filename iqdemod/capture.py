@@ -479,6 +479,20 @@ def _open_audio(path: Path) -> Capture:
     return Capture(info)
 
 
+def _datatype_unused(capture: Capture, datatype: str | None) -> Capture:
+    """A SigMF recording names its own datatype: one given that differs is not used, and a warning says so
+    (as for a differing rate)."""
+    if datatype is not None:
+        try:
+            given = parse_datatype(datatype).name
+        except CaptureError:
+            given = str(datatype)
+        if given != capture.info.datatype:
+            warnings.warn(f"{capture.info.path}: its core:datatype {capture.info.datatype} is used, not the datatype "
+                          f"given ({datatype})", CaptureWarning, stacklevel=3)
+    return capture
+
+
 def open_capture(path: str | os.PathLike, *, datatype: str | None = None, sample_rate: float | None = None) -> Capture:
     """Open a capture for block reading.
 
@@ -557,7 +571,7 @@ def open_capture(path: str | os.PathLike, *, datatype: str | None = None, sample
             raise CaptureError(f"{meta_path}: SigMF metadata file missing (data {data_path.name} has no metadata)")
         if meta_path.is_dir():
             raise CaptureError(f"{meta_path}: is a folder, expected a SigMF metadata file")
-        return _open_sigmf(p, meta_path, data_path, sample_rate)
+        return _datatype_unused(_open_sigmf(p, meta_path, data_path, sample_rate), datatype)
     if not p.exists():
         raise CaptureError(f"{p}: no such file")
     if p.is_dir():
@@ -566,7 +580,7 @@ def open_capture(path: str | os.PathLike, *, datatype: str | None = None, sample
     if fmt == "audio":
         return _open_audio(p)
     if fmt == "sigmf-archive":
-        return _open_sigmf_archive(p, sample_rate)
+        return _datatype_unused(_open_sigmf_archive(p, sample_rate), datatype)
     if datatype is None:
         datatype = datatype_of_name(p)
     if datatype is None:

@@ -131,6 +131,21 @@ def test_a_rate_given_for_a_sigmf_recording_that_has_its_own_is_named_as_unused(
                 pass
 
 
+def test_a_datatype_given_for_a_sigmf_recording_that_has_its_own_is_named_as_unused(tmp_path):
+    # SigMF: core:datatype is required in the global object and says how the data file is read (SigMF spec);
+    # a datatype the user gives beside it is not used, and is said not to be
+    base = tmp_path / "rec"
+    write_sigmf(base, np.array([100, -100, 200, -200], "<i2"), SIGMF_META)
+    with pytest.warns(CaptureWarning, match=r"its core:datatype ci16_le is used, not the datatype given \(cu8\)"):
+        with open_capture(str(base) + ".sigmf-meta", datatype="cu8") as cap:
+            assert cap.info.datatype == "ci16_le" and cap.info.n_samples == 2
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # the same datatype, or none given: nothing to say
+        for datatype in ("ci16_le", None):
+            with open_capture(str(base) + ".sigmf-meta", datatype=datatype):
+                pass
+
+
 def test_a_sigmf_data_file_shorter_than_its_annotations_is_named(tmp_path):
     # SigMF spec: an annotation covers core:sample_count samples from core:sample_start; samples the
     # metadata describes but the data lacks mean a data file cut short
