@@ -147,27 +147,16 @@ def _health_head(r) -> list[str]:
     ]
 
 
-#: Bursts whose Eb/N0 (10th to 90th percentile) differ by at least this get their spread and the
-#: weakest tenth's margin in the health text (the JSON always has both).
-BURST_SPREAD_SHOWN_DB = 1.0
-
-
 def _estimate_rows(r) -> list[tuple[str, str, str]]:
     if r.ebn0_db is None:
         return [("Eb/N0", DASH, "no frame found to measure it on")]
     lo, hi = r.ebn0_db_ci90
     rows = [("Eb/N0", _db(r.ebn0_db), f"90 % interval {lo:.2f} … {hi:.2f} dB, {r.ebn0_method}")]
-    if _bursts_differ(r):
+    if r.bursts_differ:
         lo, hi = r.ebn0_db_bursts
         rows.append(("Eb/N0 of bursts", f"{lo:.1f} … {hi:.1f} dB",
                      "10th to 90th percentile of the frames, each burst's own estimate less its noise"))
     return rows
-
-
-def _bursts_differ(r) -> bool:
-    """The bursts' Eb/N0 differ enough (10th to 90th percentile) for their spread to be shown."""
-    spread = r.ebn0_db_bursts
-    return spread is not None and spread[1] - spread[0] >= BURST_SPREAD_SHOWN_DB
 
 
 def _margin_rows(r) -> list[tuple[str, str, str]]:
@@ -176,7 +165,7 @@ def _margin_rows(r) -> list[tuple[str, str, str]]:
     if r.margin_db is not None:
         rows.append(("margin", _db(r.margin_db, True),
                      f"to BER {r.target_ber:g}: Eb/N0 {r.ebn0_db:.2f} dB against {r.ebn0_needed_db:.2f} dB needed"))
-    if r.margin_db_weakest is not None and _bursts_differ(r):
+    if r.margin_db_weakest is not None and r.bursts_differ:
         rows.append(("margin, weakest", _db(r.margin_db_weakest, True),
                      "of the weakest tenth of the frames (bursts at the 10th percentile's Eb/N0)"))
     fitted = r.detector == "multi-symbol"  # its Eb/N0 is fitted against the pulse itself: no gain to count
@@ -205,7 +194,9 @@ def _error_rate_rows(r) -> list[tuple[str, str, str]]:
     rows = []
     if r.ber_predicted is not None:
         ci = r.ber_predicted_ci90
-        rows.append(("BER predicted", _sci(r.ber_predicted), f"90 % {_sci(ci[0])} … {_sci(ci[1])}" if ci else ""))
+        mean = "; the mean over the bursts, each at its own Eb/N0" if r.bursts_differ else ""
+        rows.append(("BER predicted", _sci(r.ber_predicted),
+                     (f"90 % {_sci(ci[0])} … {_sci(ci[1])}" if ci else "") + mean))
     if r.fer_predicted is not None:
         ci = r.fer_predicted_ci90
         rows.append(("frame error rate predicted", pct(r.fer_predicted),

@@ -39,6 +39,12 @@ def _finite(x: float | None) -> float | None:
     return None if x is None or not math.isfinite(x) else float(x)
 
 
+#: Bursts whose Eb/N0 (10th to 90th percentile) differ by at least this get their spread, the weakest
+#: tenth's margin and a note that the predictions are means over the bursts in the reports (the JSON
+#: always has the spread and the weakest margin).
+BURST_SPREAD_SHOWN_DB = 1.0
+
+
 @dataclass(frozen=True)
 class HealthReport:
     """Link-health figures for one capture (see :meth:`as_dict` for the JSON form).
@@ -113,6 +119,14 @@ class HealthReport:
     histogram_edges_db: tuple[float, ...] = field(default=(), repr=False)
     histogram_right: tuple[int, ...] = field(default=(), repr=False)
     histogram_wrong: tuple[int, ...] = field(default=(), repr=False)
+
+    @property
+    def bursts_differ(self) -> bool:
+        """Whether the bursts' Eb/N0 differ (10th to 90th percentile) by at least ``BURST_SPREAD_SHOWN_DB``:
+        then the predictions, each burst's at its own Eb/N0 averaged over the bursts, lie well above the
+        curve at the pooled Eb/N0, and the reports say so."""
+        spread = self.ebn0_db_bursts
+        return spread is not None and spread[1] - spread[0] >= BURST_SPREAD_SHOWN_DB
 
     def as_dict(self, *, histogram: bool = False) -> dict:
         """JSON-ready dict; the decision-statistic histogram only when asked.

@@ -220,13 +220,20 @@ def plot_curves(path, *, ebn0_db: np.ndarray, h: float = 1.0, freq_error_per_bau
         ax.annotate(f"target BER {target_ber:g}", (grid[0], target_ber), va="bottom", fontsize=8)
     lo = max(1e-9, float(P.pb_antipodal(P.from_db(np.max(grid)))) / 3)
     ax.set_ylim(lo, 0.6)
-    ax.legend(fontsize=8, loc="lower left",
-              title=f"curve; Eb/N0 it needs for BER {target_ber:g}" if target_ber else None, title_fontsize=8)
+    below(ax, title=f"curve; Eb/N0 it needs for BER {target_ber:g}" if target_ber else None, columns=1)
     title = "Bit error probability in white Gaussian noise"
     if pulse == "gaussian":
         title += f": GFSK, BT {bt:g}, h = {h:g}"
     ax.set_title(title)
     save_figure(fig, path)
+
+
+def below(ax, *, title: str | None = None, columns: int = 2) -> None:
+    """The axes' curves named in a legend under the whole figure, where it covers none of them
+    (matplotlib's "outside" placement: the constrained layout makes room for it)."""
+    handles, labels = ax.get_legend_handles_labels()
+    ax.figure.legend(handles, labels, loc="outside lower center", ncol=columns, fontsize=8, title=title,
+                     title_fontsize=8, frameon=False)
 
 
 def plot_health(path, report) -> None:
@@ -273,7 +280,7 @@ def plot_health(path, report) -> None:
     _operating_point(ax, report)
     ymin = max(1e-9, float(P.pb_antipodal(P.from_db(grid[-1]))) / 3)
     ax.set_ylim(ymin, 0.6)
-    ax.legend(fontsize=8, loc="lower left")
+    below(ax)
     title = f"{report.capture}: Eb/N0 {report.ebn0_db:.1f} dB" if report.ebn0_db is not None else report.capture
     if report.margin_db is not None:
         title += f", margin {report.margin_db:+.1f} dB at BER {report.target_ber:g}"
@@ -292,7 +299,9 @@ def _operating_point(ax, report) -> None:
         gain = report.decision_gain_db
         ax.errorbar([x], [report.ber_predicted], xerr=[[x - lo], [hi - x]], fmt="o", color=PALETTE["harbour red"],
                     ms=7, capsize=4,
-                    label=f"this capture, predicted at Eb/N0 {x:.1f} dB (90 % interval)"
+                    label=(f"this capture, predicted: the mean over its bursts at their own Eb/N0,\n"
+                           f"drawn at the pooled Eb/N0 {x:.1f} dB (90 % interval)" if report.bursts_differ
+                           else f"this capture, predicted at Eb/N0 {x:.1f} dB (90 % interval)")
                           + (f"\n(off the curve by the receiver's {gain:+.2f} dB decision gain)"
                              if abs(gain) >= 0.005 else ""))
     if report.fer_observed is not None and report.frame_bits:

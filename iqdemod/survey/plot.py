@@ -98,6 +98,8 @@ def _spectrum_panel(ax, result: SurveyResult) -> None:
     ax.set_ylabel("PSD (dBFS/Hz)")
     ax.set_title(f"{result.capture}: {result.sample_rate_hz / 1e3:g} kS/s, {result.duration_s:.3g} s, "
                  f"{len(result.signals)} signal(s)", fontsize=10, pad=14)
+    lo, hi = ax.get_ylim()
+    ax.set_ylim(lo, hi + 0.35 * (hi - lo))  # headroom over the tallest peak: the legend covers no spectrum
     ax.legend(loc="upper left", fontsize=8, framealpha=0.9)
     ax.grid(alpha=0.3)
 
