@@ -211,17 +211,26 @@ def _error_rate_rows(r) -> list[tuple[str, str, str]]:
     return rows
 
 
+def _signed(value: float) -> str:
+    """A whole number with its sign, never "-0" (a value that rounds to zero is +0).
+
+    >>> _signed(-0.3), _signed(-0.7), _signed(12.4)
+    ('+0', '-1', '+12')
+    """
+    return f"{round(value) + 0:+d}"
+
+
 def _transmitter_rows(r) -> list[tuple[str, str, str]]:
     rows = []
     if r.freq_error_hz is not None:
         extra = [f"{r.freq_error_ppm:+.2f} ppm of the carrier"] if r.freq_error_ppm is not None else []
         extra.append(f"spread {r.freq_spread_hz:.0f} Hz rms between bursts")
         extra.append(f"residual {r.residual_freq_error_hz:.1f} Hz")
-        rows.append(("carrier error", f"{r.freq_error_hz:+.0f} Hz", ", ".join(extra)))
+        rows.append(("carrier error", f"{_signed(r.freq_error_hz)} Hz", ", ".join(extra)))
     if r.clock_error_ppm is not None:
         ci = r.clock_error_ppm_ci90
-        rows.append(("clock error", f"{r.clock_error_ppm:+.0f} ppm", "symbol clock, mean over bursts" + (
-            f" (90 % {ci[0]:+.0f} … {ci[1]:+.0f} ppm; one burst's own reads far wider)" if ci else "")))
+        rows.append(("clock error", f"{_signed(r.clock_error_ppm)} ppm", "symbol clock, mean over bursts" + (
+            f" (90 % {_signed(ci[0])} … {_signed(ci[1])} ppm; one burst's own reads far wider)" if ci else "")))
     if r.mismatch_loss_db is not None:
         rows.append(("mismatch loss", f"{r.mismatch_loss_db:.3f} dB", "from the residual carrier error"))
     return rows
@@ -381,8 +390,8 @@ def batch_summary(result, *, weakest_shown: int = 5) -> list[str]:
     empty = [r for r in result.rows if r.ok and not r.frames]
     if empty:  # processed, but nothing to measure: not among the weakest, so named here
         more = f" and {len(empty) - weakest_shown} more" if len(empty) > weakest_shown else ""
-        lines.append(f"no frames found in {len(empty)}: " + ", ".join(name(r) for r in empty[:weakest_shown]) + more
-                     + " (check their link)")
+        lines.append(f"no frames found in {len(empty)} capture(s): " + ", ".join(name(r) for r in empty[:weakest_shown])
+                     + more + " (check their link)")
     # a capture that failed fails for every link alike: one line for it, naming its links
     failed: dict[tuple[str, str], list[str]] = {}
     for r in result.rows:

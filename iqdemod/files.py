@@ -74,7 +74,7 @@ def read_small_text(path: str | os.PathLike, limit: int, error: type[Exception],
         with open(path, "rb") as fh:  # a FIFO (a shell's <(…)) works too where allowed; the cap stops an endless one
             data = fh.read(limit + 1)
     except FileNotFoundError:
-        raise error(f"{where}: {what} missing (no such file)") from None
+        raise error(f"{where}: no such {what}") from None
     except OSError as exc:
         raise error(f"{where}: cannot read {what} ({exc.strerror or exc.__class__.__name__})") from None
     if len(data) > limit:

@@ -206,17 +206,17 @@ class SignalSpec:
         baud = _number("baud", self.baud)
         if baud <= 0:
             raise LinkError(f"baud {self.baud:g}: must be > 0")
-        shift = _number("shift", self.shift_hz)
+        shift = _number("shift_hz", self.shift_hz)  # the profile's key: a flag's value is checked by its flag
         if shift <= 0:
-            raise LinkError(f"shift {self.shift_hz:g} Hz: must be > 0 (upper tone minus lower tone)")
+            raise LinkError(f"shift_hz {self.shift_hz:g} Hz: must be > 0 (upper tone minus lower tone)")
         object.__setattr__(self, "baud", baud)
         object.__setattr__(self, "shift_hz", shift)
         if self.offset_hz is not None:
-            object.__setattr__(self, "offset_hz", _number("offset", self.offset_hz))
+            object.__setattr__(self, "offset_hz", _number("offset_hz", self.offset_hz))
         if self.frequency_hz is not None:
-            freq = _number("frequency", self.frequency_hz)
+            freq = _number("frequency_hz", self.frequency_hz)
             if freq <= 0:
-                raise LinkError(f"frequency {freq:g} Hz: must be > 0")
+                raise LinkError(f"frequency_hz {freq:g} Hz: must be > 0")
             object.__setattr__(self, "frequency_hz", freq)
         if self.offset_hz is not None and self.frequency_hz is not None:
             raise LinkError("offset_hz and frequency_hz both given: give one of them")

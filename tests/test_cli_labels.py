@@ -187,7 +187,7 @@ def test_batch_summary_names_the_captures_with_no_frames():
             CaptureRow("bad.cu8", "/bad.cu8", "error", error="CaptureError: empty capture")]
     lines = batch_summary(BatchResult.of(rows, report="r.csv"))
     assert lines[0].startswith("3 capture(s): 2 ok, 1 failed")
-    assert "no frames found in 1: quiet.cu8 (check their link)" in lines
+    assert "no frames found in 1 capture(s): quiet.cu8 (check their link)" in lines
     assert not any("a.cu8" in line and "no frames" in line for line in lines)
 
 
@@ -204,3 +204,10 @@ def test_batch_summary_names_a_failed_capture_once_with_its_links():
     assert [line for line in lines if line.startswith("failed:")] == [
         "failed: bad.cu8 (buoys, gauges): CaptureError: empty capture",
         "failed: alone.cu8: CaptureError: no such file"]
+
+
+def test_signed_whole_numbers_never_read_minus_zero():
+    """A carrier or clock error that rounds to zero reads +0, as its interval's ends do ("-0" read as a bug)."""
+    from iqdemod_cli.render import _signed
+
+    assert [_signed(v) for v in (-0.3, -0.0, 0.4, -0.7, 12.4, -224.6)] == ["+0", "+0", "+0", "-1", "+12", "-225"]

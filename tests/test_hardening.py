@@ -570,7 +570,7 @@ def test_row14_a_bad_flag_is_not_blamed_on_the_profile(inputs):
 
 def test_row14_a_bad_profile_value_names_the_profile(tmp_path):
     (tmp_path / "p.toml").write_text("[signal]\nbaud = 9600\nshift_hz = -5\n")
-    with pytest.raises(iqdemod.LinkError, match=r"link profile .*p\.toml.*shift -5"):
+    with pytest.raises(iqdemod.LinkError, match=r"link profile .*p\.toml.*shift_hz -5"):
         iqdemod.load_link(tmp_path / "p.toml", offset=0)
 
 
