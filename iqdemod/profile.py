@@ -111,10 +111,10 @@ def link_with(tables: Mapping[str, Mapping[str, Any]], overrides: Mapping[str, A
     sig = merged["signal"]
     if overrides.get("gaussian") is not None:
         sig["pulse"] = "gaussian"
-    for key in ("baud", "shift_hz"):
-        if sig.get(key) is None:
-            flag = "--baud" if key == "baud" else "--shift"
-            raise LinkError(f"{key} not given: set [signal] {key} in the link profile or use {flag}")
+    missing = [(key, flag) for key, flag in (("baud", "--baud"), ("shift_hz", "--shift")) if sig.get(key) is None]
+    if missing:  # every one named at once
+        keys, flags = " and ".join(k for k, _ in missing), " and ".join(f for _, f in missing)
+        raise LinkError(f"{keys} not given: set [signal] {keys} in the link profile or use {flags}")
     frame = merged["frame"]
     if "sync_word" in frame:
         frame["sync_word"] = _parse_sync(frame["sync_word"])

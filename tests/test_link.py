@@ -69,6 +69,7 @@ def test_absolute_frequency_needs_the_centre():
         ("[signal]\nbaud = 9600\nshift_hz = 9600\n[frame]\ncrc = 'CRC-7/FOO'\n", "CRC 'CRC-7/FOO': unknown"),
         ("[signal]\nbaud = 9600\nshift_hz = 9600\n[frame]\nlength = 5000\n", "length 5000: must be within 1–4096"),
         ("[signal]\nbaud = 9600\n", "shift_hz not given"),
+        ("[frame]\nlength = 8\n", "baud and shift_hz not given: .* use --baud and --shift"),  # both at once
     ],
 )
 def test_bad_profiles_name_the_problem(tmp_path, text, match):
