@@ -1,7 +1,8 @@
 """The worker process of :class:`iqdemod.burst_pool.BurstPool`: detector buffers in on stdin, bursts out on stdout.
 
-Started by the pool (its start-up code imports this module and calls ``_main``), never by hand. The
-stream is a sequence of pickles: first ``(plans, capture)``, then one job
+Started by the pool, never by hand: as a fresh interpreter (its start-up code imports this module and
+calls ``_main``, which serves stdin and stdout), or as a copy of the calling process
+(:func:`serve_forked`, which serves two pipes). The stream is a sequence of pickles: first ``(plans, capture)``, then one job
 ``(seq, link, buffer)`` after another; each answer is ``(seq, bursts, failed)``,
 where `failed` is True when :func:`iqdemod.demod.demodulate_burst` raised (the
 pool then demodulates that buffer itself, so the error surfaces there, with
@@ -11,13 +12,15 @@ goes to stderr: stdout carries only the answers.
 
 from __future__ import annotations
 
+import contextlib
 import os
 import pickle
 import signal
 import sys
-from typing import BinaryIO
+import traceback
+from typing import BinaryIO, NoReturn
 
-__all__ = ["serve"]
+__all__ = ["serve", "serve_forked"]
 
 
 def serve(inp: BinaryIO, out: BinaryIO) -> None:
@@ -67,6 +70,38 @@ def serve(inp: BinaryIO, out: BinaryIO) -> None:
             out.flush()
         except BrokenPipeError:  # the pool has gone
             return
+
+
+def serve_forked(jobs: int, answers: int, *, close: tuple[int, ...]) -> NoReturn:
+    """The worker in a copy of the calling process (os.fork): serve the pipe `jobs`, answer on
+    `answers`, then end at once (never returning into the caller's code).
+
+    It takes a session of its own and ignores Ctrl-C, as the interpreter worker does, and puts
+    back the default action of the signals the caller may have its own handlers for (they
+    would run the caller's code here). It closes the caller's ends of the pipes, `close`
+    (else its input would never end), and points descriptor 1 at stderr: the caller's
+    standard output (its frames, perhaps) gets nothing from it.
+    """
+    status = 0
+    try:
+        os.setsid()
+        signal.signal(signal.SIGINT, signal.SIG_IGN)
+        for name in ("SIGTERM", "SIGHUP", "SIGQUIT"):
+            if hasattr(signal, name):
+                signal.signal(getattr(signal, name), signal.SIG_DFL)
+        for fd in close:
+            os.close(fd)
+        os.dup2(2, 1)
+        sys.stdout = sys.stderr
+        serve(os.fdopen(jobs, "rb"), os.fdopen(answers, "wb"))
+    except BaseException:  # noqa: BLE001 - the caller sees its input end and does the work itself
+        status = 1
+        with contextlib.suppress(Exception):
+            traceback.print_exc()
+    finally:
+        with contextlib.suppress(Exception):
+            sys.stderr.flush()
+        os._exit(status)
 
 
 def _main() -> None:

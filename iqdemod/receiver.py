@@ -335,6 +335,9 @@ def drive(rx: "Receiver", capture: Capture, *, block_samples: int = DEFAULT_BLOC
     (3, 9600.0, True)
     >>> tmp.cleanup()
     """
+    # A long capture's per-burst worker is started first, before any thread of ours (a progress
+    # bar's monitor, the read-ahead): it may then be a copy of this process (see iqdemod.burst_pool).
+    pool = BurstPool(rx.plans, rx._name) if PIPELINE and worth_a_pool(capture.info.n_samples) else None
     bar = None
     if progress:
         from tqdm import tqdm
@@ -347,18 +350,21 @@ def drive(rx: "Receiver", capture: Capture, *, block_samples: int = DEFAULT_BLOC
             yield rx.buffers(block), len(block)
         yield rx.end_buffers(), 0
 
-    if PIPELINE and worth_a_pool(capture.info.n_samples):
+    if pool is not None:
         # A long capture: the per-burst work goes to a worker process (iqdemod.burst_pool). Here,
         # the reading (with the reader's conversion) and the front end with the detectors each run
         # one block ahead in a thread of their own (both release the interpreter lock for most of
         # their time), and this thread hands buffers to the pool and takes its answers.
-        blocks = _ahead(capture.blocks(block_samples))
-        found = _ahead(buffers(blocks), wait=None)  # each step is one block of a file: it ends
+        blocks = found = None
         try:
-            yield from _pooled(rx, found, bar)
+            blocks = _ahead(capture.blocks(block_samples))
+            found = _ahead(buffers(blocks), wait=None)  # each step is one block of a file: it ends
+            yield from _pooled(pool, rx, found, bar)
         finally:  # the front end's thread first: it may be waiting on the reader's
-            found.close()
-            blocks.close()
+            pool.close()
+            for ahead in (found, blocks):
+                if ahead is not None:
+                    ahead.close()
             if bar is not None:
                 bar.close()
         return
@@ -381,10 +387,11 @@ def drive(rx: "Receiver", capture: Capture, *, block_samples: int = DEFAULT_BLOC
 PIPELINE = True  # batch workers, one process per core, turn this off
 
 
-def _pooled(rx: "Receiver", source: Iterator[tuple[list[tuple[int, RawBurst]], int]], bar) -> Iterator[Burst]:
+def _pooled(pool: BurstPool, rx: "Receiver", source: Iterator[tuple[list[tuple[int, RawBurst]], int]], bar
+            ) -> Iterator[Burst]:
     """:func:`drive` with the per-burst work shared with a worker process: `source` gives each block's
     detector buffers."""
-    with BurstPool(rx.plans, rx._name) as pool:
+    with pool:
         for found, n in source:
             for k, raw in found:
                 pool.put(k, raw)

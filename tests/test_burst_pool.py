@@ -62,6 +62,21 @@ def buffers(capture):
     return rx, found
 
 
+@pytest.fixture(params=["fork", "interpreter"])
+def start(request, monkeypatch):
+    """Both ways the worker starts: a copy of this process, a fresh interpreter."""
+    if request.param == "fork" and not (hasattr(os, "fork") and sys.platform.startswith("linux")):
+        pytest.skip("the worker is a copy of the caller on Linux only")
+    monkeypatch.setattr(burst_pool, "START", request.param)
+    return request.param
+
+
+@pytest.fixture()
+def interpreter(monkeypatch):
+    """The worker started as a fresh interpreter (what these tests are about does not arise in a copy)."""
+    monkeypatch.setattr(burst_pool, "START", "interpreter")
+
+
 @pytest.fixture()
 def pools(monkeypatch):
     """Every BurstPool made during the test."""
@@ -88,11 +103,11 @@ def _worker_only(monkeypatch):
     monkeypatch.setattr(burst_pool.BurstPool, "_take", lambda self, **kw: None)
 
 
-def test_a_worker_gives_the_same_frames(capture, alone, monkeypatch, pools):
+def test_a_worker_gives_the_same_frames(capture, alone, monkeypatch, pools, start):
     assert _fields(_pooled(capture, monkeypatch)) == alone
 
 
-def test_the_worker_alone_gives_the_same_bursts_in_order(buffers, monkeypatch, pools):
+def test_the_worker_alone_gives_the_same_bursts_in_order(buffers, monkeypatch, pools, start):
     """Every buffer demodulated by the worker: the same bursts, field for field, in the order put."""
     rx, found = buffers
     expected = [(k, _burst_fields(burst_pool.demodulate_burst(raw, rx.plans[k], capture="x"))) for k, raw in found]
@@ -107,11 +122,11 @@ def test_the_worker_alone_gives_the_same_bursts_in_order(buffers, monkeypatch, p
     assert got == expected
 
 
-def test_the_caller_doing_most_of_the_work_gives_the_same_frames(capture, alone, monkeypatch, pools):
+def test_the_caller_doing_most_of_the_work_gives_the_same_frames(capture, alone, monkeypatch, pools, start):
     assert _fields(_pooled(capture, monkeypatch, BACKLOG=0, IN_FLIGHT=1)) == alone
 
 
-def test_a_worker_killed_with_buffers_in_hand_leaves_them_to_the_caller(capture, alone, monkeypatch, pools):
+def test_a_worker_killed_with_buffers_in_hand_leaves_them_to_the_caller(capture, alone, monkeypatch, pools, start):
     """The worker killed while buffers are with it: every frame still comes, once and in order."""
     killed = []
     original = burst_pool.BurstPool._heads
@@ -135,7 +150,7 @@ def test_a_worker_killed_with_buffers_in_hand_leaves_them_to_the_caller(capture,
     assert killed and killed[0] > 0
 
 
-def test_a_missing_python_leaves_the_work_to_the_caller(capture, alone, monkeypatch, pools):
+def test_a_missing_python_leaves_the_work_to_the_caller(capture, alone, monkeypatch, pools, interpreter):
     monkeypatch.setattr(sys, "executable", "/nonexistent/python")
     assert _fields(_pooled(capture, monkeypatch)) == alone
     assert pools and pools[0].answered == 0
@@ -169,12 +184,12 @@ def failing_worker(tmp_path, monkeypatch):
 
 
 def test_a_failed_buffer_is_done_by_the_caller_and_not_sent_again(capture, alone, monkeypatch, failing_worker,
-                                                                   pools):
+                                                                   pools, interpreter):
     assert _fields(_pooled(capture, monkeypatch, BACKLOG=10**6)) == alone
     assert pools[0].answered == 0 and pools[0]._proc is None
 
 
-def test_an_error_comes_after_every_earlier_frame(capture, monkeypatch, failing_worker):
+def test_an_error_comes_after_every_earlier_frame(capture, monkeypatch, failing_worker, start):
     """A buffer that raises: the frames of the buffers before it come first, as in one process."""
     def broken_after(limit, demodulate):
         def run(raw, plan, *, capture=""):
@@ -193,6 +208,9 @@ def test_an_error_comes_after_every_earlier_frame(capture, monkeypatch, failing_
     monkeypatch.setattr(receiver, "demodulate_burst", broken_after(4, receiver.demodulate_burst))
     one_process = frames_until_error()
     monkeypatch.setattr(burst_pool, "demodulate_burst", broken_after(4, burst_pool.demodulate_burst))
+    # a copy of this process runs iqdemod.burst_worker.serve, which takes the demodulator from iqdemod.demod
+    # (an interpreter worker here is the failing one, which fails every buffer)
+    monkeypatch.setattr(iqdemod.demod, "demodulate_burst", broken_after(4, iqdemod.demod.demodulate_burst))
     monkeypatch.setattr(burst_pool, "POOL_MIN_SAMPLES", 1)
     monkeypatch.setattr(burst_pool, "BACKLOG", 10**6)
     assert frames_until_error() == one_process and len(one_process) >= 3
@@ -211,14 +229,14 @@ def test_plans_that_cannot_be_pickled_leave_the_work_to_the_caller(capture, alon
 
 
 @pytest.mark.skipif(not hasattr(os, "getsid"), reason="sessions are POSIX")
-def test_the_worker_has_a_session_of_its_own(buffers):
+def test_the_worker_has_a_session_of_its_own(buffers, start):
     """Ctrl-C at a terminal reaches the caller only; the caller ends the worker (no child traceback)."""
     rx, _ = buffers
     with burst_pool.BurstPool(rx.plans, "x") as pool:
         assert os.getsid(pool._proc.pid) != os.getsid(0)
 
 
-def test_the_worker_does_not_import_from_the_working_directory(buffers, tmp_path, monkeypatch):
+def test_the_worker_does_not_import_from_the_working_directory(buffers, tmp_path, monkeypatch, interpreter):
     """A folder named iqdemod in the working directory is not what the worker runs."""
     (tmp_path / "iqdemod").mkdir()
     (tmp_path / "iqdemod" / "__init__.py").write_text("raise SystemExit(7)\n")
@@ -238,22 +256,63 @@ def test_no_pool_for_streams_small_captures_or_batch_workers(monkeypatch):
     assert receiver.PIPELINE  # batch workers turn it off, and with it the pool
 
 
-def test_a_script_without_a_main_guard_runs_once(tmp_path):
-    """The worker is a plain child process: the caller's script is not run again in it."""
+@pytest.mark.parametrize("how", ["auto", "interpreter"])
+def test_a_script_without_a_main_guard_runs_once(tmp_path, how):
+    """The worker is a copy of the caller (Linux, no other thread) or a fresh interpreter, never a run of
+    the caller's script again; it writes nothing to the caller's standard output, and nothing the caller
+    had buffered there comes out twice."""
     x, _ = fm.render([fm.Tx(t_s=0.002, payload=b"buoy", ebn0_db=18.0, offset_hz=rw.OFFSET_HZ)], rate=rw.RATE,
                      n_samples=rw._n(0.04), noise_rms=rw._noise_for(0.1), seed=1)
     meta = fm.write_sigmf(tmp_path / "one", x, rate=rw.RATE)
     script = tmp_path / "no_guard.py"
     script.write_text(textwrap.dedent(f"""
+        import sys
         import iqdemod
         from iqdemod import burst_pool
         burst_pool.POOL_MIN_SAMPLES = 1
+        burst_pool.START = {how!r}
         burst_pool.BurstPool._take = lambda self, **kw: None  # the worker does it
-        print("script ran")
+        made = burst_pool._Forked.__init__
+
+        def note(self):
+            made(self)
+            sys.stderr.write("worker forked\\n")
+
+        burst_pool._Forked.__init__ = note
+        sys.stdout.write("script ran, ")  # still in the buffer (stdout is a pipe) when the worker starts
         link = iqdemod.load_link(None, offset={rw.OFFSET_HZ}, baud=9600, shift=9600, sync="0x9B3C57E1", length=4,
                                  crc="CRC-16/IBM-3740")
         print("frames", sum(f.crc_ok for f in iqdemod.decode({str(meta)!r}, link)))
     """))
     out = subprocess.run([sys.executable, str(script)], capture_output=True, text=True, timeout=120, cwd=tmp_path)
     assert out.returncode == 0, out.stderr
-    assert out.stdout.splitlines() == ["script ran", "frames 1"]
+    assert out.stdout == "script ran, frames 1\n"
+    assert ("worker forked" in out.stderr) == (how == "auto" and sys.platform.startswith("linux")), out.stderr
+
+
+@pytest.mark.skipif(not (hasattr(os, "fork") and sys.platform.startswith("linux")), reason="forks on Linux only")
+def test_the_worker_is_a_copy_of_the_caller_unless_another_thread_runs(buffers, monkeypatch):
+    """A fork copies other threads' locks as they happen to be: with a thread running, a fresh interpreter."""
+    import threading
+
+    rx, found = buffers
+    _worker_only(monkeypatch)
+    monkeypatch.setattr(burst_pool, "START", "auto")
+    assert threading.active_count() == 1
+    with burst_pool.BurstPool(rx.plans, "x") as pool:
+        assert isinstance(pool._proc, burst_pool._Forked)
+        pid = pool._proc.pid
+        for k, raw in found[:3]:
+            pool.put(k, raw)
+        assert len(list(pool.finish())) == 3 and pool.answered == 3
+    with pytest.raises(ChildProcessError):  # ended and reaped: no zombie left behind
+        os.waitpid(pid, os.WNOHANG)
+    stop = threading.Event()
+    other = threading.Thread(target=stop.wait)
+    other.start()
+    try:
+        with burst_pool.BurstPool(rx.plans, "x") as pool:
+            assert isinstance(pool._proc, subprocess.Popen)
+    finally:
+        stop.set()
+        other.join()
