@@ -149,9 +149,11 @@ def test_acceptance_report(local_run, archive):
     assert all(r["start_time"].startswith("2026-01-0") and "(mtime)" not in r["start_time"] for r in good)
     assert by[BROKEN]["start_time"].endswith("(mtime)")
     for col in ("duration_s", "ebn0_db", "ebn0_db_low", "ebn0_db_high", "fer_predicted", "fer_observed",
-                "freq_error_hz", "clock_error_ppm", "clipped_fraction", "dc_dbfs", "level_dbfs", "frequency_hz",
-                "margin_db", "size_bytes", "mtime_ns", "settings_digest"):
+                "freq_error_hz", "clock_error_ppm", "clock_error_ppm_low", "clock_error_ppm_high", "clipped_fraction",
+                "dc_dbfs", "level_dbfs", "frequency_hz", "margin_db", "size_bytes", "mtime_ns", "settings_digest"):
         assert all(r[col] != "" for r in good), col
+    assert all(float(r["clock_error_ppm_low"]) <= float(r["clock_error_ppm"]) <= float(r["clock_error_ppm_high"])
+               for r in good)
     tx = {int(Path(r["capture"]).name[3:5]): r["transmitter"] for r in good}  # odd: +300 Hz, even: +2500 Hz
     def label_hz(label: str) -> float:  # "tx2 (+2499 Hz)" -> 2499.0
         return float(label.split("(")[1].split(" Hz")[0])

@@ -62,6 +62,8 @@ class CaptureRow:
     freq_error_hz: float | None = None
     freq_spread_hz: float | None = None
     clock_error_ppm: float | None = None
+    clock_error_ppm_low: float | None = None
+    clock_error_ppm_high: float | None = None
     clipped_fraction: float | None = None
     dc_dbfs: float | None = None
     margin_db: float | None = None
@@ -174,7 +176,8 @@ COLUMN_HELP = {
     "ebn0_db": "Eb/N0 pooled over the capture, dB",
     "ebn0_db_low": "lower end of its 90 % interval, dB",
     "ebn0_db_high": "upper end of its 90 % interval, dB",
-    "ber_predicted": "bit error rate detection theory predicts at that Eb/N0 (fraction)",
+    "ber_predicted": "bit error rate detection theory predicts: the mean over the bursts, each at its own Eb/N0 "
+                     "(fraction)",
     "fer_predicted": "frame error rate predicted (fraction)",
     "fer_observed": "frame error rate seen: frames with a bad CRC / frames (fraction)",
     "verdict": "observed against predicted frame errors, by the exact binomial test",
@@ -182,7 +185,9 @@ COLUMN_HELP = {
     "frequency_hz": "median carrier of its frames as received, Hz (needs the capture's centre frequency)",
     "freq_error_hz": "carrier error against the link's frequency, Hz",
     "freq_spread_hz": "standard deviation of the carrier error between bursts, Hz",
-    "clock_error_ppm": "transmitter symbol clock error, ppm",
+    "clock_error_ppm": "transmitter symbol clock error, ppm (the symbol-weighted mean over bursts)",
+    "clock_error_ppm_low": "lower end of its 90 % interval, ppm (a few short bursts measure the clock loosely)",
+    "clock_error_ppm_high": "upper end of its 90 % interval, ppm",
     "clipped_fraction": "fraction of samples at full scale",
     "dc_dbfs": "the recording receiver's DC level, dB re full scale",
     "margin_db": "Eb/N0 minus what the target BER needs, dB",

@@ -134,6 +134,7 @@ def _interval(ci: Sequence[float] | None) -> tuple[float | None, float | None]:
 def _row(task: CaptureTask, name: str, report: Any, records: list[dict], warned: Sequence[str], t0: float,
          c0: float) -> CaptureRow:
     low, high = _interval(report.ebn0_db_ci90)
+    clock_low, clock_high = _interval(report.clock_error_ppm_ci90)
     return CaptureRow(
         capture=task.capture, path=task.path, status="ok", warnings=tuple(warned), transmitter=task.label(name),
         link=task.profile(name), link_name=name, start_time=report.start_time or task.mtime_time,
@@ -143,6 +144,7 @@ def _row(task: CaptureTask, name: str, report: Any, records: list[dict], warned:
         fer_predicted=report.fer_predicted, fer_observed=report.fer_observed,
         verdict=report.verdict or "", **_frame_figures(records), freq_error_hz=report.freq_error_hz,
         freq_spread_hz=report.freq_spread_hz, clock_error_ppm=report.clock_error_ppm,
+        clock_error_ppm_low=clock_low, clock_error_ppm_high=clock_high,
         clipped_fraction=report.clipped_fraction, dc_dbfs=report.dc_dbfs, margin_db=report.margin_db,
         size_bytes=task.size_bytes, mtime_ns=task.mtime_ns,
         frame_records=len(records) if task.want_frames else None, settings_digest=task.digest(name),
