@@ -162,6 +162,19 @@ class LazyGroup(click.Group):
         finally:
             sys.stdout = saved_stdout
             restore_signals(previous)
+            _clear_interrupt_mark()
+
+
+def _clear_interrupt_mark() -> None:
+    """Let the exit status the command chose stand after a stop it handled.
+
+    CPython (3.11 at least) marks the process to end by SIGINT, rather than with its exit status,
+    when a KeyboardInterrupt passes through code that exec() runs from a string, even once the
+    interrupt is caught: dataclasses define their methods so, so a Ctrl-C that lands while a module
+    is being imported turned `decode`'s status 130 into death by SIGINT. Every such exec() clears
+    the mark before it runs, so running one that does nothing clears it.
+    """
+    exec("None")  # noqa: S102 - a constant: see above
 
 
 def _fail(ctx: click.Context, debug: bool, message: str, status: int) -> None:

@@ -48,7 +48,7 @@ import time
 from typing import Iterator, Sequence
 
 from .bursts import RawBurst
-from .cores import usable_cores
+from .cores import WAKE_S, leave_signals_to_main, usable_cores
 from .demod import Burst, demodulate_burst
 from .plan import ReceiverPlan
 
@@ -89,7 +89,25 @@ def worth_a_pool(n_samples: int | None) -> bool:
 
 def may_fork() -> bool:
     """Whether the worker may be a copy of this process (see ``START``): os.fork exists, no other
-    thread runs, and Linux (elsewhere system libraries are not safe to use in a forked child)."""
+    thread runs, and Linux (elsewhere system libraries are not safe to use in a forked child).
+
+    Examples
+    --------
+    With a thread running, or told to, the worker is a fresh interpreter:
+
+    >>> import threading
+    >>> import iqdemod.burst_pool as bp
+    >>> stop = threading.Event()
+    >>> other = threading.Thread(target=stop.wait)
+    >>> other.start()
+    >>> bp.may_fork()
+    False
+    >>> stop.set(); other.join()
+    >>> saved, bp.START = bp.START, "interpreter"
+    >>> bp.may_fork()
+    False
+    >>> bp.START = saved
+    """
     if START == "interpreter" or not hasattr(os, "fork") or threading.active_count() != 1:
         return False
     return START == "fork" or sys.platform.startswith("linux")
@@ -298,7 +316,7 @@ class BurstPool:
                     if not self._alive and not self._done(self._queue[0]):
                         raise RuntimeError("burst pool: a buffer is neither done nor held (a bug)")
                     self._cv.wait_for(lambda: not self._alive or self._done(self._queue[0])
-                                      or bool(self._held) or bool(self._mine))
+                                      or bool(self._held) or bool(self._mine), timeout=WAKE_S)  # stops act
                     continue
             self._here(entry)
 
@@ -342,6 +360,7 @@ class BurstPool:
 
     def _write(self) -> None:
         """The writer thread: the plans, then held buffers, oldest first, while fewer than IN_FLIGHT are out."""
+        leave_signals_to_main()
         stdin = self._proc.stdin
         data = self._first
         while True:
@@ -367,6 +386,7 @@ class BurstPool:
 
     def _read(self) -> None:
         """The reader thread: the worker's answers, until it ends."""
+        leave_signals_to_main()
         stream = self._proc.stdout
         while True:
             try:

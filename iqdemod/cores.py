@@ -1,10 +1,18 @@
-"""How many cores this process may use: the one count behind batch's default jobs and the per-burst worker."""
+"""How many cores this process may use (the one count behind batch's default jobs and the per-burst worker), and
+the rules of the decoder's own threads with stop signals."""
 
 from __future__ import annotations
 
 import os
+import signal
 
-__all__ = ["usable_cores"]
+__all__ = ["usable_cores", "leave_signals_to_main", "WAKE_S"]
+
+#: The longest the main thread waits on one of the decoder's threads in one go: a stop signal that the
+#: system handed to another thread is acted on within this (Python runs handlers in the main thread
+#: only, between steps of its code, and a wait without a timeout is not woken by a signal taken
+#: elsewhere).
+WAKE_S = 0.1
 
 
 def usable_cores() -> int:
@@ -21,3 +29,25 @@ def usable_cores() -> int:
         return max(1, len(os.sched_getaffinity(0)))
     except (AttributeError, OSError):
         return max(1, os.cpu_count() or 1)
+
+
+def leave_signals_to_main() -> None:
+    """Called first in each of the decoder's own threads: stop signals (Ctrl-C, SIGTERM, SIGHUP,
+    SIGQUIT) are blocked in it, so the system hands them to the main thread, whose wait they
+    then interrupt; the thread itself never handles a signal (Python runs handlers in the main
+    thread only). Where threads cannot block signals, nothing is done.
+
+    Examples
+    --------
+    >>> import signal, threading
+    >>> seen = []
+    >>> t = threading.Thread(target=lambda: (leave_signals_to_main(),
+    ...                                      seen.append(signal.SIGINT in signal.pthread_sigmask(signal.SIG_BLOCK, []))))
+    >>> t.start(); t.join()
+    >>> seen, signal.SIGINT in signal.pthread_sigmask(signal.SIG_BLOCK, [])  # this thread's mask is untouched
+    ([True], False)
+    """
+    if not hasattr(signal, "pthread_sigmask"):
+        return
+    stops = {getattr(signal, name) for name in ("SIGINT", "SIGTERM", "SIGHUP", "SIGQUIT") if hasattr(signal, name)}
+    signal.pthread_sigmask(signal.SIG_BLOCK, stops)

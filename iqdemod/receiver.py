@@ -19,6 +19,7 @@ from dataclasses import dataclass
 import datetime
 import queue
 import threading
+import time
 from pathlib import Path
 from typing import Iterator, Mapping, Sequence
 
@@ -26,6 +27,7 @@ import numpy as np
 
 from . import bursts as _bursts
 from .burst_pool import BurstPool, worth_a_pool
+from .cores import WAKE_S, leave_signals_to_main
 from .bursts import RawBurst
 from .capture import Capture, CaptureInfo, CaptureStats, DEFAULT_BLOCK_SAMPLES, open_capture
 from .channel import FrontEndReport, channelize_many, flush_channels, front_end_report
@@ -423,6 +425,7 @@ def _ahead(items: Iterator, depth: int = 2, *, wait: float | None = 5.0) -> Iter
         return False
 
     def run() -> None:
+        leave_signals_to_main()
         try:
             for item in items:
                 if not put((None, item)):
@@ -435,7 +438,10 @@ def _ahead(items: Iterator, depth: int = 2, *, wait: float | None = 5.0) -> Iter
     worker.start()
     try:
         while True:
-            exc, item = slots.get()
+            try:  # a wait that wakes up: a stop signal is acted on even if the system handed it to a thread
+                exc, item = slots.get(timeout=WAKE_S)
+            except queue.Empty:
+                continue
             if exc is not None:
                 raise exc
             if item is done:
@@ -443,7 +449,9 @@ def _ahead(items: Iterator, depth: int = 2, *, wait: float | None = 5.0) -> Iter
             yield item
     finally:
         stop.set()
-        worker.join(timeout=wait)
+        deadline = None if wait is None else time.monotonic() + wait
+        while worker.is_alive() and (deadline is None or time.monotonic() < deadline):
+            worker.join(timeout=WAKE_S)
 
 
 def decode(

@@ -166,3 +166,41 @@ def test_timing_with_a_whole_number_period():
     # it covers [n, n + 1), centred on n + ½, so the boundaries 8k sit at positions 8k + ½
     off = (t.first_s - 0.5) % 8.0
     assert min(off, 8.0 - off) < 0.1
+
+
+def test_a_stop_taken_by_another_thread_still_ends_the_wait_on_the_front_end():
+    """The system hands a process's Ctrl-C to any of its threads that does not block it (a C library's
+    idle thread, say), and Python then runs the handler in the main thread only when that thread runs
+    code. Here the flag is set the way such a signal sets it, by _thread.interrupt_main, which wakes
+    nothing: the main thread, waiting for a front end whose input brings nothing (an idle pipe), must
+    still run the handler within a fraction of a second. (It waited for ever before: the decode hung.)"""
+    import _thread
+    import signal
+    import threading
+    import time
+
+    from iqdemod import receiver
+
+    release = threading.Event()
+    ran = []
+
+    def idle_input():
+        release.wait(10)
+        yield 1
+
+    def handler(signum, frame):
+        ran.append(time.monotonic())
+        release.set()  # the input ends, so the front end's thread ends at once
+        raise KeyboardInterrupt
+
+    old = signal.signal(signal.SIGINT, handler)
+    try:
+        threading.Timer(0.2, _thread.interrupt_main).start()
+        t0 = time.monotonic()
+        with pytest.raises(KeyboardInterrupt):
+            for _ in receiver._ahead(idle_input()):
+                pass
+    finally:
+        signal.signal(signal.SIGINT, old)
+        release.set()
+    assert ran and 0.1 < ran[0] - t0 < 1.0
