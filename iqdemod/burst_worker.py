@@ -84,32 +84,28 @@ def serve_forked(jobs: int, answers: int, *, close: tuple[int, ...]) -> NoReturn
 
     Examples
     --------
-    One buoy frame's detector buffer (as in :func:`serve`), answered by a copy of this process
-    (POSIX only):
+    A copy of this process answers a buffer of noise alone (no sync word in it; POSIX only):
 
     >>> import os, pickle
     >>> import numpy as np
     >>> from iqdemod.bursts import RawBurst
-    >>> from iqdemod.framing import frame_bits
     >>> from iqdemod.plan import plan_receiver
     >>> from iqdemod.profile import load_link
-    >>> link = load_link(None, baud=1200, shift=1200, offset=6000, sync="0x2DD4", sync_bits=16, length=12)
-    >>> bits = np.concatenate([np.tile([1, 0], 16), frame_bits(b"buoy-7 12.5C", link.frame), np.zeros(8, np.uint8)])
-    >>> x = np.exp(2j * np.pi * np.cumsum(np.repeat(np.where(bits == 1, 600.0, -600.0), 8)) / 9600)
-    >>> y = np.concatenate([np.zeros(400), x, np.zeros(400)]).astype(np.complex64)
+    >>> plan = plan_receiver(load_link(None, baud=1200, shift=1200, offset=6000, sync="0x2DD4", sync_bits=16,
+    ...                                length=12), 48000)
     >>> jobs_in, jobs_out = os.pipe()
     >>> answers_in, answers_out = os.pipe()
     >>> pid = os.fork()
     >>> if pid == 0:  # the copy: it serves, then ends
     ...     serve_forked(jobs_in, answers_out, close=(jobs_out, answers_in))
     >>> os.close(jobs_in); os.close(answers_out)
+    >>> noise = np.random.default_rng(1).normal(0, 0.01, (4000, 2)).astype(np.float32).view(np.complex64)[:, 0]
     >>> with os.fdopen(jobs_out, "wb") as jobs:
-    ...     _ = jobs.write(pickle.dumps(((plan_receiver(link, 48000),), "buoys"))
-    ...                    + pickle.dumps((7, 0, RawBurst(0, 0, y, (400, 400 + len(x))))))
+    ...     _ = jobs.write(pickle.dumps(((plan,), "quiet")) + pickle.dumps((3, 0, RawBurst(0, 0, noise, (0, 4000)))))
     >>> with os.fdopen(answers_in, "rb") as answers:
     ...     seq, bursts, failed = pickle.load(answers)
-    >>> seq, failed, [(f.payload, f.crc_ok) for b in bursts for f in b.frames], os.waitpid(pid, 0)[1]
-    (7, False, [(b'buoy-7 12.5C', True)], 0)
+    >>> seq, failed, sum(len(b.frames) for b in bursts), os.waitpid(pid, 0)[1]
+    (3, False, 0, 0)
     """
     status = 0
     try:
