@@ -87,7 +87,8 @@ _LINK_SPECS = [
           help="Byte order of the CRC on the air [default: big]."),
     _spec("--length-counts", type=click.Choice(["payload", "payload+crc", "frame"], case_sensitive=False),
           help="What a prefix8 length byte counts; frame = length byte, payload and CRC [default: payload]."),
-    _spec("--length-offset", type=int, help="Added to the counted bytes in a prefix8 length byte [default: 0]."),
+    _spec("--length-offset", type=click.IntRange(-255, 255),
+          help="Added to the counted bytes in a prefix8 length byte [default: 0]."),
 ]
 _LINK_OPTION = _spec("--link", "link", type=click.Path(dir_okay=False, path_type=Path),
                      help="TOML link profile; the flags below override its values.")
