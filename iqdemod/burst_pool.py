@@ -135,19 +135,24 @@ class _Forked:
 
         jobs_in, jobs_out = os.pipe()
         answers_in, answers_out = os.pipe()
+        ready_in, ready_out = os.pipe()
         for stream in (sys.stdout, sys.stderr):  # what is buffered here must not be written again by the copy
             with contextlib.suppress(Exception):
                 stream.flush()
         try:
             pid = os.fork()
         except OSError:
-            for fd in (jobs_in, jobs_out, answers_in, answers_out):
+            for fd in (jobs_in, jobs_out, answers_in, answers_out, ready_in, ready_out):
                 os.close(fd)
             raise
         if pid == 0:  # the worker: never returns
-            serve_forked(jobs_in, answers_out, close=(jobs_out, answers_in))
-        os.close(jobs_in)
-        os.close(answers_out)
+            serve_forked(jobs_in, answers_out, close=(jobs_out, answers_in, ready_in), ready=ready_out)
+        for fd in (jobs_in, answers_out, ready_out):
+            os.close(fd)
+        try:  # on once the copy has its session and its signals (it closes its end then, or ends)
+            os.read(ready_in, 1)
+        finally:
+            os.close(ready_in)
         self.pid = pid
         self.stdin = os.fdopen(jobs_out, "wb")
         self.stdout = os.fdopen(answers_in, "rb")

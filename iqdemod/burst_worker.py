@@ -72,7 +72,7 @@ def serve(inp: BinaryIO, out: BinaryIO) -> None:
             return
 
 
-def serve_forked(jobs: int, answers: int, *, close: tuple[int, ...]) -> NoReturn:
+def serve_forked(jobs: int, answers: int, *, close: tuple[int, ...], ready: int | None = None) -> NoReturn:
     """The worker in a copy of the calling process (os.fork): serve the pipe `jobs`, answer on
     `answers`, then end at once (never returning into the caller's code).
 
@@ -80,7 +80,9 @@ def serve_forked(jobs: int, answers: int, *, close: tuple[int, ...]) -> NoReturn
     back the default action of the signals the caller may have its own handlers for (they
     would run the caller's code here). It closes the caller's ends of the pipes, `close`
     (else its input would never end), and points descriptor 1 at stderr: the caller's
-    standard output (its frames, perhaps) gets nothing from it.
+    standard output (its frames, perhaps) gets nothing from it. Then it closes `ready` (when
+    given), so the caller, which reads it to its end, goes on only once this is all done, as it
+    would after starting an interpreter.
 
     Examples
     --------
@@ -118,6 +120,8 @@ def serve_forked(jobs: int, answers: int, *, close: tuple[int, ...]) -> NoReturn
             os.close(fd)
         os.dup2(2, 1)
         sys.stdout = sys.stderr
+        if ready is not None:
+            os.close(ready)
         serve(os.fdopen(jobs, "rb"), os.fdopen(answers, "wb"))
     except BaseException:  # noqa: BLE001 - the caller sees its input end and does the work itself
         status = 1
