@@ -37,6 +37,7 @@ from __future__ import annotations
 
 import collections
 import contextlib
+import gc
 import json
 import os
 import pickle
@@ -45,10 +46,11 @@ import subprocess
 import sys
 import threading
 import time
+import warnings
 from typing import Iterator, Sequence
 
 from .bursts import RawBurst
-from .cores import WAKE_S, leave_signals_to_main, usable_cores
+from .cores import WAKE_S, leave_signals_to_main, stop_signals, usable_cores
 from .demod import Burst, demodulate_burst
 from .plan import ReceiverPlan
 
@@ -91,6 +93,11 @@ def may_fork() -> bool:
     """Whether the worker may be a copy of this process (see ``START``): os.fork exists, no other
     thread runs, and Linux (elsewhere system libraries are not safe to use in a forked child).
 
+    Threads are Python's here. The math libraries' own worker threads (numpy's BLAS, the FFT's pool)
+    are not counted: they take part in fork through their own handlers (``pthread_atfork``), and the
+    batch's forked pool has relied on that from the start. Python 3.12 warns about them on every
+    fork; that warning is silenced where the pool forks, on purpose.
+
     Examples
     --------
     With a thread running, or told to, the worker is a fresh interpreter:
@@ -126,6 +133,12 @@ def _interpreter() -> subprocess.Popen:
                             stdout=subprocess.PIPE, env=env, **alone)
 
 
+def _close(fds) -> None:
+    for fd in fds:
+        with contextlib.suppress(OSError):
+            os.close(fd)
+
+
 class _Forked:
     """The worker as a copy of this process: what the pool uses of a :class:`subprocess.Popen`
     (``stdin``, ``stdout``, ``pid``, ``kill``, ``wait``)."""
@@ -133,24 +146,52 @@ class _Forked:
     def __init__(self) -> None:
         from .burst_worker import serve_forked
 
-        jobs_in, jobs_out = os.pipe()
-        answers_in, answers_out = os.pipe()
-        ready_in, ready_out = os.pipe()
+        fds: list[int] = []
+        try:
+            for _ in range(3):
+                fds += os.pipe()
+        except OSError:
+            _close(fds)
+            raise
+        jobs_in, jobs_out, answers_in, answers_out, ready_in, ready_out = fds
         for stream in (sys.stdout, sys.stderr):  # what is buffered here must not be written again by the copy
             with contextlib.suppress(Exception):
                 stream.flush()
+        # Until the copy has its own session and signal settings, a Ctrl-C at the terminal would reach
+        # it and run this process's handlers there: the stop signals wait, blocked, over the fork. And
+        # what this process holds is frozen for the collector, so the copy never runs a finaliser of
+        # the caller's (the copy's own garbage is collected as usual).
+        masked = hasattr(signal, "pthread_sigmask")
+        old_mask = signal.pthread_sigmask(signal.SIG_BLOCK, stop_signals()) if masked else None
+        gc.freeze()
         try:
-            pid = os.fork()
+            with warnings.catch_warnings():  # Python 3.12+ counts the math libraries' threads too: see may_fork
+                warnings.filterwarnings("ignore", r"This process .*is multi-threaded", DeprecationWarning)
+                pid = os.fork()
         except OSError:
-            for fd in (jobs_in, jobs_out, answers_in, answers_out, ready_in, ready_out):
-                os.close(fd)
+            gc.unfreeze()
+            if masked:
+                signal.pthread_sigmask(signal.SIG_SETMASK, old_mask)
+            _close(fds)
             raise
-        if pid == 0:  # the worker: never returns
-            serve_forked(jobs_in, answers_out, close=(jobs_out, answers_in, ready_in), ready=ready_out)
-        for fd in (jobs_in, answers_out, ready_out):
-            os.close(fd)
+        if pid == 0:  # the copy: whatever happens, it never returns into the caller's code
+            try:
+                serve_forked(jobs_in, answers_out, close=(jobs_out, answers_in, ready_in), ready=ready_out,
+                             mask=old_mask)
+            finally:
+                os._exit(1)
+        gc.unfreeze()
+        if masked:
+            signal.pthread_sigmask(signal.SIG_SETMASK, old_mask)  # a stop that came meanwhile is acted on now
+        _close((jobs_in, answers_out, ready_out))
         try:  # on once the copy has its session and its signals (it closes its end then, or ends)
             os.read(ready_in, 1)
+        except BaseException:  # a stop while waiting: the copy goes, and nothing of it is left open
+            _close((jobs_out, answers_in))
+            with contextlib.suppress(OSError):
+                os.kill(pid, signal.SIGKILL)
+                os.waitpid(pid, 0)
+            raise
         finally:
             os.close(ready_in)
         self.pid = pid
@@ -164,10 +205,17 @@ class _Forked:
                 os.kill(self.pid, signal.SIGKILL)
 
     def wait(self, timeout: float | None = None) -> int:
-        """Its exit status, once it has ended; :class:`subprocess.TimeoutExpired` after `timeout` seconds."""
+        """Its exit status, once it has ended; :class:`subprocess.TimeoutExpired` after `timeout` seconds.
+
+        A caller that lets the system reap its children (SIGCHLD ignored) leaves no status to
+        collect: then 0, as :class:`subprocess.Popen` says."""
         deadline = None if timeout is None else time.monotonic() + timeout
         while self.returncode is None:
-            pid, status = os.waitpid(self.pid, 0 if deadline is None else os.WNOHANG)
+            try:
+                pid, status = os.waitpid(self.pid, 0 if deadline is None else os.WNOHANG)
+            except ChildProcessError:
+                self.returncode = 0
+                break
             if pid:
                 self.returncode = os.waitstatus_to_exitcode(status)
             elif time.monotonic() >= deadline:

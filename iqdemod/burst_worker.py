@@ -72,7 +72,8 @@ def serve(inp: BinaryIO, out: BinaryIO) -> None:
             return
 
 
-def serve_forked(jobs: int, answers: int, *, close: tuple[int, ...], ready: int | None = None) -> NoReturn:
+def serve_forked(jobs: int, answers: int, *, close: tuple[int, ...], ready: int | None = None,
+                 mask: set | None = None) -> NoReturn:
     """The worker in a copy of the calling process (os.fork): serve the pipe `jobs`, answer on
     `answers`, then end at once (never returning into the caller's code).
 
@@ -82,7 +83,8 @@ def serve_forked(jobs: int, answers: int, *, close: tuple[int, ...], ready: int 
     (else its input would never end), and points descriptor 1 at stderr: the caller's
     standard output (its frames, perhaps) gets nothing from it. Then it closes `ready` (when
     given), so the caller, which reads it to its end, goes on only once this is all done, as it
-    would after starting an interpreter.
+    would after starting an interpreter, and sets the signal mask back to `mask` (when given: the
+    caller blocks the stop signals over the fork, so none reaches the copy before this).
 
     Examples
     --------
@@ -122,6 +124,8 @@ def serve_forked(jobs: int, answers: int, *, close: tuple[int, ...], ready: int 
         sys.stdout = sys.stderr
         if ready is not None:
             os.close(ready)
+        if mask is not None:
+            signal.pthread_sigmask(signal.SIG_SETMASK, mask)
         serve(os.fdopen(jobs, "rb"), os.fdopen(answers, "wb"))
     except BaseException:  # noqa: BLE001 - the caller sees its input end and does the work itself
         status = 1

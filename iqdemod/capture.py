@@ -184,7 +184,10 @@ class Capture:
         ------
         numpy.ndarray
             complex64 blocks, ±1 full scale, NaN/Inf already zeroed. A block
-            may be read-only (a cf32 file is handed out without a copy).
+            may be read-only (a cf32 file is handed out without a copy): it is
+            then a view of a memory map of its part of the file, which holds a
+            file descriptor of its own while the block lives. Copy blocks that
+            are kept by the hundred (``MAP_READS = False`` reads them instead).
         """
         block_samples = int(block_samples)
         overlap = int(overlap)

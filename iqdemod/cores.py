@@ -6,7 +6,7 @@ from __future__ import annotations
 import os
 import signal
 
-__all__ = ["usable_cores", "leave_signals_to_main", "WAKE_S"]
+__all__ = ["usable_cores", "leave_signals_to_main", "stop_signals", "WAKE_S"]
 
 #: The longest the main thread waits on one of the decoder's threads in one go: a stop signal that the
 #: system handed to another thread is acted on within this (Python runs handlers in the main thread
@@ -47,7 +47,17 @@ def leave_signals_to_main() -> None:
     >>> seen, signal.SIGINT in signal.pthread_sigmask(signal.SIG_BLOCK, [])  # this thread's mask is untouched
     ([True], False)
     """
-    if not hasattr(signal, "pthread_sigmask"):
-        return
-    stops = {getattr(signal, name) for name in ("SIGINT", "SIGTERM", "SIGHUP", "SIGQUIT") if hasattr(signal, name)}
-    signal.pthread_sigmask(signal.SIG_BLOCK, stops)
+    if hasattr(signal, "pthread_sigmask"):
+        signal.pthread_sigmask(signal.SIG_BLOCK, stop_signals())
+
+
+def stop_signals() -> set:
+    """The signals that stop a run: Ctrl-C (SIGINT), SIGTERM, SIGHUP and SIGQUIT, those this system has.
+
+    Examples
+    --------
+    >>> import signal
+    >>> signal.SIGINT in stop_signals()
+    True
+    """
+    return {getattr(signal, name) for name in ("SIGINT", "SIGTERM", "SIGHUP", "SIGQUIT") if hasattr(signal, name)}

@@ -340,12 +340,12 @@ def drive(rx: "Receiver", capture: Capture, *, block_samples: int = DEFAULT_BLOC
     # A long capture's per-burst worker is started first, before any thread of ours (a progress
     # bar's monitor, the read-ahead): it may then be a copy of this process (see iqdemod.burst_pool).
     pool = BurstPool(rx.plans, rx._name) if PIPELINE and worth_a_pool(capture.info.n_samples) else None
-    bar = None
-    if progress:
-        from tqdm import tqdm
-
-        bar = tqdm(total=capture.info.n_samples or None, unit="S", unit_scale=True, desc=Path(capture.info.path).name,
-                   leave=False, delay=1.0, disable=None)  # none on a log file or pipe
+    try:
+        bar = _progress_bar(capture) if progress else None
+    except BaseException:
+        if pool is not None:
+            pool.close()
+        raise
 
     def buffers(blocks: Iterator[np.ndarray]) -> Iterator[tuple[list[tuple[int, RawBurst]], int]]:
         for block in blocks:
@@ -387,6 +387,14 @@ def drive(rx: "Receiver", capture: Capture, *, block_samples: int = DEFAULT_BLOC
 
 
 PIPELINE = True  # batch workers, one process per core, turn this off
+
+
+def _progress_bar(capture: Capture):
+    """A tqdm bar over the capture's samples, on stderr: only on a terminal, and after a second."""
+    from tqdm import tqdm
+
+    return tqdm(total=capture.info.n_samples or None, unit="S", unit_scale=True, desc=Path(capture.info.path).name,
+                leave=False, delay=1.0, disable=None)
 
 
 def _pooled(pool: BurstPool, rx: "Receiver", source: Iterator[tuple[list[tuple[int, RawBurst]], int]], bar

@@ -114,6 +114,7 @@ def pools(monkeypatch):
 
 def _pooled(capture, monkeypatch, **settings):
     monkeypatch.setattr(burst_pool, "POOL_MIN_SAMPLES", 1)
+    monkeypatch.setattr(burst_pool, "usable_cores", lambda: 2)  # a runner with one core would decode alone
     for name, value in settings.items():
         monkeypatch.setattr(burst_pool, name, value)
     return list(iqdemod.decode(capture.meta, rw.link_for(capture.offset_hz)))
@@ -291,6 +292,7 @@ def test_a_script_without_a_main_guard_runs_once(tmp_path, how):
         import iqdemod
         from iqdemod import burst_pool
         burst_pool.POOL_MIN_SAMPLES = 1
+        burst_pool.usable_cores = lambda: 2  # also on a runner with one core
         burst_pool.START = {how!r}
         burst_pool.BurstPool._take = lambda self, **kw: None  # the worker does it
         made = burst_pool._Forked.__init__
@@ -349,3 +351,74 @@ def test_the_worker_is_a_copy_of_the_caller_unless_another_thread_runs(buffers, 
                          text=True, timeout=120)
     assert out.returncode == 0, out.stderr
     assert out.stdout.split() == ["_Forked", "(3,", "3)", "True", "Popen"]
+
+
+@pytest.fixture()
+def forking(monkeypatch):
+    """The pool forks here although other tests left idle threads (see `start`)."""
+    if not (hasattr(os, "fork") and sys.platform.startswith("linux")):
+        pytest.skip("the worker is a copy of the caller on Linux only")
+    monkeypatch.setattr(burst_pool, "may_fork", lambda: True)
+
+
+def test_a_copy_that_fails_as_it_starts_never_returns_into_the_callers_code(capture, alone, monkeypatch, pools,
+                                                                          forking, tmp_path):
+    """A stop (or any error) in the copy before it serves ends the copy there: the caller's own code (this
+    test) runs once, and the caller does every buffer itself."""
+    from iqdemod import burst_worker
+
+    def stopped(*args, **kwargs):
+        raise KeyboardInterrupt  # as a Ctrl-C that reached the copy would
+
+    monkeypatch.setattr(burst_worker, "serve_forked", stopped)
+    frames = _pooled(capture, monkeypatch)
+    with open(tmp_path / "ran", "a") as fh:  # a copy that came back here would add its own line
+        fh.write(f"{os.getpid()}\n")
+    assert _fields(frames) == alone and pools[0].answered == 0
+    assert (tmp_path / "ran").read_text() == f"{os.getpid()}\n"
+
+
+def _open_fds() -> int:
+    return len(os.listdir("/proc/self/fd"))
+
+
+@pytest.mark.skipif(not os.path.isdir("/proc/self/fd"), reason="counts descriptors in /proc")
+def test_a_stop_while_the_copy_starts_leaves_no_worker_and_no_descriptor(buffers, monkeypatch, forking):
+    rx, _ = buffers
+    real_read, real_fork = os.read, os.fork
+    children = []
+
+    def interrupted(fd, n):
+        monkeypatch.setattr(os, "read", real_read)
+        raise KeyboardInterrupt  # a Ctrl-C while the caller waits for the copy to be ready
+
+    def fork():
+        pid = real_fork()
+        if pid:
+            children.append(pid)
+        return pid
+
+    before = _open_fds()
+    monkeypatch.setattr(os, "read", interrupted)
+    monkeypatch.setattr(os, "fork", fork)
+    with pytest.raises(KeyboardInterrupt):
+        burst_pool.BurstPool(rx.plans, "x")
+    assert _open_fds() == before and len(children) == 1
+    with pytest.raises(ChildProcessError):  # killed and reaped
+        os.waitpid(children[0], os.WNOHANG)
+
+
+def test_a_caller_that_ignores_its_children_can_still_close_the_pool(buffers, monkeypatch, forking):
+    """With SIGCHLD ignored the system reaps the copy itself; closing the pool must not fail on that."""
+    import signal
+
+    rx, found = buffers
+    _worker_only(monkeypatch)
+    old = signal.signal(signal.SIGCHLD, signal.SIG_IGN)
+    try:
+        with burst_pool.BurstPool(rx.plans, "x") as pool:
+            for k, raw in found[:2]:
+                pool.put(k, raw)
+            assert len(list(pool.finish())) == 2 and pool.answered == 2
+    finally:
+        signal.signal(signal.SIGCHLD, old)

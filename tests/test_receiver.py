@@ -173,7 +173,7 @@ def test_a_stop_taken_by_another_thread_still_ends_the_wait_on_the_front_end():
     idle thread, say), and Python then runs the handler in the main thread only when that thread runs
     code. Here the flag is set the way such a signal sets it, by _thread.interrupt_main, which wakes
     nothing: the main thread, waiting for a front end whose input brings nothing (an idle pipe), must
-    still run the handler within a fraction of a second. (It waited for ever before: the decode hung.)"""
+    still run the handler within about WAKE_S (0.1 s). (It waited for ever before: the decode hung.)"""
     import _thread
     import signal
     import threading
@@ -203,4 +203,4 @@ def test_a_stop_taken_by_another_thread_still_ends_the_wait_on_the_front_end():
     finally:
         signal.signal(signal.SIGINT, old)
         release.set()
-    assert ran and 0.1 < ran[0] - t0 < 1.0
+    assert ran and 0.1 < ran[0] - t0 < 5.0  # the old code waited 10 s

@@ -292,8 +292,9 @@ def labelled_frames(journal: Path, out, labels: Mapping[tuple[str, str], str], o
     Memory stays bounded: the first pass keeps only where each capture's lines are.
     """
     spans = _capture_spans(journal)
+    named = set(order)
     with open(journal, "rb") as fh:
-        for capture in [*dict.fromkeys(c for c in order if c in spans), *(c for c in spans if c not in set(order))]:
+        for capture in [*dict.fromkeys(c for c in order if c in spans), *(c for c in spans if c not in named)]:
             for start, end in spans[capture]:
                 fh.seek(start)
                 while fh.tell() < end:
