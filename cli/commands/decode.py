@@ -84,8 +84,9 @@ def command(ctx, captures, output, only_good, block_samples, follow, idle_s, sta
     signal (130 for Ctrl-C). Stopped before any frame was found, the output
     file is not written and an existing one is left as it was.
 
-    Every capture is opened (its metadata read) before any is decoded, so a
-    missing or broken one is refused before any work. A capture that fails
+    Every capture file is opened (its metadata read) before any is decoded
+    (not standard input, nor with --follow), so a missing or broken one is
+    refused before any work. A capture that fails
     while it is read (the file shrank, say) ends the run with its error (exit
     status 1), and the frames found before it are kept all the same.
     """
