@@ -44,6 +44,7 @@ __all__ = [
     "CaptureStats",
     "Capture",
     "open_capture",
+    "progress_bar",
     "CaptureWarning",
     "DEFAULT_BLOCK_SAMPLES",
     "CAPTURE_FORMATS",
@@ -283,6 +284,26 @@ class Capture:
                 clipped = pile_up(flat, flat.min(), flat.max()) if flat.size else 0
             self._count(comp.shape[0], bad, clipped)
             yield comp.view(np.complex64).reshape(-1)
+
+
+def progress_bar(capture: "Capture | None", enabled: bool, desc: str | None = None):
+    """A tqdm bar over a capture's samples on stderr (named after its file unless `desc` says), or
+    None when not `enabled`. It shows only on a terminal and once the work has taken a second; a
+    capture of unknown length (a stream) counts samples without a total.
+
+    Examples
+    --------
+    No bar unless asked for (a library function prints nothing by default):
+
+    >>> progress_bar(None, False, "survey: spectrum") is None
+    True
+    """
+    if not enabled:
+        return None
+    from tqdm import tqdm
+
+    return tqdm(total=capture.info.n_samples or None, unit="S", unit_scale=True,
+                desc=Path(capture.info.path).name if desc is None else desc, leave=False, delay=1.0, disable=None)
 
 
 def _audio_bits(subtype: str) -> int:

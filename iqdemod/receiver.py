@@ -29,7 +29,7 @@ from . import bursts as _bursts
 from .burst_pool import BurstPool, worth_a_pool
 from .cores import WAKE_S, leave_signals_to_main
 from .bursts import RawBurst
-from .capture import Capture, CaptureInfo, CaptureStats, DEFAULT_BLOCK_SAMPLES, open_capture
+from .capture import Capture, CaptureInfo, CaptureStats, DEFAULT_BLOCK_SAMPLES, open_capture, progress_bar
 from .channel import FrontEndReport, channelize_many, flush_channels, front_end_report
 from .demod import Burst, Frame, demodulate_burst, drop_repeats
 from .errors import IqdemodError, quote
@@ -341,7 +341,7 @@ def drive(rx: "Receiver", capture: Capture, *, block_samples: int = DEFAULT_BLOC
     # bar's monitor, the read-ahead): it may then be a copy of this process (see iqdemod.burst_pool).
     pool = BurstPool(rx.plans, rx._name) if PIPELINE and worth_a_pool(capture.info.n_samples) else None
     try:
-        bar = _progress_bar(capture) if progress else None
+        bar = progress_bar(capture, progress)
     except BaseException:
         if pool is not None:
             pool.close()
@@ -389,28 +389,19 @@ def drive(rx: "Receiver", capture: Capture, *, block_samples: int = DEFAULT_BLOC
 PIPELINE = True  # batch workers, one process per core, turn this off
 
 
-def _progress_bar(capture: Capture):
-    """A tqdm bar over the capture's samples, on stderr: only on a terminal, and after a second."""
-    from tqdm import tqdm
-
-    return tqdm(total=capture.info.n_samples or None, unit="S", unit_scale=True, desc=Path(capture.info.path).name,
-                leave=False, delay=1.0, disable=None)
-
-
 def _pooled(pool: BurstPool, rx: "Receiver", source: Iterator[tuple[list[tuple[int, RawBurst]], int]], bar
             ) -> Iterator[Burst]:
     """:func:`drive` with the per-burst work shared with a worker process: `source` gives each block's
-    detector buffers."""
-    with pool:
-        for found, n in source:
-            for k, raw in found:
-                pool.put(k, raw)
-            for k, bursts in pool.ready():
-                yield from rx.accept(bursts, k)
-            if bar is not None and n:
-                bar.update(n)
-        for k, bursts in pool.finish():
+    detector buffers. The caller closes the pool."""
+    for found, n in source:
+        for k, raw in found:
+            pool.put(k, raw)
+        for k, bursts in pool.ready():
             yield from rx.accept(bursts, k)
+        if bar is not None and n:
+            bar.update(n)
+    for k, bursts in pool.finish():
+        yield from rx.accept(bursts, k)
 
 
 def _ahead(items: Iterator, depth: int = 2, *, wait: float | None = 5.0) -> Iterator:

@@ -20,7 +20,7 @@ from typing import Sequence
 import numpy as np
 
 from ..bursts import FRAME_SYMBOLS, DetectorPlan, DetectorState, detect, flush, plan_detector
-from ..capture import Capture
+from ..capture import Capture, progress_bar
 from ..channel import ChannelPlan, ChannelState, channelize, flush_channel, plan_channel
 from ..errors import IqdemodError
 from ..link import SignalSpec
@@ -357,23 +357,6 @@ class Activity:
     intervals: list[tuple[float, float]] = field(default_factory=list)
     excerpts: list[ActivityBurst] = field(default_factory=list)
     floor: float | None = None
-
-
-def progress_bar(capture: Capture, enabled: bool, desc: str):
-    """A tqdm bar over the capture's samples (stderr), or None when not `enabled`.
-
-    Examples
-    --------
-    No bar unless asked for (a library function prints nothing by default):
-
-    >>> progress_bar(None, False, "survey: spectrum") is None
-    True
-    """
-    if not enabled:
-        return None
-    from tqdm import tqdm
-
-    return tqdm(total=capture.info.n_samples, unit="S", unit_scale=True, desc=desc, leave=False, delay=1.0, disable=None)
 
 
 def _take(act: Activity, found: list[ActivityBurst]) -> None:
