@@ -1,6 +1,7 @@
 """Stop signals for every command: SIGTERM, SIGHUP and SIGQUIT end a run the way Ctrl-C does.
 
-Standard library only, so that the group module can use it without slowing ``--help``.
+The standard library and :mod:`iqdemod.cores` only (no numpy), so that the group module can use it
+without slowing ``--help``.
 """
 
 from __future__ import annotations
@@ -9,11 +10,14 @@ import contextlib
 import signal
 from typing import Iterator
 
+from iqdemod.cores import stop_signals
+
 __all__ = ["STOP_SIGNALS", "Terminated", "stop_signals_raise", "restore_signals", "stop_exception", "signal_of",
            "StopGate", "stops_gated"]
 
 # Signals that end a run like SIGTERM does: the temporary files are removed, the exit status is 128 + signal.
-STOP_SIGNALS = tuple(getattr(signal, name) for name in ("SIGTERM", "SIGHUP", "SIGQUIT") if hasattr(signal, name))
+# (The library's stop signals less Ctrl-C, which Python already raises as KeyboardInterrupt.)
+STOP_SIGNALS = tuple(sorted(stop_signals() - {signal.SIGINT}))
 
 
 class Terminated(KeyboardInterrupt):

@@ -20,6 +20,8 @@ import sys
 import traceback
 from typing import BinaryIO, NoReturn
 
+from .cores import stop_signals
+
 __all__ = ["serve", "serve_forked"]
 
 
@@ -114,10 +116,8 @@ def serve_forked(jobs: int, answers: int, *, close: tuple[int, ...], ready: int 
     status = 0
     try:
         os.setsid()
-        signal.signal(signal.SIGINT, signal.SIG_IGN)
-        for name in ("SIGTERM", "SIGHUP", "SIGQUIT"):
-            if hasattr(signal, name):
-                signal.signal(getattr(signal, name), signal.SIG_DFL)
+        for sig in stop_signals():
+            signal.signal(sig, signal.SIG_IGN if sig == signal.SIGINT else signal.SIG_DFL)
         for fd in close:
             os.close(fd)
         os.dup2(2, 1)

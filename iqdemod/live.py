@@ -109,8 +109,6 @@ class _FdReader:
     def read1(self, n: int) -> bytes:
         return os.read(self._fd, n)
 
-    read = read1
-
 
 def _stdin_source():
     """Standard input for reading samples: its descriptor when it has one (a pipe, a file), else the

@@ -17,6 +17,7 @@ import threading
 from pathlib import Path
 from typing import Iterator
 
+from ..cores import stop_signals
 from ..files import atomic_writer
 from ..errors import IqdemodError
 from .report import COLUMNS, CaptureRow, complete_lines, read_report, write_rows
@@ -24,8 +25,6 @@ from .worker import CaptureOutcome, CaptureTask
 
 __all__ = ["partial_path"]
 
-# Ctrl-C and the signals that ask a run to stop (a closed terminal, a quit key, a polite kill)
-_STOP_SIGNALS = tuple(getattr(signal, n) for n in ("SIGINT", "SIGTERM", "SIGHUP", "SIGQUIT") if hasattr(signal, n))
 #: Every lock this process holds, for forked workers to close.
 LOCK_FDS: list[int] = []
 
@@ -64,7 +63,7 @@ def signals_deferred() -> Iterator[None]:
         pending.append(signum)
 
     saved = {}
-    for sig in _STOP_SIGNALS:
+    for sig in stop_signals():  # Ctrl-C and the signals that ask a run to stop
         old = signal.getsignal(sig)
         if old is not None:  # None: a handler set outside Python, which we could not restore
             saved[sig] = signal.signal(sig, note)
